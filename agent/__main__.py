@@ -1,0 +1,5 @@
+import sys
+
+from rotorwatch.cli import main
+
+sys.exit(main())

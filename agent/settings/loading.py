@@ -1,0 +1,84 @@
+"""TOML file -> validated :class:`Config`, with one line per problem.
+
+Every problem names the file, the field path (``machines[0].bands[1].high_hz``) and what is wrong, in
+that order; nothing raises a traceback at a user.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+from typing import Any, TypeVar
+
+from pydantic import BaseModel, ValidationError
+
+from rotorwatch.errors import ConfigError
+from rotorwatch.settings.models import Config
+
+M = TypeVar("M", bound=BaseModel)
+
+
+def read_toml(path: str | Path) -> dict[str, Any]:
+    """Parse a TOML file, turning every failure into a one-line :class:`ConfigError`."""
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except FileNotFoundError:
+        raise ConfigError([f"{p}: no such file"]) from None
+    except IsADirectoryError:
+        raise ConfigError([f"{p}: is a directory, expected a TOML file"]) from None
+    except OSError as e:
+        raise ConfigError([f"{p}: cannot read: {e.strerror}"]) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise ConfigError([f"{p}: not UTF-8 text (byte {e.start})"]) from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError([f"{p}: TOML syntax: {e}"]) from None
+
+
+def format_location(loc: tuple[Any, ...]) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+def _short(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def validation_problems(source: str, error: ValidationError) -> list[str]:
+    """One line per pydantic error: ``file: path = value: message``."""
+    lines = []
+    for err in error.errors(include_url=False):
+        loc = format_location(tuple(p for p in err["loc"] if not (isinstance(p, str) and "[" in p and "]" in p)))
+        msg = err["msg"]
+        if msg.startswith("Value error, "):
+            msg = msg[len("Value error, "):]
+        if err["type"] == "extra_forbidden":
+            msg = "unknown key (check the spelling; see the commented examples in config/)"
+        where = f"{source}: {loc}" if loc else f"{source}"
+        if err["type"] in ("value_error", "assertion_error") or err["type"] == "missing":
+            lines.append(f"{where}: {msg}")
+        else:
+            lines.append(f"{where} = {_short(err.get('input'))}: {msg}")
+    return lines
+
+
+def validate(model: type[M], data: dict[str, Any], source: str) -> M:
+    try:
+        return model.model_validate(data)
+    except ValidationError as e:
+        raise ConfigError(validation_problems(source, e)) from None
+
+
+def load_config(path: str | Path) -> Config:
+    """Load and validate a machine configuration file."""
+    return validate(Config, read_toml(path), str(path))

@@ -1,0 +1,457 @@
+"""Machine configuration: what is monitored, how it is measured and when it alarms.
+
+A configuration file (TOML) describes machines; each machine has measurement points (a sensor on a
+bearing housing), a running-speed source, its components (rolling bearings, a fan or impeller blade
+count) and the bands whose values are trended and alarmed. All values are written in physical units
+with the unit in the key name; conversion to samples happens once, in the analysis plan.
+
+Models are strict (unknown keys are errors) and frozen. Validation does no I/O.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Annotated, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from rotorwatch.settings.service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
+
+G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901; ISO 80000-3)
+
+Ident = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")]
+PositiveFloat = Annotated[float, Field(gt=0, allow_inf_nan=False)]
+NonNegFloat = Annotated[float, Field(ge=0, allow_inf_nan=False)]
+
+
+class Model(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+# --------------------------------------------------------------------------------------------- sensor
+class Sensor(Model):
+    """An accelerometer wired to one input channel."""
+
+    channel: int = Field(ge=0, le=63, description="input channel index, 0-based")
+    sensitivity_mv_per_g: PositiveFloat | None = None
+    sensitivity_mv_per_m_s2: PositiveFloat | None = None
+    direction: Literal["horizontal", "vertical", "axial", "radial"] = "horizontal"
+    # Full scale of the input in volts peak: samples near it read as clipping (sensor health).
+    input_range_v: PositiveFloat = 1.0
+    # An AC-coupled input rolls off at low frequency; when set, spectra are corrected for a
+    # first-order high-pass with this corner frequency.
+    ac_coupling_corner_hz: PositiveFloat | None = None
+
+    @model_validator(mode="after")
+    def _one_sensitivity(self) -> "Sensor":
+        given = [v for v in (self.sensitivity_mv_per_g, self.sensitivity_mv_per_m_s2) if v is not None]
+        if len(given) != 1:
+            raise ValueError(
+                "give exactly one of sensitivity_mv_per_g or sensitivity_mv_per_m_s2 "
+                f"(got {len(given)})"
+            )
+        return self
+
+    @property
+    def volts_per_m_s2(self) -> float:
+        """Sensitivity in V/(m/s^2)."""
+        if self.sensitivity_mv_per_m_s2 is not None:
+            return self.sensitivity_mv_per_m_s2 / 1000.0
+        return self.sensitivity_mv_per_g / 1000.0 / G_N  # type: ignore[operator]
+
+
+class Point(Model):
+    """A measurement point: one sensor at one place on the machine."""
+
+    id: Ident
+    name: str = ""
+    bearing: Ident | None = Field(None, description="id of the bearing this point sits on")
+    sensor: Sensor
+
+
+# ---------------------------------------------------------------------------------------------- speed
+class Speed(Model):
+    """Where the running speed comes from.
+
+    - ``fixed``: ``rpm`` is the speed (a direct-drive fan on mains).
+    - ``estimated``: searched in the spectrum between ``min_rpm`` and ``max_rpm`` (``rpm`` is the
+      nominal value, used for the frequency table and as the fallback).
+    - ``tach``: a once-per-revolution pulse on input ``tach_channel``.
+    - ``mqtt``: a drive or PLC publishes the speed in rpm on ``mqtt_topic``.
+    """
+
+    mode: Literal["fixed", "estimated", "tach", "mqtt"] = "fixed"
+    rpm: PositiveFloat | None = None
+    min_rpm: PositiveFloat | None = None
+    max_rpm: PositiveFloat | None = None
+    stopped_below_rpm: NonNegFloat | None = Field(
+        None, description="below this speed the machine counts as stopped (default 10 % of nominal)"
+    )
+    tach_channel: int | None = Field(None, ge=0, le=63)
+    pulses_per_rev: int = Field(1, ge=1, le=360)
+    tach_threshold_v: float = 0.5
+    mqtt_topic: str | None = None
+    mqtt_max_age_s: PositiveFloat = 60.0
+
+    @model_validator(mode="after")
+    def _mode_fields(self) -> "Speed":
+        if self.mode == "fixed" and self.rpm is None:
+            raise ValueError("mode 'fixed' needs rpm")
+        if self.mode == "estimated":
+            if self.min_rpm is None or self.max_rpm is None:
+                raise ValueError("mode 'estimated' needs min_rpm and max_rpm")
+            if self.min_rpm >= self.max_rpm:
+                raise ValueError(f"min_rpm ({self.min_rpm:g}) must be below max_rpm ({self.max_rpm:g})")
+            if self.rpm is not None and not self.min_rpm <= self.rpm <= self.max_rpm:
+                raise ValueError(f"rpm {self.rpm:g} lies outside min_rpm..max_rpm")
+        if self.mode == "tach" and self.tach_channel is None:
+            raise ValueError("mode 'tach' needs tach_channel")
+        if self.mode == "mqtt" and not self.mqtt_topic:
+            raise ValueError("mode 'mqtt' needs mqtt_topic")
+        if self.mode in ("tach", "mqtt") and self.rpm is None:
+            raise ValueError(f"mode '{self.mode}' needs rpm (the nominal speed, used until a reading arrives)")
+        return self
+
+    @property
+    def nominal_rpm(self) -> float:
+        if self.rpm is not None:
+            return self.rpm
+        return 0.5 * (self.min_rpm + self.max_rpm)  # type: ignore[operator]
+
+    @property
+    def stopped_rpm(self) -> float:
+        if self.stopped_below_rpm is not None:
+            return self.stopped_below_rpm
+        low = self.min_rpm if self.min_rpm is not None else self.nominal_rpm
+        return 0.1 * min(low, self.nominal_rpm)
+
+
+# ------------------------------------------------------------------------------------------ components
+class Bearing(Model):
+    """A rolling bearing, by geometry or by its defect-frequency multiples of shaft speed.
+
+    Geometry: ``elements`` rolling elements of diameter ``element_diameter`` on pitch diameter
+    ``pitch_diameter`` (in ``diameter_unit``), contact angle ``contact_angle_deg``. Multiples: ``bpfo``,
+    ``bpfi``, ``bsf`` and ``ftf`` in orders (as a bearing's data sheet or a dataset gives them).
+    """
+
+    id: Ident
+    name: str = ""
+    elements: int | None = Field(None, ge=3, le=200)
+    element_diameter: PositiveFloat | None = None
+    pitch_diameter: PositiveFloat | None = None
+    diameter_unit: Literal["mm", "in"] = "mm"
+    contact_angle_deg: float = Field(0.0, ge=0, lt=90)
+    bpfo: PositiveFloat | None = None
+    bpfi: PositiveFloat | None = None
+    bsf: PositiveFloat | None = None
+    ftf: PositiveFloat | None = None
+
+    @model_validator(mode="after")
+    def _geometry_or_multiples(self) -> "Bearing":
+        geometry = (self.elements, self.element_diameter, self.pitch_diameter)
+        multiples = (self.bpfo, self.bpfi, self.bsf, self.ftf)
+        has_geometry = all(v is not None for v in geometry)
+        if any(v is not None for v in geometry) and not has_geometry:
+            raise ValueError("geometry needs all of elements, element_diameter and pitch_diameter")
+        has_multiples = all(v is not None for v in multiples)
+        if any(v is not None for v in multiples) and not has_multiples:
+            raise ValueError("defect multiples need all of bpfo, bpfi, bsf and ftf")
+        if has_geometry == has_multiples:
+            raise ValueError("give either the geometry (elements, diameters) or the four defect multiples")
+        if has_geometry and self.element_diameter >= self.pitch_diameter:  # type: ignore[operator]
+            raise ValueError(
+                f"element_diameter ({self.element_diameter:g}) must be smaller than pitch_diameter "
+                f"({self.pitch_diameter:g})"
+            )
+        return self
+
+
+# ----------------------------------------------------------------------------------------------- levels
+class Levels(Model):
+    """Alarm levels of one value (a band or the overall velocity), in the value's unit.
+
+    Absolute levels (``warning``, ``alarm``) and levels relative to the baseline learned on the healthy
+    machine (``relative_warning``, ``relative_alarm``: a ratio to the baseline median in ``ratio`` form,
+    or a number of robust standard deviations above it in ``sigma`` form) may be combined; the lower
+    effective level wins. ``clear_margin_pct`` is the hysteresis on the way down, ``on_delay_updates``
+    the number of consecutive updates above a level before it is raised, ``latching`` keeps an alarm
+    until it is acknowledged.
+    """
+
+    warning: PositiveFloat | None = None
+    alarm: PositiveFloat | None = None
+    relative_form: Literal["ratio", "sigma"] = "ratio"
+    relative_warning: PositiveFloat | None = None
+    relative_alarm: PositiveFloat | None = None
+    clear_margin_pct: float = Field(10.0, ge=0, lt=100)
+    on_delay_updates: int = Field(3, ge=1, le=1000)
+    latching: bool = False
+
+    @model_validator(mode="after")
+    def _ordered(self) -> "Levels":
+        if self.warning is not None and self.alarm is not None and self.warning >= self.alarm:
+            raise ValueError(f"warning ({self.warning:g}) must be below alarm ({self.alarm:g})")
+        rw, ra = self.relative_warning, self.relative_alarm
+        if rw is not None and ra is not None and rw >= ra:
+            raise ValueError(f"relative_warning ({rw:g}) must be below relative_alarm ({ra:g})")
+        if self.relative_form == "ratio":
+            for name, v in (("relative_warning", rw), ("relative_alarm", ra)):
+                if v is not None and v <= 1.0:
+                    raise ValueError(f"{name} = {v:g}: a ratio to the baseline must be above 1")
+        return self
+
+    @property
+    def has_any(self) -> bool:
+        return any(v is not None for v in (self.warning, self.alarm, self.relative_warning, self.relative_alarm))
+
+
+# ------------------------------------------------------------------------------------------------ bands
+Feature = Literal["shaft", "blade_pass", "bpfo", "bpfi", "bsf", "ftf"]
+
+
+class Band(Model):
+    """A band whose value is trended and alarmed, on every point of its machine (or on ``points``).
+
+    Exactly one way to place it:
+    - ``low_hz``/``high_hz``: fixed edges in Hz;
+    - ``low_order``/``high_order``: edges in orders of running speed, following the speed;
+    - ``feature``: centred on a kinematic frequency (``shaft``, ``blade_pass``, or a bearing defect
+      ``bpfo``/``bpfi``/``bsf``/``ftf`` of ``bearing``) and its first ``harmonics``, each searched within
+      ``tolerance_pct`` (slip and speed uncertainty).
+
+    ``quantity`` says which spectrum the band reads: ``acceleration`` (m/s^2 RMS), ``velocity``
+    (mm/s RMS) or ``envelope`` (m/s^2 RMS of the envelope spectrum). Levels are in that unit.
+    """
+
+    name: Ident
+    quantity: Literal["acceleration", "velocity", "envelope"]
+    low_hz: PositiveFloat | None = None
+    high_hz: PositiveFloat | None = None
+    low_order: PositiveFloat | None = None
+    high_order: PositiveFloat | None = None
+    feature: Feature | None = None
+    bearing: Ident | None = None
+    harmonics: int = Field(3, ge=1, le=10)
+    tolerance_pct: float = Field(3.0, gt=0, le=20)
+    points: list[Ident] | None = Field(None, description="limit the band to these points (default: all)")
+    levels: Levels = Levels()
+
+    @model_validator(mode="after")
+    def _one_placement(self) -> "Band":
+        placements = {
+            "low_hz/high_hz": (self.low_hz, self.high_hz),
+            "low_order/high_order": (self.low_order, self.high_order),
+        }
+        given = []
+        for label, (lo, hi) in placements.items():
+            if (lo is None) != (hi is None):
+                raise ValueError(f"{label}: give both edges")
+            if lo is not None:
+                if lo >= hi:  # type: ignore[operator]
+                    raise ValueError(f"{label} = {lo:g}..{hi:g}: the low edge must be below the high edge")
+                given.append(label)
+        if self.feature is not None:
+            given.append("feature")
+        if len(given) != 1:
+            raise ValueError("place the band one way: low_hz/high_hz, low_order/high_order or feature")
+        if self.feature in ("bpfo", "bpfi", "bsf", "ftf") and self.bearing is None:
+            raise ValueError(f"feature '{self.feature}' needs bearing (the id of one of the machine's bearings)")
+        if self.bearing is not None and self.feature not in ("bpfo", "bpfi", "bsf", "ftf"):
+            raise ValueError("bearing is only used with a bearing-defect feature (bpfo, bpfi, bsf, ftf)")
+        return self
+
+
+# --------------------------------------------------------------------------------------------- analysis
+class Overall(Model):
+    """Overall (broadband) velocity RMS and its ISO 20816-3 evaluation."""
+
+    low_hz: PositiveFloat = 10.0
+    high_hz: PositiveFloat = 1000.0
+    levels: Levels = Levels()
+
+    @model_validator(mode="after")
+    def _edges(self) -> "Overall":
+        if self.low_hz >= self.high_hz:
+            raise ValueError(f"low_hz ({self.low_hz:g}) must be below high_hz ({self.high_hz:g})")
+        return self
+
+
+class Envelope(Model):
+    """Envelope (demodulation) analysis for rolling bearings.
+
+    ``band_hz = [low, high]`` fixes the demodulation band around a structural resonance; when absent,
+    the band is chosen each update by spectral kurtosis between ``auto_min_hz`` and the Nyquist limit.
+    """
+
+    band_hz: tuple[PositiveFloat, PositiveFloat] | None = None
+    auto_min_hz: PositiveFloat = 500.0
+    fmax_hz: PositiveFloat | None = Field(None, description="envelope-spectrum span (default: covers the defect harmonics)")
+    lines: int = Field(1600, ge=100, le=51200)
+
+    @model_validator(mode="after")
+    def _band(self) -> "Envelope":
+        if self.band_hz is not None and self.band_hz[0] >= self.band_hz[1]:
+            raise ValueError(f"band_hz = {list(self.band_hz)}: the low edge must be below the high edge")
+        return self
+
+
+class Analysis(Model):
+    """Spectrum settings: ``lines`` lines up to ``fmax_hz`` (default: sample rate / 2.56), Welch
+    averaging with a Hann window and ``overlap_pct`` overlap over each update's block."""
+
+    fmax_hz: PositiveFloat | None = None
+    lines: int = Field(3200, ge=100, le=102400)
+    overlap_pct: float = Field(50.0, ge=0, lt=95)
+    window_s: PositiveFloat = Field(4.0, description="seconds of signal averaged into each update")
+    envelope: Envelope = Envelope()
+
+
+class AlarmPolicy(Model):
+    """How baselines are learned."""
+
+    learning_hours: NonNegFloat = Field(24.0, description="learning period on the healthy machine")
+    min_learning_updates: int = Field(20, ge=1, le=100000)
+
+
+class Machine(Model):
+    id: Ident
+    name: str = ""
+    kind: Literal["fan", "pump", "motor", "compressor", "gearbox", "other"] = "fan"
+    iso_group: Literal[1, 2] = Field(2, description="ISO 20816-3 machine group: 1 large, 2 medium")
+    support: Literal["rigid", "flexible"] = "rigid"
+    speed: Speed
+    bearings: list[Bearing] = []
+    blades: int | None = Field(None, ge=1, le=200, description="fan or impeller blade count")
+    points: list[Point] = Field(min_length=1)
+    bands: list[Band] = []
+    overall: Overall = Overall()
+    analysis: Analysis = Analysis()
+    alarms: AlarmPolicy = AlarmPolicy()
+
+    @model_validator(mode="after")
+    def _references(self) -> "Machine":
+        problems = []
+        bearing_ids = [b.id for b in self.bearings]
+        point_ids = [p.id for p in self.points]
+        for label, ids in (("bearing", bearing_ids), ("point", point_ids), ("band", [b.name for b in self.bands])):
+            dupes = sorted({i for i in ids if ids.count(i) > 1})
+            if dupes:
+                problems.append(f"{label} ids must be unique, repeated: {', '.join(dupes)}")
+        for p in self.points:
+            if p.bearing is not None and p.bearing not in bearing_ids:
+                problems.append(f"point {p.id!r} names bearing {p.bearing!r}, known: {bearing_ids or 'none'}")
+        for b in self.bands:
+            if b.bearing is not None and b.bearing not in bearing_ids:
+                problems.append(f"band {b.name!r} names bearing {b.bearing!r}, known: {bearing_ids or 'none'}")
+            if b.feature == "blade_pass" and self.blades is None:
+                problems.append(f"band {b.name!r} uses blade_pass but the machine has no blades")
+            for pid in b.points or []:
+                if pid not in point_ids:
+                    problems.append(f"band {b.name!r} names point {pid!r}, known: {point_ids}")
+        if problems:
+            raise ValueError("; ".join(problems))
+        return self
+
+    def point(self, point_id: str) -> Point:
+        for p in self.points:
+            if p.id == point_id:
+                return p
+        raise KeyError(point_id)
+
+    def bearing(self, bearing_id: str) -> Bearing:
+        for b in self.bearings:
+            if b.id == bearing_id:
+                return b
+        raise KeyError(bearing_id)
+
+    def bands_for(self, point_id: str) -> list[Band]:
+        return [b for b in self.bands if b.points is None or point_id in b.points]
+
+
+# ------------------------------------------------------------------------------------------ acquisition
+class Acquisition(Model):
+    """Where samples come from. ``source`` picks the kind:
+
+    - ``soundcard``: a sound interface through PortAudio (``device`` by name or index);
+    - ``simulated``: a scenario from the simulator streamed as if it were a device (``scenario``);
+    - ``recording``: a WAV file played as a stream (``recording``, ``loop``);
+    - ``stdin``: raw interleaved float32 frames on standard input.
+    """
+
+    source: Literal["soundcard", "simulated", "recording", "stdin"] = "simulated"
+    sample_rate_hz: PositiveFloat = 51200.0
+    channels: int = Field(2, ge=1, le=64)
+    device: str | int | None = None
+    block_frames: int = Field(4096, ge=64, le=1048576)
+    scenario: str | None = None
+    recording: str | None = None
+    loop: bool = False
+    speedup: PositiveFloat = Field(1.0, description="simulated/recorded input: play this many times faster than real time")
+    update_interval_s: PositiveFloat = Field(5.0, description="seconds between analysis updates")
+
+
+class Site(Model):
+    name: str = ""
+    agent_id: Ident = "rotorwatch"
+
+
+class Config(Model):
+    site: Site = Site()
+    acquisition: Acquisition = Acquisition()
+    machines: list[Machine] = Field(min_length=1)
+    mqtt: MqttSettings | None = None
+    metrics: MetricsSettings | None = None
+    status_page: StatusPageSettings | None = None
+    storage: StorageSettings = StorageSettings()
+
+    @model_validator(mode="after")
+    def _channels_and_nyquist(self) -> "Config":
+        problems = []
+        ids = [m.id for m in self.machines]
+        dupes = sorted({i for i in ids if ids.count(i) > 1})
+        if dupes:
+            problems.append(f"machine ids must be unique, repeated: {', '.join(dupes)}")
+        used: dict[int, str] = {}
+        nyquist = self.acquisition.sample_rate_hz / 2.0
+        for m in self.machines:
+            channels = [(p.sensor.channel, f"{m.id}/{p.id}") for p in m.points]
+            if m.speed.mode == "tach":
+                channels.append((m.speed.tach_channel, f"{m.id} tach"))  # type: ignore[arg-type]
+            for ch, who in channels:
+                if ch in used:
+                    problems.append(f"input channel {ch} is used by both {used[ch]} and {who}")
+                used[ch] = who
+                if ch >= self.acquisition.channels:
+                    problems.append(
+                        f"{who} uses input channel {ch} but acquisition.channels = {self.acquisition.channels}"
+                    )
+            for b in m.bands:
+                if b.high_hz is not None and b.high_hz >= nyquist:
+                    problems.append(
+                        f"machine {m.id!r} band {b.name!r} high_hz = {b.high_hz:g}: must be below Nyquist "
+                        f"({nyquist:g} Hz at {self.acquisition.sample_rate_hz:g} Hz sampling)"
+                    )
+            if m.overall.high_hz >= nyquist:
+                problems.append(f"machine {m.id!r} overall.high_hz = {m.overall.high_hz:g}: must be below Nyquist ({nyquist:g} Hz)")
+            env = m.analysis.envelope.band_hz
+            if env is not None and env[1] >= nyquist:
+                problems.append(
+                    f"machine {m.id!r} analysis.envelope.band_hz upper edge {env[1]:g}: must be below Nyquist ({nyquist:g} Hz)"
+                )
+            fmax = m.analysis.fmax_hz
+            if fmax is not None and fmax > nyquist:
+                problems.append(f"machine {m.id!r} analysis.fmax_hz = {fmax:g}: must not exceed Nyquist ({nyquist:g} Hz)")
+        if problems:
+            raise ValueError("; ".join(problems))
+        return self
+
+    def machine(self, machine_id: str) -> Machine:
+        for m in self.machines:
+            if m.id == machine_id:
+                return m
+        raise KeyError(machine_id)
+
+
+def finite(x: float) -> bool:
+    return x is not None and math.isfinite(x)
