@@ -21,7 +21,7 @@ class SensorHealth:
     """What the sensor checks concluded about one block: ``ok`` or a fault with a reason."""
 
     ok: bool
-    fault: str | None = None  # disconnected | clipping | flatline | bias_shift | overflow | stalled | dropout
+    fault: str | None = None  # disconnected | clipping | flatline | bias_shift | overflow | stalled | dropout | invalid
     reason: str = ""
     rms_v: float = 0.0
     mean_v: float = 0.0
@@ -39,7 +39,8 @@ class ValueStatus:
     warning_level: float | None  # effective levels now (absolute or from the baseline, lower wins)
     alarm_level: float | None
     baseline: float | None  # learned baseline median, once learned
-    latched: bool = False
+    latched: bool = False  # an alarm held by latching after its value cleared (acknowledge to clear)
+    reason: str = ""  # why the value is in its state, for people
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,283 @@
+"""Robust baselines of the healthy machine: learned once, kept on disk, re-learned on request.
+
+Each trended value of each point (a band, or ``overall``) learns its own baseline from the updates of
+the running, healthy-sensor machine: from its first such update until ``AlarmPolicy.learning_hours``
+have passed *and* at least ``min_learning_updates`` updates were seen. The baseline is the median and
+the median absolute deviation (MAD) of those values, robust to the odd outlier (a door slam, a passing
+truck) in a way a mean and standard deviation are not.
+
+Memory stays bounded: at most ``max_samples`` values are kept per entry, by keeping every value, then
+every 2nd, every 4th... (the kept values stay evenly spread over the learning period).
+
+Baselines live in ``<state_dir>/baselines/<machine_id>.json``, written atomically (temporary file +
+``os.replace``), and are reloaded at start so a restart does not re-learn. Each entry carries a hash of
+the definition of its value (the band placement and quantity, the analysis settings, the sensor, the
+bearing geometry or blade count it depends on, but not its alarm levels): a changed definition re-learns,
+a changed level does not. An unreadable file is moved aside (``.corrupt-<time>``), never deleted.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import math
+import os
+import tempfile
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from rotorwatch.alarms.levels import Baseline
+from rotorwatch.errors import ConfigError
+from rotorwatch.settings.models import AlarmPolicy, Machine
+
+log = logging.getLogger(__name__)
+
+FORMAT = 1
+OVERALL = "overall"
+
+
+@dataclass
+class Entry:
+    """Learning state of one value (mutable; persisted as JSON)."""
+
+    definition_hash: str
+    status: str = "learning"  # learning | learned
+    first_s: float | None = None
+    last_s: float | None = None
+    n_seen: int = 0
+    stride: int = 1
+    samples: list[float] = field(default_factory=list)
+    median: float | None = None
+    mad: float | None = None
+    learned_at_s: float | None = None
+
+    @property
+    def baseline(self) -> Baseline | None:
+        if self.status != "learned" or self.median is None or self.mad is None:
+            return None
+        return Baseline(self.median, self.mad, self.n_seen)
+
+
+def definition(machine: Machine, point_id: str, value_name: str) -> dict[str, Any]:
+    """Everything a value's numbers depend on, except its alarm levels."""
+    point = machine.point(point_id)
+    out: dict[str, Any] = {
+        "value": value_name,
+        "analysis": machine.analysis.model_dump(mode="json"),
+        "sensor": point.sensor.model_dump(mode="json", exclude={"direction"}),
+    }
+    if value_name == OVERALL:
+        out["overall"] = machine.overall.model_dump(mode="json", exclude={"levels"})
+        return out
+    band = next(b for b in machine.bands if b.name == value_name)
+    out["band"] = band.model_dump(mode="json", exclude={"levels", "points"})
+    if band.bearing is not None:
+        out["bearing"] = machine.bearing(band.bearing).model_dump(mode="json", exclude={"name"})
+    if band.feature == "blade_pass":
+        out["blades"] = machine.blades
+    return out
+
+
+def definition_hash(machine: Machine, point_id: str, value_name: str) -> str:
+    text = json.dumps(definition(machine, point_id, value_name), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def robust_stats(samples: list[float] | np.ndarray) -> tuple[float, float]:
+    """(median, MAD) of the samples."""
+    x = np.asarray(samples, dtype=float)
+    med = float(np.median(x))
+    return med, float(np.median(np.abs(x - med)))
+
+
+class BaselineStore:
+    """Baselines of one machine's values, learned from updates and kept in ``state_dir``.
+
+    ``state_dir=None`` keeps everything in memory (nothing survives the object).
+    """
+
+    def __init__(
+        self,
+        machine: Machine,
+        state_dir: str | Path | None,
+        policy: AlarmPolicy | None = None,
+        *,
+        max_samples: int = 1024,
+        checkpoint_s: float = 600.0,
+    ):
+        if max_samples < 2:
+            raise ValueError(f"max_samples = {max_samples}: must be at least 2")
+        self.machine = machine
+        self.policy = policy if policy is not None else machine.alarms
+        self.max_samples = max_samples
+        self.checkpoint_s = checkpoint_s
+        self.entries: dict[str, Entry] = {}
+        self._hashes: dict[str, str] = {}
+        self._dirty = False
+        self._saved_at_s: float | None = None
+        self.path: Path | None = None
+        if state_dir is not None:
+            folder = Path(state_dir) / "baselines"
+            try:
+                folder.mkdir(parents=True, exist_ok=True)
+            except OSError as e:
+                raise ConfigError([f"storage.state_dir = {str(state_dir)!r}: cannot create {folder}: {e.strerror}"]) from None
+            self.path = folder / f"{machine.id}.json"
+            self._load()
+
+    # ------------------------------------------------------------------------------------------- keys
+    @staticmethod
+    def key(point_id: str, value_name: str) -> str:
+        return f"{point_id}/{value_name}"
+
+    def _hash(self, point_id: str, value_name: str) -> str:
+        k = self.key(point_id, value_name)
+        if k not in self._hashes:
+            self._hashes[k] = definition_hash(self.machine, point_id, value_name)
+        return self._hashes[k]
+
+    def _entry(self, point_id: str, value_name: str) -> Entry:
+        k = self.key(point_id, value_name)
+        h = self._hash(point_id, value_name)
+        e = self.entries.get(k)
+        if e is None or e.definition_hash != h:
+            if e is not None:
+                log.info("baseline definition changed, re-learning key=%s", k)
+            e = Entry(definition_hash=h)
+            self.entries[k] = e
+            self._dirty = True
+        return e
+
+    # ---------------------------------------------------------------------------------------- queries
+    def baseline(self, point_id: str, value_name: str) -> Baseline | None:
+        return self._entry(point_id, value_name).baseline
+
+    def is_learned(self, point_id: str, value_name: str) -> bool:
+        return self._entry(point_id, value_name).status == "learned"
+
+    def progress(self, point_id: str, value_name: str) -> tuple[int, float]:
+        """(updates seen, hours covered) of a value's learning."""
+        e = self._entry(point_id, value_name)
+        hours = 0.0 if e.first_s is None or e.last_s is None else (e.last_s - e.first_s) / 3600.0
+        return e.n_seen, hours
+
+    # --------------------------------------------------------------------------------------- learning
+    def add(self, point_id: str, value_name: str, x: float, time_s: float) -> Baseline | None:
+        """Feed one value of a running machine with a healthy sensor.
+
+        Returns the baseline when this value completed the learning, else None. Values of entries
+        already learned, and non-finite values, are ignored.
+        """
+        e = self._entry(point_id, value_name)
+        if e.status == "learned" or not math.isfinite(x):
+            return None
+        if e.first_s is None:
+            e.first_s = time_s
+        e.last_s = time_s
+        if e.n_seen % e.stride == 0:
+            e.samples.append(float(x))
+            if len(e.samples) > self.max_samples:
+                e.samples = e.samples[::2]
+                e.stride *= 2
+        e.n_seen += 1
+        self._dirty = True
+        hours = (e.last_s - e.first_s) / 3600.0
+        if hours + 1e-9 >= self.policy.learning_hours and e.n_seen >= self.policy.min_learning_updates:
+            e.median, e.mad = robust_stats(e.samples)
+            e.status = "learned"
+            e.learned_at_s = time_s
+            e.samples = []
+            log.info(
+                "baseline learned machine=%s key=%s median=%.6g mad=%.6g n=%d hours=%.2f",
+                self.machine.id, self.key(point_id, value_name), e.median, e.mad, e.n_seen, hours,
+            )
+            self.save()
+            return e.baseline
+        return None
+
+    def relearn(self, point_id: str | None = None, value_name: str | None = None) -> list[str]:
+        """Forget the baselines of the chosen values (all by default) and learn them again.
+
+        Returns the keys reset.
+        """
+        reset = []
+        for p in self.machine.points:
+            if point_id is not None and p.id != point_id:
+                continue
+            names = [OVERALL] + [b.name for b in self.machine.bands_for(p.id)]
+            for name in names:
+                if value_name is not None and name != value_name:
+                    continue
+                k = self.key(p.id, name)
+                self.entries[k] = Entry(definition_hash=self._hash(p.id, name))
+                reset.append(k)
+        if reset:
+            self._dirty = True
+            log.info("baselines reset machine=%s keys=%s", self.machine.id, ",".join(reset))
+            self.save()
+        return reset
+
+    # ------------------------------------------------------------------------------------ persistence
+    def checkpoint(self, time_s: float) -> None:
+        """Save learning progress now and then (every ``checkpoint_s`` of update time)."""
+        if not self._dirty:
+            return
+        if self._saved_at_s is None or time_s - self._saved_at_s >= self.checkpoint_s:
+            self.save()
+            self._saved_at_s = time_s
+
+    def save(self) -> None:
+        """Write the baselines atomically. A failed write is logged; the baselines stay in memory."""
+        if self.path is None:
+            self._dirty = False
+            return
+        doc = {
+            "format": FORMAT,
+            "machine_id": self.machine.id,
+            "saved_unix_s": time.time(),
+            "entries": {k: asdict(e) for k, e in sorted(self.entries.items())},
+        }
+        tmp = None
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp", dir=self.path.parent)
+            with os.fdopen(fd, "w", encoding="utf-8") as f:
+                json.dump(doc, f, indent=1, allow_nan=False)
+                f.flush()
+                os.fsync(f.fileno())
+            os.replace(tmp, self.path)
+            tmp = None
+            self._dirty = False
+        except (OSError, ValueError) as e:
+            log.error("cannot save baselines path=%s error=%s", self.path, e)
+        finally:
+            if tmp is not None:
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+
+    def _load(self) -> None:
+        assert self.path is not None
+        if not self.path.exists():
+            return
+        try:
+            doc = json.loads(self.path.read_text(encoding="utf-8"))
+            if not isinstance(doc, dict) or doc.get("format") != FORMAT:
+                raise ValueError(f"format {doc.get('format') if isinstance(doc, dict) else None!r}, expected {FORMAT}")
+            entries = {str(k): Entry(**v) for k, v in doc.get("entries", {}).items()}
+        except (OSError, ValueError, TypeError) as e:
+            aside = self.path.with_name(f"{self.path.name}.corrupt-{int(time.time())}")
+            log.warning("baselines unreadable, moved aside path=%s to=%s error=%s", self.path, aside, e)
+            try:
+                os.replace(self.path, aside)
+            except OSError:
+                pass
+            return
+        self.entries = entries
+        learned = sum(1 for e in entries.values() if e.status == "learned")
+        log.info("baselines loaded machine=%s path=%s learned=%d of %d", self.machine.id, self.path, learned, len(entries))
