@@ -7,9 +7,8 @@ behind. The fixtures in ``conftest.py`` wrap these classes; tests that need a pr
 example a broker they are going to stop) can build one directly.
 
 A missing program is a test failure, never a skip: :func:`find_binary` calls ``pytest.fail`` with the
-Debian package to install. The only skip is :func:`shared_datasets_dir` callers' choice, for the
-recordings in ``../shared/datasets`` that exist in CI and on developer machines but not in a user's
-clone.
+Debian package to install. The one allowed skip is for the recordings in ``../shared/datasets``
+(:func:`shared_datasets_dir`), present in CI and on developer machines but not in a user's clone.
 
 Audio without hardware (PulseAudio's pipe source, per the shared recipes):
 PulseAudio runs in user mode with ``module-pipe-source`` sources; PortAudio reaches them through

@@ -261,7 +261,9 @@ def test_paused_feed_stalls_capture_without_losing_frames(audio_device):
     try:
         assert wait_until(lambda: capture.n_frames >= source.rate_hz // 2, timeout_s=5)
         feed.pause()
-        time.sleep(0.3)  # let frames already in flight arrive
+        # Every frame written so far arrives (480-frame chunks and blocks line up), then nothing more.
+        assert wait_until(lambda: capture.n_frames == feed.frames_written, timeout_s=3), \
+            f"captured {capture.n_frames} frames, written {feed.frames_written}"
         stalled_at = capture.n_frames
         time.sleep(0.5)
         assert capture.n_frames == stalled_at, "frames kept arriving from a paused feed"
