@@ -1,0 +1,394 @@
+"""Replay expectations: short sentences about a replay's states, parsed and checked.
+
+A small grammar of our own, one expectation per string::
+
+    expectation := subject verb state [window]
+                 | "no" state [window]                       (the machine never reaches the state)
+                 | subject "reaches" state "before" subject "reaches" state
+    subject     := "machine" | "point" POINT | "zone on" POINT | VALUE "on" POINT
+    verb        := "reaches" | "is" | "stays below" | "never" | "ends"
+    window      := "before" TIME | "after" TIME | "between" TIME "and" TIME
+    TIME        := ("day" | "hour") NUMBER      (days or hours from the start of the replay; the
+                                                 second TIME of "between" may omit the unit)
+
+``VALUE`` is a band name or ``overall``; states are the point states (``alarm``, ``warning``,
+``sensor_fault``, ``no_data``, ``learning``, ``normal``, ``stopped``), ``suppressed`` for values, and
+the ISO 20816 zone letters ``A`` to ``D`` (optionally written ``zone C``) for ``zone on POINT``.
+
+Meaning, over the updates inside the window:
+
+- ``reaches S``: at least one update is in S;   ``is S``: every update is in S;
+- ``stays below S`` / ``never S``: no update is in S;   ``ends S``: the last update is in S;
+- ``A reaches S before B reaches T``: A reaches S, and earlier than B reaches T (or B never does).
+
+``warning`` and ``alarm`` are ordered (an alarm has also reached warning), as are zones (D has also
+reached C); the other states match exactly. A window with no update fails: it usually means a typo in
+the day numbers. Examples::
+
+    de-outer-race on de-h reaches alarm between day 10 and day 20
+    no warning before day 25
+    overall on de-h stays below warning
+    point de-h is sensor_fault between day 12.0 and day 12.1
+    machine never alarm
+    de-outer-race on de-h reaches warning before zone on de-h reaches C
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from rotorwatch.alarms.records import STATES
+from rotorwatch.errors import ConfigError
+from rotorwatch.settings.models import Machine
+
+DAY_S = 86400.0
+HOUR_S = 3600.0
+ORDERED = {"warning": 1, "alarm": 2}
+ZONES = ("A", "B", "C", "D")
+VALUE_STATES = ("alarm", "warning", "learning", "normal", "suppressed")
+VERBS = ("reaches", "is", "stays below", "never", "ends")
+GRAMMAR_HINT = (
+    "expected '<subject> reaches|is|stays below|never|ends <state> [before|after day N | between day N and day M]', "
+    "'no <state> [window]' or '<subject> reaches <state> before <subject> reaches <state>'; "
+    "subject: machine | point P | zone on P | VALUE on P"
+)
+
+
+# ---------------------------------------------------------------------------------------------- model
+@dataclass(frozen=True)
+class Subject:
+    kind: str  # machine | point | value | zone
+    point: str | None = None
+    value: str | None = None
+
+    def __str__(self) -> str:
+        if self.kind == "machine":
+            return "machine"
+        if self.kind == "point":
+            return f"point {self.point}"
+        if self.kind == "zone":
+            return f"zone on {self.point}"
+        return f"{self.value} on {self.point}"
+
+
+@dataclass(frozen=True)
+class Window:
+    start_s: float | None = None  # inclusive
+    end_s: float | None = None  # inclusive for "between", exclusive for "before"
+    end_inclusive: bool = True
+
+    def contains(self, t_s: float) -> bool:
+        if self.start_s is not None and t_s < self.start_s - 1e-9:
+            return False
+        if self.end_s is not None:
+            return t_s <= self.end_s + 1e-9 if self.end_inclusive else t_s < self.end_s - 1e-9
+        return True
+
+
+@dataclass(frozen=True)
+class Expectation:
+    text: str
+    subject: Subject
+    verb: str
+    state: str
+    window: Window = Window()
+    other: tuple[Subject, str] | None = None  # "... before <subject> reaches <state>"
+
+
+@dataclass(frozen=True)
+class Sample:
+    """The states of one replay update, as expectations see them."""
+
+    elapsed_s: float
+    machine: str
+    points: dict[str, str]
+    values: dict[tuple[str, str], tuple[str, float, str]]  # (point, value) -> (state, value, unit)
+    zones: dict[str, str | None] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Verdict:
+    expectation: Expectation
+    passed: bool
+    detail: str
+
+
+# -------------------------------------------------------------------------------------------- parsing
+class _Tokens:
+    def __init__(self, text: str, fail):
+        self.words = text.split()
+        self.i = 0
+        self.fail = fail
+
+    def peek(self, k: int = 0) -> str | None:
+        j = self.i + k
+        return self.words[j] if j < len(self.words) else None
+
+    def low(self, k: int = 0) -> str | None:
+        w = self.peek(k)
+        return w.lower() if w is not None else None
+
+    def take(self, what: str) -> str:
+        w = self.peek()
+        if w is None:
+            self.fail(f"ends early, expected {what}")
+        self.i += 1
+        return w  # type: ignore[return-value]
+
+    def expect(self, word: str) -> None:
+        w = self.take(f"'{word}'")
+        if w.lower() != word:
+            self.fail(f"expected '{word}' but found {w!r}")
+
+    def done(self) -> bool:
+        return self.i >= len(self.words)
+
+
+def _number(tok: _Tokens, unit_s: float | None) -> tuple[float, float]:
+    """Parse '[day|hour] NUMBER' -> (seconds, unit seconds)."""
+    word = tok.low()
+    if word in ("day", "days"):
+        unit_s = DAY_S
+        tok.take("day")
+    elif word in ("hour", "hours"):
+        unit_s = HOUR_S
+        tok.take("hour")
+    elif unit_s is None:
+        tok.fail(f"expected 'day N' or 'hour N' but found {tok.peek()!r}" if word else "ends early, expected 'day N'")
+    raw = tok.take("a number")
+    try:
+        x = float(raw)
+    except ValueError:
+        tok.fail(f"{raw!r} is not a number")
+    if not math.isfinite(x) or x < 0:
+        tok.fail(f"{raw!r}: a time must be a finite number of days or hours from the start, 0 or more")
+    return x * unit_s, unit_s  # type: ignore[operator]
+
+
+def _window(tok: _Tokens) -> Window:
+    if tok.done():
+        return Window()
+    word = tok.low()
+    if word == "before":
+        tok.take("before")
+        end, _ = _number(tok, None)
+        return Window(None, end, end_inclusive=False)
+    if word == "after":
+        tok.take("after")
+        start, _ = _number(tok, None)
+        return Window(start, None)
+    if word == "between":
+        tok.take("between")
+        start, unit = _number(tok, None)
+        tok.expect("and")
+        end, _ = _number(tok, unit)
+        if end < start:
+            tok.fail("the window ends before it starts")
+        return Window(start, end)
+    tok.fail(f"expected a window (before|after|between ...) but found {tok.peek()!r}")
+    raise AssertionError  # unreachable
+
+
+def _subject(tok: _Tokens) -> Subject:
+    word = tok.low()
+    if word == "machine":
+        tok.take("machine")
+        return Subject("machine")
+    if word == "point":
+        tok.take("point")
+        return Subject("point", point=tok.take("a point id"))
+    if word == "zone" and tok.low(1) == "on":
+        tok.take("zone")
+        tok.take("on")
+        return Subject("zone", point=tok.take("a point id"))
+    value = tok.take("a subject (machine, point P, zone on P or VALUE on P)")
+    tok.expect("on")
+    return Subject("value", point=tok.take("a point id"), value=value)
+
+
+def _verb(tok: _Tokens) -> str:
+    word = tok.low()
+    if word == "stays":
+        tok.take("stays")
+        tok.expect("below")
+        return "stays below"
+    if word == "never":
+        tok.take("never")
+        if tok.low() == "reaches":
+            tok.take("reaches")
+        return "never"
+    if word == "ends":
+        tok.take("ends")
+        if tok.low() == "in":
+            tok.take("in")
+        return "ends"
+    if word in ("reaches", "is"):
+        tok.take(word)
+        return word
+    tok.fail(f"expected a verb ({', '.join(VERBS)}) but found {tok.peek()!r}" if word else "ends early, expected a verb")
+    raise AssertionError  # unreachable
+
+
+def _state(tok: _Tokens, subject: Subject) -> str:
+    if subject.kind == "zone":
+        if tok.low() == "zone":
+            tok.take("zone")
+        raw = tok.take("a zone letter A-D")
+        if raw.upper() not in ZONES:
+            tok.fail(f"zone {raw!r}: expected one of {', '.join(ZONES)}")
+        return raw.upper()
+    raw = tok.take("a state")
+    state = raw.lower()
+    allowed = VALUE_STATES if subject.kind == "value" else STATES
+    if state not in allowed:
+        tok.fail(f"state {raw!r} for {subject}: expected one of {', '.join(allowed)}")
+    return state
+
+
+def _check_names(subject: Subject, machine: Machine | None, fail) -> None:
+    if machine is None or subject.point is None:
+        return
+    points = [p.id for p in machine.points]
+    if subject.point not in points:
+        fail(f"unknown point {subject.point!r} (machine {machine.id!r} has {', '.join(points)})")
+    if subject.kind == "value":
+        values = ["overall"] + [b.name for b in machine.bands_for(subject.point)]
+        if subject.value not in values:
+            fail(f"unknown value {subject.value!r} on point {subject.point!r} (known: {', '.join(values)})")
+
+
+def parse(text: str, machine: Machine | None = None, where: str = "expectation") -> Expectation:
+    """Parse one expectation; names are checked against ``machine`` when given.
+
+    Raises :class:`ConfigError` with one line ``where = 'text': problem`` on any mistake.
+    """
+
+    def fail(problem: str):
+        raise ConfigError([f"{where} = {text!r}: {problem}; {GRAMMAR_HINT}"])
+
+    tok = _Tokens(text, fail)
+    if tok.done():
+        fail("empty expectation")
+    if tok.low() == "no":
+        tok.take("no")
+        subject = Subject("machine")
+        state = _state(tok, subject)
+        window = _window(tok)
+        verb = "never"
+        other = None
+    else:
+        subject = _subject(tok)
+        _check_names(subject, machine, fail)
+        verb = _verb(tok)
+        state = _state(tok, subject)
+        other = None
+        if verb == "reaches" and tok.low() == "before" and tok.low(1) not in ("day", "days", "hour", "hours"):
+            tok.take("before")
+            second = _subject(tok)
+            _check_names(second, machine, fail)
+            tok.expect("reaches")
+            other = (second, _state(tok, second))
+            window = Window()
+        else:
+            window = _window(tok)
+    if not tok.done():
+        fail(f"unexpected {' '.join(tok.words[tok.i:])!r} at the end")
+    if verb in ("stays below",) and state not in ORDERED and subject.kind != "zone":
+        fail(f"'stays below' needs warning, alarm or a zone, not {state!r}")
+    return Expectation(" ".join(text.split()), subject, verb, state, window, other)
+
+
+# ----------------------------------------------------------------------------------------- evaluation
+def _state_of(sample: Sample, subject: Subject) -> str | None:
+    if subject.kind == "machine":
+        return sample.machine
+    if subject.kind == "point":
+        return sample.points.get(subject.point)  # type: ignore[arg-type]
+    if subject.kind == "zone":
+        return sample.zones.get(subject.point)  # type: ignore[arg-type]
+    v = sample.values.get((subject.point, subject.value))  # type: ignore[arg-type]
+    return v[0] if v else None
+
+
+def matches(state: str | None, wanted: str, subject: Subject) -> bool:
+    """Is ``state`` in ``wanted``? Warning/alarm and zones count 'at least'; the rest exactly."""
+    if state is None:
+        return False
+    if subject.kind == "zone":
+        return state in ZONES and ZONES.index(state) >= ZONES.index(wanted)
+    if wanted in ORDERED:
+        return ORDERED.get(state, 0) >= ORDERED[wanted]
+    return state == wanted
+
+
+def day(t_s: float) -> str:
+    return f"day {t_s / DAY_S:.2f}"
+
+
+def _at(sample: Sample, subject: Subject) -> str:
+    text = f"{day(sample.elapsed_s)}"
+    if subject.kind == "value":
+        v = sample.values.get((subject.point, subject.value))  # type: ignore[arg-type]
+        if v and math.isfinite(v[1]):
+            text += f" ({v[1]:.3g} {v[2]})"
+    return text
+
+
+def first_reaching(samples: list[Sample], subject: Subject, state: str) -> Sample | None:
+    return next((s for s in samples if matches(_state_of(s, subject), state, subject)), None)
+
+
+def _worst_seen(samples: list[Sample], subject: Subject) -> str:
+    seen = [st for st in (_state_of(s, subject) for s in samples) if st is not None]
+    if not seen:
+        return "none"
+    if subject.kind == "zone":
+        return max(seen, key=lambda z: ZONES.index(z) if z in ZONES else -1)
+    order = {"alarm": 0, "warning": 1}
+    return min(seen, key=lambda st: (order.get(st, 2), STATES.index(st) if st in STATES else 99))
+
+
+def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
+    """Check one expectation against the updates of a replay (in time order)."""
+    if exp.other is not None:
+        a = first_reaching(samples, exp.subject, exp.state)
+        other, other_state = exp.other
+        b = first_reaching(samples, other, other_state)
+        if a is None:
+            return Verdict(exp, False, f"{exp.subject} never reached {exp.state}")
+        if b is None:
+            return Verdict(exp, True, f"{exp.subject} reached {exp.state} at {_at(a, exp.subject)}; {other} never reached {other_state}")
+        lead = (b.elapsed_s - a.elapsed_s) / DAY_S
+        detail = f"{exp.subject} reached {exp.state} at {_at(a, exp.subject)}, {other} reached {other_state} at {_at(b, other)}"
+        return Verdict(exp, a.elapsed_s < b.elapsed_s, f"{detail} ({lead:+.2f} days)")
+
+    inside = [s for s in samples if exp.window.contains(s.elapsed_s)]
+    if not inside:
+        span = f"{day(samples[0].elapsed_s)} to {day(samples[-1].elapsed_s)}" if samples else "no updates at all"
+        return Verdict(exp, False, f"no updates inside the window (the replay covers {span})")
+    subj, want = exp.subject, exp.state
+    hits = [s for s in inside if matches(_state_of(s, subj), want, subj)]
+    if exp.verb == "reaches":
+        if hits:
+            return Verdict(exp, True, f"first {want} at {_at(hits[0], subj)}")
+        outside = first_reaching(samples, subj, want)
+        extra = f"; it did at {_at(outside, subj)}, outside the window" if outside is not None else ""
+        return Verdict(exp, False, f"never {want} in the window (worst: {_worst_seen(inside, subj)}){extra}")
+    if exp.verb == "is":
+        misses = [s for s in inside if s not in hits]
+        if not misses:
+            return Verdict(exp, True, f"{want} at all {len(inside)} updates in the window")
+        first = misses[0]
+        return Verdict(
+            exp, False,
+            f"{_state_of(first, subj)} at {_at(first, subj)} ({len(misses)} of {len(inside)} updates not {want})",
+        )
+    if exp.verb in ("stays below", "never"):
+        if not hits:
+            return Verdict(exp, True, f"worst: {_worst_seen(inside, subj)} over {len(inside)} updates")
+        return Verdict(exp, False, f"{_state_of(hits[0], subj)} at {_at(hits[0], subj)}")
+    # ends
+    last = inside[-1]
+    ok = matches(_state_of(last, subj), want, subj)
+    return Verdict(exp, ok, f"{_state_of(last, subj)} at the last update, {_at(last, subj)}")
