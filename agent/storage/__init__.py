@@ -1,0 +1,34 @@
+"""Local storage of the agent: the publish spool, the trend store and evidence snapshots.
+
+API overview (each module has one job; all of them take their paths and clocks from the caller):
+
+- :mod:`rotorwatch.storage.spool` -- :class:`~rotorwatch.storage.spool.Spool`: a durable
+  store-and-forward queue (sqlite3, WAL). Every record the agent publishes gets a per-agent sequence
+  number that survives restarts and is never reused.
+- :mod:`rotorwatch.storage.forwarder` -- :class:`~rotorwatch.storage.forwarder.Forwarder`: drains the
+  spool into a paho-mqtt 2.x client at QoS 1, deleting a record only on its PUBACK; a live lane and a
+  rate-bounded backlog lane after an outage.
+- :mod:`rotorwatch.storage.trends` -- :class:`~rotorwatch.storage.trends.TrendStore`: per-update values
+  (time, machine, point, value name, value, unit, state) with retention by age and row count.
+- :mod:`rotorwatch.storage.snapshots` -- :class:`~rotorwatch.storage.snapshots.SnapshotStore`:
+  evidence (calibrated waveform WAV, spectra .npz, JSON sidecar) under a disk quota.
+- :mod:`rotorwatch.storage.snapshot_policy` -- when to take a snapshot (state transitions, a daily
+  time); :mod:`rotorwatch.storage.snapshot_plot` -- the evidence plot (optional ``plot`` extra).
+- :mod:`rotorwatch.storage.settings` -- pydantic models of the knobs above.
+
+File names inside the state directory (``storage.state_dir``) are fixed: ``spool.sqlite``,
+``trends.sqlite`` and ``snapshots/``. What is and is not guaranteed is written down in
+``deploy/data-guarantees.md``.
+"""
+
+from __future__ import annotations
+
+from rotorwatch.errors import RotorwatchError
+
+SPOOL_FILE = "spool.sqlite"
+TRENDS_FILE = "trends.sqlite"
+SNAPSHOTS_DIR = "snapshots"
+
+
+class StorageError(RotorwatchError):
+    """A store cannot be opened, read or written (one line: which file, what failed, a hint)."""

@@ -1,0 +1,101 @@
+"""Settings of local storage: the publish spool and its forwarder, the trend store, snapshots.
+
+These models are meant to sit under ``[storage]`` in the configuration file, next to ``state_dir``::
+
+    [storage]
+    state_dir = "/var/lib/rotorwatch"
+    [storage.spool]          # bounds of the store-and-forward spool
+    # max_bytes = 67108864
+    # max_records = 200000
+    # durability = "power_loss"
+    [storage.forwarding]     # how the spool drains into MQTT
+    # in_flight_window = 20
+    # backlog_rate_per_s = 200.0
+    [storage.trends]
+    # retention_days = 180.0
+    # max_rows = 5000000
+    [storage.snapshots]
+    # quota_bytes = 536870912
+    # on_transition_to = ["warning", "alarm"]
+    # daily_at_utc = "03:00"
+
+Models are strict (unknown keys are errors) and frozen; validation does no I/O.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+MIB = 1024 * 1024
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class SpoolSettings(_Model):
+    """Bounds and durability of the publish spool (``spool.sqlite`` in the state directory).
+
+    ``max_bytes`` bounds the stored topics and payloads (the file itself is larger by sqlite's page
+    overhead, typically 10-30 %); ``max_records`` bounds the row count. When either is reached the
+    full policy of :class:`rotorwatch.storage.spool.Spool` makes room, counting what it drops.
+
+    ``durability``: ``power_loss`` (sqlite ``synchronous=FULL``: every committed record survives a power
+    cut) or ``process_crash`` (``synchronous=NORMAL``: records survive a crash or kill of the agent,
+    but the last records before a power cut may be lost; fewer flash writes).
+    """
+
+    max_bytes: int = Field(64 * MIB, ge=64 * 1024)
+    max_records: int = Field(200_000, ge=100)
+    durability: Literal["power_loss", "process_crash"] = "power_loss"
+
+
+class ForwardingSettings(_Model):
+    """How the spool drains into the broker (see :class:`rotorwatch.storage.forwarder.Forwarder`).
+
+    ``in_flight_window``: records published and not yet acknowledged, at most. ``backlog_rate_per_s``
+    bounds the replay of what piled up during an outage; live records are not rate-bounded.
+    ``live_reserve`` window slots are kept free for live records while a backlog drains.
+    """
+
+    in_flight_window: int = Field(20, ge=1, le=1000)
+    backlog_rate_per_s: float = Field(200.0, gt=0, allow_inf_nan=False)
+    live_reserve: int = Field(4, ge=0)
+
+    @model_validator(mode="after")
+    def _reserve_below_window(self) -> "ForwardingSettings":
+        if self.live_reserve >= self.in_flight_window:
+            raise ValueError(
+                f"live_reserve ({self.live_reserve}) must be below in_flight_window ({self.in_flight_window}) "
+                "so the backlog can drain"
+            )
+        return self
+
+
+class TrendSettings(_Model):
+    """The trend store (``trends.sqlite``): per-update values kept by age and by row count.
+
+    ``min_interval_s`` stores at most one row per series (machine, point, value) in that interval
+    (0: every update). Pruning runs every ``prune_interval_s``.
+    """
+
+    retention_days: float = Field(180.0, gt=0, allow_inf_nan=False)
+    max_rows: int = Field(5_000_000, ge=1000)
+    min_interval_s: float = Field(0.0, ge=0, allow_inf_nan=False)
+    prune_interval_s: float = Field(3600.0, gt=0, allow_inf_nan=False)
+
+
+class SnapshotSettings(_Model):
+    """Evidence snapshots (``snapshots/``): when they are taken and how much disk they may use.
+
+    A snapshot is taken when a value or point of a machine enters one of ``on_transition_to`` (at most
+    once per ``min_interval_s`` per machine), once a day at ``daily_at_utc`` (``HH:MM``, UTC; absent:
+    never) and on request. The oldest snapshots are deleted when the total passes ``quota_bytes``.
+    """
+
+    quota_bytes: int = Field(512 * MIB, ge=MIB)
+    on_transition_to: tuple[Literal["warning", "alarm", "sensor_fault"], ...] = ("warning", "alarm")
+    min_interval_s: float = Field(600.0, ge=0, allow_inf_nan=False)
+    daily_at_utc: str | None = Field("03:00", pattern=r"^([01][0-9]|2[0-3]):[0-5][0-9]$")

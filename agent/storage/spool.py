@@ -1,0 +1,518 @@
+"""The publish spool: a durable, bounded store-and-forward queue of everything the agent publishes.
+
+Every record (``state``, ``metrics`` or ``event``) is written to sqlite before anything is sent, and
+deleted only when the broker has acknowledged it (:meth:`Spool.ack`, called on PUBACK by the
+forwarder). Each record gets
+
+- ``seq``: a per-agent sequence number, strictly increasing, persisted in the same transaction as the
+  record, never reused (not after a restart, not after the record is deleted, not after a drop);
+- ``ts``: the POSIX time it was appended (from the injected clock).
+
+Both are added to JSON payloads (``{"seq": 17, "ts": 1767225600.123, ...}``), so a consumer can
+discard duplicates (same ``seq``) and see gaps. Bytes payloads are stored as given.
+
+Durability (``durability`` -> sqlite ``PRAGMA synchronous`` in WAL mode):
+
+- ``power_loss`` (default, ``FULL``): the WAL is fsynced at every commit, so an appended record survives
+  a power cut, the usual way an edge box dies. The agent appends a few records per update interval,
+  so the fsync per append costs little; acknowledgements are committed in batches (:meth:`ack_many`)
+  so draining a backlog does not fsync per message.
+- ``process_crash`` (``NORMAL``): commits survive a crash or ``kill -9`` of the agent (the WAL is in
+  the OS page cache) but the last commits before a power cut may be lost; fewer writes to flash.
+
+Threading: one sqlite connection behind a lock; every method may be called from any thread. No
+method blocks on the network. Only one process may open a spool (an ``flock`` on ``<path>.lock``).
+
+Full policy (when appending would pass ``max_bytes`` or ``max_records``), applied in this order until
+the spool is back under 95 % of both bounds, each step counted in :meth:`stats` ``dropped``:
+
+1. ``state_superseded``: states with a newer state on the same topic in the spool (a retained state
+   is only the latest value; transitions are kept as events);
+2. ``metrics_thinned``: every other metrics record of the oldest half of the metrics, repeated, so
+   old metrics history gets coarser (halving its time resolution per pass) before any is lost whole;
+3. ``metrics_oldest``: the oldest metrics records;
+4. ``event_oldest``: the oldest events (logged as a warning: alarm history is being lost);
+5. ``state_oldest``: the oldest remaining states (only when the spool holds nothing else).
+
+Records in flight are never dropped. A record larger than ``max_bytes`` on its own is not stored
+(``oversize``); its seq is still consumed. Records the broker refuses or paho cannot send are
+deleted through :meth:`reject` (``broker_rejected``, ``unsendable``).
+"""
+
+from __future__ import annotations
+
+import fcntl
+import json
+import logging
+import math
+import os
+import sqlite3
+import threading
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable, Iterator, Literal, Mapping
+
+from rotorwatch.storage import SPOOL_FILE, StorageError
+
+log = logging.getLogger(__name__)
+
+KINDS = ("state", "metrics", "event")
+DROP_REASONS = (
+    "state_superseded", "metrics_thinned", "metrics_oldest", "event_oldest", "state_oldest",
+    "oversize", "broker_rejected", "unsendable",
+)
+#: Bytes counted per record on top of topic and payload (seq, ts, kind, flags, row header).
+RECORD_OVERHEAD_BYTES = 32
+#: After the full policy runs, the spool is under this fraction of both bounds (hysteresis).
+LOW_WATER = 0.95
+SCHEMA_VERSION = 1
+_SYNCHRONOUS = {"power_loss": "FULL", "process_crash": "NORMAL"}
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value INTEGER NOT NULL);
+CREATE TABLE IF NOT EXISTS records (
+    seq INTEGER PRIMARY KEY,
+    ts_s REAL NOT NULL,
+    kind TEXT NOT NULL,
+    topic TEXT NOT NULL,
+    payload BLOB NOT NULL,
+    qos INTEGER NOT NULL,
+    retain INTEGER NOT NULL,
+    size_bytes INTEGER NOT NULL
+);
+CREATE INDEX IF NOT EXISTS records_kind_seq ON records (kind, seq, size_bytes);
+CREATE INDEX IF NOT EXISTS records_state_topic ON records (topic, seq) WHERE kind = 'state';
+CREATE TABLE IF NOT EXISTS retained (topic TEXT PRIMARY KEY, seq INTEGER NOT NULL);
+"""
+
+
+@dataclass(frozen=True)
+class Record:
+    """One spooled record, as it will be published."""
+
+    seq: int
+    ts_s: float
+    kind: str  # state | metrics | event
+    topic: str
+    payload: bytes
+    qos: int
+    retain: bool
+
+
+@dataclass(frozen=True)
+class SpoolStats:
+    """A snapshot of the spool's health (for metrics and the status page)."""
+
+    depth: int  # records stored (pending + in flight)
+    stored_bytes: int  # topics + payloads + RECORD_OVERHEAD_BYTES per record
+    in_flight: int
+    last_seq: int  # the highest seq ever given out (0: none yet)
+    oldest_seq: int | None
+    oldest_ts_s: float | None
+    max_bytes: int
+    max_records: int
+    dropped: dict[str, int] = field(default_factory=dict)  # by reason (DROP_REASONS), since creation
+
+    @property
+    def dropped_total(self) -> int:
+        return sum(self.dropped.values())
+
+
+def _json_default(obj: Any) -> Any:
+    # numpy scalars and arrays without importing numpy here
+    if hasattr(obj, "tolist"):
+        return obj.tolist()
+    if hasattr(obj, "item"):
+        return obj.item()
+    raise TypeError(f"{type(obj).__name__} is not JSON-serialisable")
+
+
+def _finite_or_none(obj: Any) -> Any:
+    """JSON has no NaN or infinity: a non-finite number becomes null (no value)."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, Mapping):
+        return {k: _finite_or_none(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite_or_none(v) for v in obj]
+    return obj
+
+
+def encode_payload(payload: Mapping[str, Any] | bytes, seq: int, ts_s: float) -> bytes:
+    """The bytes that go on the wire: JSON objects get ``seq`` and ``ts`` first, bytes stay as given."""
+    if isinstance(payload, (bytes, bytearray, memoryview)):
+        return bytes(payload)
+    if not isinstance(payload, Mapping):
+        raise TypeError(f"payload must be a dict or bytes, not {type(payload).__name__}")
+    clash = [k for k in ("seq", "ts") if k in payload]
+    if clash:
+        raise ValueError(f"payload keys {clash} are reserved: the spool adds seq and ts")
+    doc = {"seq": seq, "ts": round(ts_s, 3), **payload}
+    try:
+        text = json.dumps(doc, separators=(",", ":"), allow_nan=False, default=_json_default)
+    except ValueError:
+        text = json.dumps(_finite_or_none(json.loads(json.dumps(doc, default=_json_default))),
+                          separators=(",", ":"), allow_nan=False)
+    return text.encode("utf-8")
+
+
+def check_topic(topic: str) -> None:
+    """Raise ValueError unless ``topic`` is a valid MQTT topic name for publishing."""
+    if not isinstance(topic, str) or not topic:
+        raise ValueError(f"topic {topic!r}: must be a non-empty string")
+    if "+" in topic or "#" in topic or "\0" in topic:
+        raise ValueError(f"topic {topic!r}: wildcards and NUL are not allowed in a published topic")
+    if len(topic.encode("utf-8")) > 65535:
+        raise ValueError(f"topic of {len(topic)} characters: MQTT allows at most 65535 bytes")
+
+
+class Spool:
+    """A durable, bounded publish queue in one sqlite file (see the module docstring).
+
+    Parameters: ``path`` of the sqlite file (created with its directory), ``max_bytes`` and
+    ``max_records`` (the bounds of the full policy), ``durability`` (``power_loss`` |
+    ``process_crash``), ``clock`` (POSIX seconds, for ``ts``).
+    """
+
+    def __init__(self, path: str | Path, max_bytes: int = 64 * 1024 * 1024, max_records: int = 200_000,
+                 *, durability: Literal["power_loss", "process_crash"] = "power_loss",
+                 clock: Callable[[], float] = time.time) -> None:
+        if max_bytes < 1024 or max_records < 2:
+            raise ValueError(f"spool bounds max_bytes={max_bytes}, max_records={max_records}: too small")
+        if durability not in _SYNCHRONOUS:
+            raise ValueError(f"durability = {durability!r}: must be one of {sorted(_SYNCHRONOUS)}")
+        self.path = Path(path)
+        self.max_bytes = int(max_bytes)
+        self.max_records = int(max_records)
+        self.durability = durability
+        self._clock = clock
+        self._lock = threading.RLock()
+        self._in_flight: dict[int, int] = {}  # seq -> mid
+        self._listeners: list[Callable[[int], None]] = []
+        self._lock_fd = self._take_file_lock()
+        try:
+            self._db = self._open()
+            self._load()
+        except sqlite3.Error as e:
+            self._release_file_lock()
+            raise StorageError(f"{self.path}: cannot open the spool: {e} "
+                               "(move the file aside to start an empty spool)") from e
+        except BaseException:
+            self._release_file_lock()
+            raise
+
+    @classmethod
+    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> "Spool":
+        """Open ``<state_dir>/spool.sqlite`` with a :class:`~rotorwatch.storage.settings.SpoolSettings`."""
+        if settings is not None:
+            kwargs.setdefault("max_bytes", settings.max_bytes)
+            kwargs.setdefault("max_records", settings.max_records)
+            kwargs.setdefault("durability", settings.durability)
+        return cls(Path(state_dir) / SPOOL_FILE, **kwargs)
+
+    # -- opening ------------------------------------------------------------------------------
+    def _take_file_lock(self) -> int:
+        try:
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            fd = os.open(f"{self.path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as e:
+            raise StorageError(f"{self.path}: cannot create the spool: {e.strerror}") from e
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(fd)
+            raise StorageError(f"{self.path}: the spool is in use by another rotorwatch process "
+                               "(one agent per state_dir)") from None
+        return fd
+
+    def _release_file_lock(self) -> None:
+        if self._lock_fd is not None:
+            os.close(self._lock_fd)  # closing releases the flock
+            self._lock_fd = None
+
+    def _open(self) -> sqlite3.Connection:
+        db = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False, timeout=10.0)
+        version = db.execute("PRAGMA user_version").fetchone()[0]
+        if version > SCHEMA_VERSION:
+            db.close()
+            raise StorageError(f"{self.path}: spool schema version {version} is newer than this "
+                               f"rotorwatch understands ({SCHEMA_VERSION})")
+        mode = db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+        if str(mode).lower() != "wal":
+            log.warning("spool journal mode is %s, not wal path=%s", mode, self.path)
+        db.execute(f"PRAGMA synchronous={_SYNCHRONOUS[self.durability]}")
+        db.execute("PRAGMA journal_size_limit=8388608")  # keep the WAL file at most 8 MiB after checkpoints
+        db.executescript(_SCHEMA)
+        db.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
+        return db
+
+    def _load(self) -> None:
+        db = self._db
+        meta = dict(db.execute("SELECT key, value FROM meta").fetchall())
+        max_row = db.execute("SELECT MAX(seq) FROM records").fetchone()[0] or 0
+        self._last_seq = max(int(meta.get("last_seq", 0)), int(max_row))
+        self._dropped = {r: int(meta.get(f"dropped.{r}", 0)) for r in DROP_REASONS}
+        count, total = db.execute("SELECT COUNT(*), COALESCE(SUM(size_bytes), 0) FROM records").fetchone()
+        self._count, self._bytes = int(count), int(total)
+        self._retained = dict(db.execute("SELECT topic, seq FROM retained").fetchall())
+
+    # -- life cycle ---------------------------------------------------------------------------
+    def close(self) -> None:
+        with self._lock:
+            if self._db is not None:
+                self._db.close()
+                self._db = None  # type: ignore[assignment]
+            self._release_file_lock()
+
+    def __enter__(self) -> "Spool":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @contextmanager
+    def _write(self, what: str) -> Iterator[sqlite3.Connection]:
+        """One write transaction; sqlite failures become a one-line StorageError."""
+        if self._db is None:
+            raise StorageError(f"{self.path}: spool is closed ({what})")
+        db = self._db
+        try:
+            db.execute("BEGIN IMMEDIATE")
+        except sqlite3.Error as e:
+            raise StorageError(f"{self.path}: spool {what} failed: {e}") from e
+        try:
+            yield db
+            db.execute("COMMIT")
+        except BaseException as e:
+            try:
+                db.execute("ROLLBACK")
+                self._load()  # the counters in memory may have moved with the rolled-back work
+            except sqlite3.Error:
+                pass
+            if isinstance(e, sqlite3.Error):
+                raise StorageError(f"{self.path}: spool {what} failed: {e}") from e
+            raise
+
+    def add_listener(self, callback: Callable[[int], None]) -> None:
+        """Call ``callback(seq)`` after each append (outside the spool's lock; keep it quick)."""
+        self._listeners.append(callback)
+
+    # -- writing ------------------------------------------------------------------------------
+    def append(self, kind: str, topic: str, payload: Mapping[str, Any] | bytes, retain: bool = False,
+               qos: int = 1) -> int:
+        """Store one record durably and return its seq.
+
+        ``kind`` is ``state``, ``metrics`` or ``event``; a dict ``payload`` is encoded as JSON with
+        ``seq`` and ``ts`` added (non-finite numbers become null). Raises ValueError for a bad kind,
+        topic, qos or payload, StorageError when the disk write fails.
+        """
+        if kind not in KINDS:
+            raise ValueError(f"record kind {kind!r}: must be one of {', '.join(KINDS)}")
+        check_topic(topic)
+        if qos not in (0, 1, 2):
+            raise ValueError(f"qos = {qos!r}: must be 0, 1 or 2")
+        with self._lock:
+            seq = self._last_seq + 1
+            ts_s = float(self._clock())
+            data = encode_payload(payload, seq, ts_s)
+            size = len(topic.encode("utf-8")) + len(data) + RECORD_OVERHEAD_BYTES
+            with self._write("append") as db:
+                if size > self.max_bytes:
+                    self._count_drop(db, "oversize", 1)
+                    log.warning("spool record too large, not stored seq=%d topic=%r size_bytes=%d max_bytes=%d",
+                                seq, topic, size, self.max_bytes)
+                else:
+                    if self._bytes + size > self.max_bytes or self._count + 1 > self.max_records:
+                        self._make_room(db, size)
+                    db.execute("INSERT INTO records (seq, ts_s, kind, topic, payload, qos, retain, size_bytes)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                               (seq, ts_s, kind, topic, data, qos, int(bool(retain)), size))
+                db.execute("INSERT INTO meta (key, value) VALUES ('last_seq', ?) "
+                           "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (seq,))
+            self._last_seq = seq
+            if size <= self.max_bytes:
+                self._count += 1
+                self._bytes += size
+        for callback in self._listeners:
+            callback(seq)
+        return seq
+
+    def _count_drop(self, db: sqlite3.Connection, reason: str, n: int) -> None:
+        if n <= 0:
+            return
+        self._dropped[reason] += n
+        db.execute("INSERT INTO meta (key, value) VALUES (?, ?) "
+                   "ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                   (f"dropped.{reason}", self._dropped[reason]))
+
+    def _delete(self, db: sqlite3.Connection, victims: list[tuple[int, int]]) -> None:
+        for i in range(0, len(victims), 500):
+            chunk = victims[i:i + 500]
+            db.execute(f"DELETE FROM records WHERE seq IN ({','.join('?' * len(chunk))})",
+                       [s for s, _ in chunk])
+        self._count -= len(victims)
+        self._bytes -= sum(b for _, b in victims)
+
+    def _make_room(self, db: sqlite3.Connection, incoming_bytes: int) -> None:
+        """Apply the full policy until the spool (with the incoming record) is under the low water mark."""
+        target_bytes = min(int(self.max_bytes * LOW_WATER), self.max_bytes - incoming_bytes)
+        target_rows = min(int(self.max_records * LOW_WATER), self.max_records - 1)
+
+        def enough() -> bool:
+            return self._bytes <= target_bytes and self._count <= target_rows
+
+        def take(candidates: Iterable[tuple[int, int]], reason: str) -> int:
+            victims = []
+            freed_bytes = freed_rows = 0
+            for seq, size in candidates:
+                if self._bytes - freed_bytes <= target_bytes and self._count - freed_rows <= target_rows:
+                    break
+                if seq in self._in_flight:
+                    continue
+                victims.append((seq, size))
+                freed_bytes += size
+                freed_rows += 1
+            self._delete(db, victims)
+            self._count_drop(db, reason, len(victims))
+            return len(victims)
+
+        take(db.execute(
+            "SELECT r.seq, r.size_bytes FROM records r WHERE r.kind = 'state' AND r.seq < "
+            "(SELECT MAX(n.seq) FROM records n WHERE n.kind = 'state' AND n.topic = r.topic) ORDER BY r.seq"
+        ).fetchall(), "state_superseded")
+        for _ in range(32):  # each pass removes about a quarter of the metrics; bounded
+            if enough():
+                break
+            metrics = [(s, b) for s, b in db.execute(
+                "SELECT seq, size_bytes FROM records WHERE kind = 'metrics' ORDER BY seq") if s not in self._in_flight]
+            if len(metrics) < 4:
+                break
+            if take(metrics[: len(metrics) // 2][1::2], "metrics_thinned") == 0:
+                break
+        if not enough():
+            take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'metrics' ORDER BY seq").fetchall(),
+                 "metrics_oldest")
+        if not enough():
+            n = take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'event' ORDER BY seq").fetchall(),
+                     "event_oldest")
+            if n:
+                log.warning("spool full of events: dropped the oldest n=%d dropped_events_total=%d "
+                            "(raise storage.spool bounds or restore the broker link)",
+                            n, self._dropped["event_oldest"])
+        if not enough():
+            n = take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'state' ORDER BY seq").fetchall(),
+                     "state_oldest")
+            if n:
+                log.warning("spool full of states: dropped the oldest n=%d", n)
+
+    # -- reading and acknowledging ---------------------------------------------------------------
+    def next_batch(self, limit: int, *, after_seq: int | None = None,
+                   through_seq: int | None = None) -> list[Record]:
+        """Up to ``limit`` stored records not in flight, oldest first, with ``after_seq < seq <= through_seq``."""
+        if limit <= 0:
+            return []
+        lo = -1 if after_seq is None else int(after_seq)
+        hi = self._last_seq if through_seq is None else int(through_seq)
+        with self._lock:
+            if self._db is None:
+                raise StorageError(f"{self.path}: spool is closed (next_batch)")
+            skip = sum(1 for s in self._in_flight if lo < s <= hi)
+            rows = self._db.execute(
+                "SELECT seq, ts_s, kind, topic, payload, qos, retain FROM records "
+                "WHERE seq > ? AND seq <= ? ORDER BY seq LIMIT ?", (lo, hi, limit + skip)).fetchall()
+            out = [Record(s, t, k, tp, bytes(p), q, bool(r)) for s, t, k, tp, p, q, r in rows
+                   if s not in self._in_flight]
+        return out[:limit]
+
+    def mark_in_flight(self, seq: int, mid: int) -> None:
+        """Note that record ``seq`` was handed to the client as message id ``mid`` (memory only)."""
+        with self._lock:
+            self._in_flight[seq] = mid
+
+    def in_flight(self) -> dict[int, int]:
+        """seq -> mid of the records in flight (a copy)."""
+        with self._lock:
+            return dict(self._in_flight)
+
+    def requeue_in_flight(self) -> int:
+        """Make every record in flight pending again (on disconnect); returns how many.
+
+        A restart needs no call: in-flight marks live in memory only, so every stored record is
+        pending when the spool is opened.
+        """
+        with self._lock:
+            n = len(self._in_flight)
+            self._in_flight.clear()
+        return n
+
+    def ack(self, seq: int) -> bool:
+        """Delete record ``seq`` (its PUBACK arrived). False if it was not stored (already acked or dropped)."""
+        return self.ack_many([seq]) == 1
+
+    def ack_many(self, seqs: Iterable[int]) -> int:
+        """Delete several acknowledged records in one transaction; returns how many were stored."""
+        seqs = list(seqs)
+        if not seqs:
+            return 0
+        with self._lock, self._write("ack") as db:
+            done = 0
+            for seq in seqs:
+                self._in_flight.pop(seq, None)
+                row = db.execute("DELETE FROM records WHERE seq = ? RETURNING topic, retain, size_bytes",
+                                 (seq,)).fetchone()
+                if row is None:
+                    continue
+                topic, retain, size = row
+                done += 1
+                self._count -= 1
+                self._bytes -= size
+                if retain and seq > self._retained.get(topic, 0):
+                    self._retained[topic] = seq
+                    db.execute("INSERT INTO retained (topic, seq) VALUES (?, ?) "
+                               "ON CONFLICT(topic) DO UPDATE SET seq = excluded.seq", (topic, seq))
+            return done
+
+    def reject(self, seq: int, reason: Literal["broker_rejected", "unsendable"]) -> bool:
+        """Delete a record that cannot be delivered, counting it under ``reason``."""
+        if reason not in ("broker_rejected", "unsendable"):
+            raise ValueError(f"reject reason {reason!r}: must be broker_rejected or unsendable")
+        with self._lock, self._write("reject") as db:
+            self._in_flight.pop(seq, None)
+            row = db.execute("DELETE FROM records WHERE seq = ? RETURNING size_bytes", (seq,)).fetchone()
+            if row is None:
+                return False
+            self._count -= 1
+            self._bytes -= row[0]
+            self._count_drop(db, reason, 1)
+            return True
+
+    def retained_seq(self, topic: str) -> int | None:
+        """The highest acknowledged seq of a retained record on ``topic`` (None: none yet)."""
+        with self._lock:
+            return self._retained.get(topic)
+
+    # -- figures ---------------------------------------------------------------------------------
+    @property
+    def last_seq(self) -> int:
+        """The highest seq given out so far (0 before the first append)."""
+        return self._last_seq
+
+    def stats(self) -> SpoolStats:
+        with self._lock:
+            if self._db is None:
+                raise StorageError(f"{self.path}: spool is closed (stats)")
+            oldest = self._db.execute("SELECT seq, ts_s FROM records ORDER BY seq LIMIT 1").fetchone()
+            return SpoolStats(
+                depth=self._count, stored_bytes=self._bytes, in_flight=len(self._in_flight),
+                last_seq=self._last_seq, oldest_seq=oldest[0] if oldest else None,
+                oldest_ts_s=oldest[1] if oldest else None, max_bytes=self.max_bytes,
+                max_records=self.max_records, dropped=dict(self._dropped),
+            )
+
+    def counts_by_kind(self) -> dict[str, int]:
+        """Stored records per kind (for tests and the status page)."""
+        with self._lock:
+            rows = self._db.execute("SELECT kind, COUNT(*) FROM records GROUP BY kind").fetchall()
+        return {k: 0 for k in KINDS} | dict(rows)
