@@ -139,6 +139,8 @@ class Source(abc.ABC):
 
     #: the ``acquisition.source`` name of this kind
     kind: str = "?"
+    #: what ``Chunk.t0_s`` counts: ``"wall"`` (POSIX seconds) or ``"scenario"`` (seconds of a scenario)
+    clock: str = "wall"
 
     def __init__(self, fs_hz: float, channels: int, block_frames: int) -> None:
         if not fs_hz > 0:
