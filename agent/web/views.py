@@ -1,0 +1,283 @@
+"""Pure functions that turn analysis records into what the status page draws.
+
+Nothing here holds state or locks: :mod:`rotorwatch.web.board` calls these once per published update
+(the costly part: downsampling spectra and waveforms, rounding numbers for JSON) and the HTTP server
+only serialises the prepared dictionaries.
+
+Downsampling keeps what an analyst looks for:
+
+- a spectrum is cut into buckets of consecutive lines and each bucket keeps its *largest* line (at that
+  line's frequency), so a narrow defect peak never disappears between two kept lines;
+- a waveform bucket keeps its minimum and its maximum, in time order, so impacts and clipping stay
+  visible (the usual "min/max envelope" decimation of oscilloscopes and plotting libraries).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Iterable, Sequence
+
+import numpy as np
+
+from rotorwatch import kinematics
+from rotorwatch.analysis.result import PointResult, Spectrum
+from rotorwatch.settings.models import Machine
+
+# ISO 20816-3 zone boundaries A/B, B/C, C/D for broadband housing velocity (mm/s RMS, 10-1000 Hz), by
+# machine group and support. Source: ISO 10816-3:2009 Tables A.1/A.2, believed unchanged in ISO 20816-3
+# Annex A (from memory, unconfirmed; see shared references.md section 1).
+ISO_BOUNDARIES_MM_S: dict[tuple[int, str], tuple[float, float, float]] = {
+    (1, "rigid"): (2.3, 4.5, 7.1),
+    (1, "flexible"): (3.5, 7.1, 11.0),
+    (2, "rigid"): (1.4, 2.8, 4.5),
+    (2, "flexible"): (2.3, 4.5, 7.1),
+}
+
+#: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
+MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3}
+
+QUANTITY_UNITS = {"acceleration": "m/s^2", "velocity": "mm/s", "envelope": "m/s^2"}
+
+
+def sig(x: float | None, digits: int = 4) -> float | None:
+    """``x`` rounded to ``digits`` significant digits for JSON; NaN and infinities become ``None``."""
+    if x is None:
+        return None
+    x = float(x)
+    if not math.isfinite(x):
+        return None
+    return float(f"{x:.{digits}g}")
+
+
+def sig_list(values: Iterable[float], digits: int = 4) -> list[float | None]:
+    return [sig(v, digits) for v in values]
+
+
+# ------------------------------------------------------------------------------------- downsampling
+def peak_downsample(freqs_hz: np.ndarray, amplitude: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
+    """Keep at most ``max_points`` lines: the largest line of each bucket of consecutive lines."""
+    freqs_hz = np.asarray(freqs_hz, dtype=float)
+    amplitude = np.asarray(amplitude, dtype=float)
+    n = amplitude.size
+    if n <= max_points:
+        return freqs_hz, amplitude
+    per = math.ceil(n / max_points)
+    n_buckets = math.ceil(n / per)
+    padded = np.full(n_buckets * per, -np.inf)
+    padded[:n] = np.where(np.isfinite(amplitude), amplitude, -np.inf)
+    idx = padded.reshape(n_buckets, per).argmax(axis=1) + np.arange(n_buckets) * per
+    idx = np.minimum(idx, n - 1)
+    return freqs_hz[idx], amplitude[idx]
+
+
+def minmax_downsample(values: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
+    """Indices and values of at most ``max_points`` samples: each bucket's min and max in time order."""
+    values = np.asarray(values, dtype=float)
+    n = values.size
+    if n <= max_points:
+        return np.arange(n), values
+    n_buckets = max(1, max_points // 2)
+    per = math.ceil(n / n_buckets)
+    n_buckets = math.ceil(n / per)
+    padded_hi = np.full(n_buckets * per, -np.inf)
+    padded_lo = np.full(n_buckets * per, np.inf)
+    padded_hi[:n] = values
+    padded_lo[:n] = values
+    base = np.arange(n_buckets) * per
+    i_max = padded_hi.reshape(n_buckets, per).argmax(axis=1) + base
+    i_min = padded_lo.reshape(n_buckets, per).argmin(axis=1) + base
+    idx = np.sort(np.stack([np.minimum(i_min, i_max), np.maximum(i_min, i_max)], axis=1).ravel())
+    return idx, values[idx]
+
+
+# --------------------------------------------------------------------------------------- spectra
+def spectrum_view(spectrum: Spectrum, max_points: int) -> dict:
+    f, a = peak_downsample(spectrum.freqs_hz, spectrum.amplitude, max_points)
+    n_lines = int(np.asarray(spectrum.amplitude).size)
+    df = float(spectrum.freqs_hz[1] - spectrum.freqs_hz[0]) if n_lines > 1 else None
+    return {
+        "unit": spectrum.unit,
+        "n_lines": n_lines,
+        "resolution_hz": sig(df),
+        "fmax_hz": sig(float(spectrum.freqs_hz[-1])) if n_lines else None,
+        "freqs_hz": sig_list(f, 6),
+        "amplitude": sig_list(a, 4),
+    }
+
+
+def waveform_view(samples_m_s2: np.ndarray, fs_hz: float, span_s: float, max_points: int) -> dict:
+    """The last ``span_s`` of a calibrated acceleration block, min/max-decimated."""
+    x = np.asarray(samples_m_s2, dtype=float).ravel()
+    n_keep = max(1, min(x.size, int(round(span_s * fs_hz))))
+    x = x[-n_keep:]
+    idx, vals = minmax_downsample(x, max_points)
+    return {
+        "unit": "m/s^2",
+        "fs_hz": sig(fs_hz, 6),
+        "span_s": sig(n_keep / fs_hz),
+        "n_samples": int(n_keep),
+        "t_ms": sig_list(idx * (1000.0 / fs_hz), 6),
+        "values": sig_list(vals, 4),
+    }
+
+
+# --------------------------------------------------------------------------------------- markers
+def _bearings_for_point(machine: Machine, point_id: str):
+    point = machine.point(point_id)
+    if point.bearing is not None:
+        return [machine.bearing(point.bearing)]
+    return list(machine.bearings)
+
+
+def defect_markers(machine: Machine, point_id: str, rpm: float | None) -> list[dict]:
+    """Kinematic frequencies and their harmonics at ``rpm`` for one point.
+
+    Families: ``shaft`` (1x, 2x, ...), ``blade_pass`` and the rolling-bearing defect rates of the
+    point's bearing (all bearings when the point names none). Frequencies come from
+    :func:`rotorwatch.kinematics.frequency_table`, which the analysis uses too.
+    """
+    if rpm is None or not math.isfinite(rpm) or rpm <= 0:
+        return []
+    table = kinematics.frequency_table(machine, rpm)
+    markers: list[dict] = []
+
+    def add(family: str, label: str, base_hz: float, bearing: str | None = None) -> None:
+        for k in range(1, MARKER_HARMONICS[family] + 1):
+            markers.append({
+                "family": family,
+                "bearing": bearing,
+                "k": k,
+                "label": (f"{k}x" if family == "shaft" else (label if k == 1 else f"{k}\u00d7{label}")),
+                "freq_hz": sig(k * base_hz, 6),
+            })
+
+    add("shaft", "1x", table["1x"])
+    if "blade_pass" in table:
+        add("blade_pass", "BP", table["blade_pass"])
+    for b in _bearings_for_point(machine, point_id):
+        for name in kinematics.DEFECTS:
+            add(name, name.upper(), table[f"{name}:{b.id}"], b.id)
+    return markers
+
+
+def band_regions(machine: Machine, point_id: str, result: PointResult, values: dict) -> list[dict]:
+    """Where each trended band lies at the current speed, on the spectrum it reads.
+
+    Besides the configured bands: the overall-velocity range (on the velocity spectrum) and the
+    envelope demodulation band (on the acceleration spectrum).
+    """
+    shaft_hz = result.rpm / 60.0 if result.rpm and math.isfinite(result.rpm) else None
+    regions = []
+    for band in machine.bands_for(point_id):
+        if shaft_hz is None and band.low_hz is None:
+            continue
+        parts = kinematics.band_edges_hz(machine, band, shaft_hz or 0.0)
+        status = values.get(band.name)
+        regions.append({
+            "name": band.name,
+            "kind": "band",
+            "quantity": band.quantity,
+            "parts_hz": [[sig(lo, 6), sig(hi, 6)] for lo, hi in parts],
+            "state": status.state if status is not None else None,
+        })
+    overall = values.get("overall")
+    regions.append({
+        "name": "overall",
+        "kind": "overall",
+        "quantity": "velocity",
+        "parts_hz": [[sig(machine.overall.low_hz, 6), sig(machine.overall.high_hz, 6)]],
+        "state": overall.state if overall is not None else None,
+    })
+    lo, hi = result.envelope_band_hz
+    regions.append({
+        "name": "envelope band",
+        "kind": "demodulation",
+        "quantity": "acceleration",
+        "parts_hz": [[sig(lo, 6), sig(hi, 6)]],
+        "state": None,
+    })
+    return regions
+
+
+# ------------------------------------------------------------------------------------------ values
+def value_quantity(machine: Machine, name: str) -> str:
+    if name == "overall":
+        return "velocity"
+    for band in machine.bands:
+        if band.name == name:
+            return band.quantity
+    return "other"
+
+
+def value_rows(machine: Machine, values: dict) -> list[dict]:
+    """One row per trended value: the value, its effective levels and its state."""
+    rows = []
+    order = ["overall"] + [b.name for b in machine.bands]
+    for name in sorted(values, key=lambda n: (order.index(n) if n in order else len(order), n)):
+        v = values[name]
+        rows.append({
+            "name": name,
+            "quantity": value_quantity(machine, name),
+            "value": sig(v.value),
+            "unit": v.unit,
+            "state": v.state,
+            "warning": sig(v.warning_level),
+            "alarm": sig(v.alarm_level),
+            "baseline": sig(v.baseline),
+            "latched": bool(v.latched),
+        })
+    return rows
+
+
+def iso_view(machine: Machine) -> dict:
+    return {
+        "group": machine.iso_group,
+        "support": machine.support,
+        "boundaries_mm_s": list(ISO_BOUNDARIES_MM_S[(machine.iso_group, machine.support)]),
+        "zones": ["A", "B", "C", "D"],
+    }
+
+
+def waveform_stats(result: PointResult) -> dict:
+    w = result.waveform
+    return {
+        "peak_m_s2": sig(w.peak_m_s2),
+        "rms_m_s2": sig(w.rms_m_s2),
+        "crest_factor": sig(w.crest_factor),
+        "kurtosis": sig(w.kurtosis),
+        "mean_m_s2": sig(w.mean_m_s2),
+    }
+
+
+def findings_view(result: PointResult) -> list[dict]:
+    return [
+        {
+            "name": f.name,
+            "bearing": f.bearing,
+            "frequency_hz": sig(f.frequency_hz, 6),
+            "found_hz": sig(f.found_hz, 6),
+            "strength": sig(f.strength),
+            "harmonics_found": f.harmonics_found,
+        }
+        for f in result.findings
+    ]
+
+
+def event_view(event) -> dict:
+    return {
+        "time_s": event.time_s,
+        "machine": event.machine_id,
+        "point": event.point_id,
+        "value": event.value_name,
+        "from": event.old_state,
+        "to": event.new_state,
+        "reading": sig(event.value),
+        "unit": event.unit,
+        "level": sig(event.level),
+        "level_kind": event.level_kind,
+        "reason": event.reason,
+    }
+
+
+def columns(samples: Sequence[dict], key: str) -> list:
+    return [s.get(key) for s in samples]
