@@ -1,0 +1,322 @@
+"""The MQTT link: our topic tree on a broker, through paho-mqtt 2.x (callback API version 2).
+
+The connection is made in the background (``connect_async`` + ``loop_start``), so a broker that is
+away never blocks start-up; paho reconnects with back-off (``reconnect_delay_set``). A refused login
+(``reason_code.is_failure`` on CONNACK) is logged once, clearly, and retried with the same back-off.
+The last will marks the agent ``offline`` (retained) if the process dies or the link drops.
+
+Delivery: QoS 1 messages published while offline wait in paho's in-memory queue (bounded by
+``max_queued_messages``) and go out after reconnecting; ``publish()`` then returns ``MQTT_ERR_NO_CONN``,
+which is not a failure. ``MQTTMessageInfo.wait_for_publish()`` raises for such messages, so delivery is
+tracked through ``on_publish`` message ids instead (:meth:`MqttLink.flush`). Retained messages are
+also cached here and re-sent after every reconnect, so a broker restarted without persistence gets
+the current states back.
+
+Thread rules: ``publish`` may be called from any thread; the callbacks run on paho's network thread
+and only count, log, route speed readings and queue commands (``on_command``), never block.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import ssl
+import threading
+import time
+from pathlib import Path
+from typing import Callable
+
+import paho.mqtt.client as mqtt
+from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
+
+from rotorwatch.errors import RotorwatchError
+from rotorwatch.service.logs import RepeatLimiter, fields
+from rotorwatch.service.payloads import availability_payload
+from rotorwatch.service.selfstats import SelfStats
+from rotorwatch.settings.service import MqttSettings
+
+log = logging.getLogger(__name__)
+
+
+class Topics:
+    """Our topic tree under ``<prefix>/<agent>`` (deploy/mqtt-topics.md)."""
+
+    def __init__(self, prefix: str, agent_id: str):
+        self.root = f"{prefix}/{agent_id}"
+
+    @property
+    def availability(self) -> str:
+        return f"{self.root}/availability"
+
+    @property
+    def info(self) -> str:
+        return f"{self.root}/info"
+
+    @property
+    def events(self) -> str:
+        return f"{self.root}/events"
+
+    @property
+    def command(self) -> str:
+        return f"{self.root}/command"
+
+    @property
+    def command_result(self) -> str:
+        return f"{self.root}/command/result"
+
+    def machine_state(self, machine_id: str) -> str:
+        return f"{self.root}/machine/{machine_id}/state"
+
+    def point_state(self, machine_id: str, point_id: str) -> str:
+        return f"{self.root}/machine/{machine_id}/point/{point_id}/state"
+
+    def point_metrics(self, machine_id: str, point_id: str) -> str:
+        return f"{self.root}/machine/{machine_id}/point/{point_id}/metrics"
+
+
+def read_password(settings: MqttSettings, base_dir: Path) -> str | None:
+    """The broker password from ``password_file`` (first line) or ``password_env``; never logged."""
+    if settings.password_file is not None:
+        p = Path(settings.password_file)
+        p = p if p.is_absolute() else base_dir / p
+        try:
+            text = p.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            raise RotorwatchError(f"mqtt.password_file = {str(p)!r}: no such file") from None
+        except (OSError, UnicodeDecodeError) as e:
+            raise RotorwatchError(f"mqtt.password_file = {str(p)!r}: cannot read: {getattr(e, 'strerror', None) or e}") from None
+        lines = text.splitlines()
+        if not lines or not lines[0]:
+            raise RotorwatchError(f"mqtt.password_file = {str(p)!r}: the first line (the password) is empty")
+        return lines[0]
+    if settings.password_env is not None:
+        value = os.environ.get(settings.password_env)
+        if not value:
+            raise RotorwatchError(f"mqtt.password_env = {settings.password_env!r}: the environment variable is not set or empty")
+        return value
+    return None
+
+
+class MqttLink:
+    def __init__(self, settings: MqttSettings, agent_id: str, base_dir: Path, stats: SelfStats,
+                 on_command: Callable[[bytes], None] | None = None,
+                 on_message: Callable[[str, bytes], None] | None = None,
+                 extra_topics: list[str] | None = None):
+        self.settings = settings
+        self.agent_id = agent_id
+        self.base_dir = base_dir
+        self.stats = stats
+        self.topics = Topics(settings.topic_prefix, agent_id)
+        self._on_command = on_command
+        self._on_message = on_message
+        self._extra_topics = list(extra_topics or [])
+        self._lock = threading.Lock()
+        self._retained: dict[str, bytes] = {}
+        self._pending: set[int] = set()
+        self._early_acks: set[int] = set()
+        self._limiter = RepeatLimiter(300.0)
+        self._connected = threading.Event()
+        self._ever_connected = False
+        self._stopping = False
+        self._client: mqtt.Client | None = None
+        self.last_failure: str | None = None
+
+    # -- life cycle ------------------------------------------------------------------------------
+    def _path(self, name: str | None) -> str | None:
+        if name is None:
+            return None
+        p = Path(name)
+        return str(p if p.is_absolute() else self.base_dir / p)
+
+    def build_client(self) -> mqtt.Client:
+        s = self.settings
+        protocol = mqtt.MQTTv5 if s.protocol == "5" else mqtt.MQTTv311
+        client_id = s.client_id or f"rotorwatch-{self.agent_id}"
+        kwargs = {} if protocol == mqtt.MQTTv5 else {"clean_session": True}
+        c = mqtt.Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol, **kwargs)
+        if s.tls:
+            ca, cert, key = self._path(s.ca_file), self._path(s.client_cert_file), self._path(s.client_key_file)
+            for label, path in (("ca_file", ca), ("client_cert_file", cert), ("client_key_file", key)):
+                if path is not None and not Path(path).is_file():
+                    raise RotorwatchError(f"mqtt.{label} = {path!r}: no such file")
+            try:
+                c.tls_set(ca_certs=ca, certfile=cert, keyfile=key, cert_reqs=ssl.CERT_REQUIRED)
+            except (ssl.SSLError, OSError, ValueError) as e:
+                raise RotorwatchError(f"mqtt: cannot set up TLS with ca_file={ca!r} client_cert_file={cert!r}: {e}") from None
+        if s.username is not None:
+            c.username_pw_set(s.username, read_password(s, self.base_dir))
+        c.will_set(self.topics.availability, availability_payload(False), qos=1, retain=True)
+        c.reconnect_delay_set(min_delay=s.reconnect_min_s, max_delay=s.reconnect_max_s)  # type: ignore[arg-type]
+        c.max_queued_messages_set(s.max_queued_messages)
+        c.on_connect = self._handle_connect
+        c.on_connect_fail = self._handle_connect_fail
+        c.on_disconnect = self._handle_disconnect
+        c.on_publish = self._handle_publish
+        c.on_message = self._handle_message
+        return c
+
+    def start(self) -> None:
+        """Set up the client (file and TLS problems raise one-line errors) and connect in the background."""
+        self._client = self.build_client()
+        s = self.settings
+        clean = {"clean_start": True} if s.protocol == "5" else {}
+        self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
+        self._client.loop_start()
+        log.info("mqtt connecting in the background", extra=fields(
+            host=s.host, port=s.port, tls=s.tls, user=s.username or "-", root=self.topics.root))
+
+    @property
+    def connected(self) -> bool:
+        return self._connected.is_set()
+
+    def wait_connected(self, timeout_s: float) -> bool:
+        return self._connected.wait(timeout_s)
+
+    def set_extra_topics(self, topics: list[str]) -> None:
+        """Change the speed topics subscribed (after a reload)."""
+        c = self._client
+        with self._lock:
+            old, self._extra_topics = self._extra_topics, list(topics)
+        if c is None or not self.connected:
+            return
+        gone = [t for t in old if t not in topics]
+        new = [t for t in topics if t not in old]
+        if gone:
+            c.unsubscribe(gone)
+        if new:
+            c.subscribe([(t, self.settings.qos) for t in new])
+
+    def stop(self, flush_timeout_s: float = 3.0) -> None:
+        """Publish retained ``offline``, wait (bounded) for outstanding messages, disconnect."""
+        c = self._client
+        if c is None:
+            return
+        self._stopping = True
+        if self.connected:
+            self.publish(self.topics.availability, availability_payload(False), retain=True)
+            self.flush(flush_timeout_s)
+        try:
+            c.disconnect()
+        finally:
+            c.loop_stop()
+            self._client = None
+            self._connected.clear()
+            self.stats.set("mqtt_connected", 0)
+        log.info("mqtt disconnected", extra=fields(host=self.settings.host, port=self.settings.port))
+
+    # -- publishing ------------------------------------------------------------------------------
+    def publish(self, topic: str, payload: bytes, retain: bool = False) -> bool:
+        """Hand one message to paho; False (and a counted failure) if it was refused."""
+        c = self._client
+        if retain:
+            with self._lock:
+                if payload:
+                    self._retained[topic] = payload
+                else:  # an empty retained message clears the topic
+                    self._retained.pop(topic, None)
+        if c is None:
+            self.stats.inc("mqtt_publish_failures")
+            return False
+        qos = self.settings.qos
+        info = c.publish(topic, payload, qos=qos, retain=retain)
+        self.stats.inc("mqtt_messages_published")
+        rc = info.rc
+        queued = rc == MQTTErrorCode.MQTT_ERR_SUCCESS or (rc == MQTTErrorCode.MQTT_ERR_NO_CONN and qos > 0)
+        if not queued:
+            self.stats.inc("mqtt_publish_failures")
+            ok, held = self._limiter.allow(f"publish:{int(rc)}")
+            if ok:
+                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc), repeats=held))
+            return False
+        with self._lock:
+            if info.mid in self._early_acks:
+                self._early_acks.discard(info.mid)
+            else:
+                self._pending.add(info.mid)
+        return True
+
+    def flush(self, timeout_s: float) -> bool:
+        """Wait until every message handed to paho was acknowledged (QoS 1) or sent (QoS 0)."""
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            with self._lock:
+                if not self._pending:
+                    return True
+            time.sleep(0.01)
+        with self._lock:
+            return not self._pending
+
+    @property
+    def pending(self) -> int:
+        with self._lock:
+            return len(self._pending)
+
+    # -- callbacks (paho network thread) ---------------------------------------------------------
+    def _handle_connect(self, client, userdata, flags, reason_code, properties) -> None:
+        if reason_code.is_failure:
+            self.stats.inc("mqtt_connect_failures")
+            self.last_failure = str(reason_code)
+            ok, held = self._limiter.allow(f"refused:{reason_code}")
+            if ok:
+                hint = " (check mqtt.username and the password)" if "authori" in str(reason_code).lower() \
+                    or "password" in str(reason_code).lower() else ""
+                log.error(f"mqtt broker refused the connection: {reason_code}{hint}; retrying with back-off",
+                          extra=fields(host=self.settings.host, port=self.settings.port,
+                                       user=self.settings.username or "-", repeats=held))
+            return
+        self._limiter.reset("connect-fail")
+        first = not self._ever_connected
+        if not first:
+            self.stats.inc("mqtt_reconnects")
+        self._ever_connected = True
+        self.last_failure = None
+        self._connected.set()
+        self.stats.set("mqtt_connected", 1)
+        log.info("mqtt connected" if first else "mqtt reconnected",
+                 extra=fields(host=self.settings.host, port=self.settings.port))
+        with self._lock:
+            extra = list(self._extra_topics)
+            retained = dict(self._retained)
+        client.subscribe([(self.topics.command, self.settings.qos)] + [(t, self.settings.qos) for t in extra])
+        if not self._stopping:
+            self.publish(self.topics.availability, availability_payload(True), retain=True)
+            for topic, payload in retained.items():
+                if topic != self.topics.availability:
+                    self.publish(topic, payload, retain=True)
+
+    def _handle_connect_fail(self, client, userdata) -> None:
+        self.stats.inc("mqtt_connect_failures")
+        ok, held = self._limiter.allow("connect-fail")
+        if ok:
+            log.warning("mqtt broker not reachable; retrying with back-off",
+                        extra=fields(host=self.settings.host, port=self.settings.port, repeats=held))
+
+    def _handle_disconnect(self, client, userdata, disconnect_flags, reason_code, properties) -> None:
+        was = self._connected.is_set()
+        self._connected.clear()
+        self.stats.set("mqtt_connected", 0)
+        if was and not self._stopping:
+            log.warning("mqtt connection lost; reconnecting with back-off",
+                        extra=fields(host=self.settings.host, reason=str(reason_code)))
+
+    def _handle_publish(self, client, userdata, mid, reason_code, properties) -> None:
+        with self._lock:
+            if mid in self._pending:
+                self._pending.discard(mid)
+            else:
+                self._early_acks.add(mid)
+                if len(self._early_acks) > 10000:  # never grows without bound
+                    self._early_acks.clear()
+
+    def _handle_message(self, client, userdata, msg) -> None:
+        try:
+            if msg.topic == self.topics.command:
+                if msg.retain:  # a stale retained command must not be replayed at every start
+                    log.warning("ignored a retained command", extra=fields(topic=msg.topic))
+                    return
+                if self._on_command is not None:
+                    self._on_command(bytes(msg.payload))
+            elif self._on_message is not None:
+                self._on_message(msg.topic, bytes(msg.payload))
+        except Exception:  # a callback must never kill paho's network thread
+            log.exception("error handling an incoming mqtt message", extra=fields(topic=msg.topic))

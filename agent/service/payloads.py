@@ -1,0 +1,222 @@
+"""JSON payloads the daemon publishes over MQTT, built from :class:`MachineUpdate` records.
+
+Pure functions, no I/O: the MQTT publisher turns them into bytes with :func:`encode`. The topic tree
+and every payload are documented with examples in deploy/mqtt-topics.md; change both together.
+
+Units are in the key names (``_mm_s``, ``_m_s2``, ``_hz``) or, for band values whose unit depends on
+the band's quantity, in a ``unit`` field beside the value. Non-finite numbers become ``null``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from datetime import datetime, timezone
+from typing import Any
+
+from rotorwatch import __version__
+from rotorwatch.alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
+from rotorwatch.settings.models import Machine
+
+#: Carried in every state payload so no dashboard mistakes the agent for a trip system.
+ADVISORY = ("condition monitoring only: not a protection or trip system; act on alarms through "
+            "your site's procedures")
+
+#: Unit of each band quantity, as the analysis reports band values (agent/analysis/result.py).
+QUANTITY_UNITS = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
+
+SCHEMA = 1  # bumped when a payload changes incompatibly
+
+
+def num(x: Any, digits: int = 6) -> float | None:
+    """A finite float rounded to ``digits`` significant digits, else None."""
+    if x is None:
+        return None
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    if not math.isfinite(v):
+        return None
+    if v == 0.0:
+        return 0.0
+    return float(f"{v:.{digits}g}")
+
+
+def iso_time(time_s: float) -> str:
+    """POSIX seconds -> ``2026-03-01T12:00:05.250Z`` (UTC, milliseconds)."""
+    dt = datetime.fromtimestamp(time_s, tz=timezone.utc)
+    return dt.strftime("%Y-%m-%dT%H:%M:%S.") + f"{dt.microsecond // 1000:03d}Z"
+
+
+def encode(payload: dict[str, Any]) -> bytes:
+    return json.dumps(payload, allow_nan=False, separators=(",", ":"), ensure_ascii=False).encode("utf-8")
+
+
+def band_quantities(machine: Machine | None) -> dict[str, str]:
+    out = {"overall": "velocity"}
+    if machine is not None:
+        out.update({b.name: b.quantity for b in machine.bands})
+    return out
+
+
+def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]:
+    out: dict[str, Any] = {
+        "value": num(v.value),
+        "unit": v.unit,
+        "state": v.state,
+        "warning_level": num(v.warning_level),
+        "alarm_level": num(v.alarm_level),
+        "baseline": num(v.baseline),
+        "latched": bool(v.latched),
+    }
+    if quantity is not None:
+        out["quantity"] = quantity
+    return out
+
+
+def availability_payload(online: bool) -> bytes:
+    return b"online" if online else b"offline"
+
+
+def machine_state_payload(update: MachineUpdate, agent_id: str, machine: Machine | None = None) -> dict[str, Any]:
+    rpm = num(update.rpm)
+    return {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "machine": update.machine_id,
+        "name": machine.name if machine is not None else "",
+        "state": update.state,
+        "reason": update.reason,
+        "rpm": rpm,
+        "shaft_speed_hz": num(rpm / 60.0) if rpm is not None else None,
+        "rpm_source": update.rpm_source,
+        "time": iso_time(update.time_s),
+        "time_s": num(update.time_s, 15),
+        "points": {pid: p.state for pid, p in update.points.items()},
+        "notice": ADVISORY,
+    }
+
+
+def point_state_payload(update: MachineUpdate, point: PointUpdate, agent_id: str,
+                        machine: Machine | None = None) -> dict[str, Any]:
+    quantities = band_quantities(machine)
+    result = point.result
+    overall = point.values.get("overall")
+    out: dict[str, Any] = {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "machine": update.machine_id,
+        "point": point.point_id,
+        "state": point.state,
+        "reason": point.reason,
+        "time": iso_time(update.time_s),
+        "time_s": num(update.time_s, 15),
+        "sensor": {"ok": point.health.ok, "fault": point.health.fault, "reason": point.health.reason},
+        "overall": {
+            "velocity_mm_s": num(result.overall_velocity_mm_s) if result is not None else None,
+            "iso_zone": result.iso_zone if result is not None else None,
+            "state": overall.state if overall is not None else None,
+            "warning_level_mm_s": num(overall.warning_level) if overall is not None else None,
+            "alarm_level_mm_s": num(overall.alarm_level) if overall is not None else None,
+            "baseline_mm_s": num(overall.baseline) if overall is not None else None,
+        },
+        "values": {name: value_payload(v, quantities.get(name)) for name, v in point.values.items()},
+        "notice": ADVISORY,
+    }
+    return out
+
+
+def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: str,
+                          machine: Machine | None = None) -> dict[str, Any] | None:
+    """The periodic measurement record of one point, or None when the point has no result."""
+    r = point.result
+    if r is None:
+        return None
+    quantities = band_quantities(machine)
+    w = r.waveform
+    return {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "machine": update.machine_id,
+        "point": point.point_id,
+        "time": iso_time(r.time_s),
+        "time_s": num(r.time_s, 15),
+        "rpm": num(r.rpm),
+        "rpm_source": r.rpm_source,
+        "overall_velocity_mm_s": num(r.overall_velocity_mm_s),
+        "iso_zone": r.iso_zone,
+        "bands": {
+            name: {"value": num(v), "unit": QUANTITY_UNITS.get(quantities.get(name, ""), ""),
+                   "quantity": quantities.get(name)}
+            for name, v in r.bands.items()
+        },
+        "waveform": {
+            "rms_m_s2": num(w.rms_m_s2),
+            "peak_m_s2": num(w.peak_m_s2),
+            "crest_factor": num(w.crest_factor),
+            "kurtosis": num(w.kurtosis),
+            "mean_m_s2": num(w.mean_m_s2),
+        },
+        "envelope_band_hz": [num(r.envelope_band_hz[0]), num(r.envelope_band_hz[1])],
+        "findings": [
+            {"name": f.name, "bearing": f.bearing, "frequency_hz": num(f.frequency_hz),
+             "found_hz": num(f.found_hz), "strength": num(f.strength), "harmonics_found": f.harmonics_found}
+            for f in r.findings
+        ],
+        "sample_rate_hz": num(r.fs_hz),
+        "n_samples": int(r.n_samples),
+    }
+
+
+def event_payload(event: AlarmEvent, agent_id: str) -> dict[str, Any]:
+    return {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "kind": "transition",
+        "time": iso_time(event.time_s),
+        "time_s": num(event.time_s, 15),
+        "machine": event.machine_id,
+        "point": event.point_id,
+        "value_name": event.value_name,
+        "old_state": event.old_state,
+        "new_state": event.new_state,
+        "value": num(event.value),
+        "unit": event.unit,
+        "level": num(event.level),
+        "level_kind": event.level_kind,
+        "reason": event.reason,
+    }
+
+
+def agent_event_payload(kind: str, message: str, agent_id: str, time_s: float, **detail: Any) -> dict[str, Any]:
+    """An event about the agent itself (a rejected command, a rejected reload, a stalled source)."""
+    return {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "kind": kind,
+        "time": iso_time(time_s),
+        "time_s": num(time_s, 15),
+        "message": message,
+        **detail,
+    }
+
+
+def command_result_payload(agent_id: str, time_s: float, command: str | None, ok: bool,
+                           message: str, request_id: Any = None, **detail: Any) -> dict[str, Any]:
+    return {
+        "schema": SCHEMA,
+        "agent": agent_id,
+        "id": request_id,
+        "command": command,
+        "ok": ok,
+        "message": message,
+        "time": iso_time(time_s),
+        **detail,
+    }
+
+
+def hello_payload(agent_id: str, site_name: str, machines: list[str]) -> dict[str, Any]:
+    """Retained description of the agent (``<prefix>/<agent>/info``)."""
+    return {"schema": SCHEMA, "agent": agent_id, "site": site_name, "version": __version__,
+            "machines": machines, "notice": ADVISORY}

@@ -1,0 +1,88 @@
+"""When and what the daemon publishes over MQTT, per machine update.
+
+- machine and point **state** (retained): whenever a state, its reason or the ISO zone changes, and
+  refreshed every ``metrics_interval_s`` (wall clock) so a retained copy never grows old;
+- point **metrics** (not retained): every ``metrics_interval_s``;
+- **events** (not retained): every transition in the update, as it happens.
+
+Called from the analysis loop only. Payloads come from :mod:`rotorwatch.service.payloads`.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Any, Callable
+
+from rotorwatch.alarms.records import AlarmEvent, MachineUpdate
+from rotorwatch.service import payloads
+from rotorwatch.service.mqtt import MqttLink
+from rotorwatch.settings.models import Config
+
+
+class UpdatePublisher:
+    def __init__(self, link: MqttLink, config: Config, clock: Callable[[], float] = time.monotonic):
+        self.link = link
+        self.topics = link.topics
+        self._clock = clock
+        self._signature: dict[str, tuple] = {}  # topic -> what the last state publish said
+        self._last_refresh: dict[str, float] = {}  # machine -> monotonic time of the last refresh
+        self.set_config(config)
+
+    def set_config(self, config: Config) -> None:
+        self.config = config
+        self.agent_id = config.site.agent_id
+        self.interval_s = self.link.settings.metrics_interval_s
+        self._machines = {m.id: m for m in config.machines}
+
+    def publish_info(self) -> None:
+        info = payloads.hello_payload(self.agent_id, self.config.site.name, [m.id for m in self.config.machines])
+        self.link.publish(self.topics.info, payloads.encode(info), retain=True)
+
+    def publish_update(self, update: MachineUpdate, metrics: bool = True) -> None:
+        machine = self._machines.get(update.machine_id)
+        now = self._clock()
+        last = self._last_refresh.get(update.machine_id)
+        refresh = last is None or now - last >= self.interval_s
+        if refresh:
+            self._last_refresh[update.machine_id] = now
+
+        m_topic = self.topics.machine_state(update.machine_id)
+        m_sig = (update.state, update.reason, update.rpm_source)
+        if refresh or self._signature.get(m_topic) != m_sig:
+            self._signature[m_topic] = m_sig
+            body = payloads.machine_state_payload(update, self.agent_id, machine)
+            self.link.publish(m_topic, payloads.encode(body), retain=True)
+
+        for pid, pu in update.points.items():
+            p_topic = self.topics.point_state(update.machine_id, pid)
+            zone = pu.result.iso_zone if pu.result is not None else None
+            p_sig = (pu.state, pu.reason, zone, tuple((n, v.state, v.latched) for n, v in sorted(pu.values.items())))
+            if refresh or self._signature.get(p_topic) != p_sig:
+                self._signature[p_topic] = p_sig
+                body = payloads.point_state_payload(update, pu, self.agent_id, machine)
+                self.link.publish(p_topic, payloads.encode(body), retain=True)
+            if refresh and metrics:
+                mbody = payloads.point_metrics_payload(update, pu, self.agent_id, machine)
+                if mbody is not None:
+                    self.link.publish(self.topics.point_metrics(update.machine_id, pid), payloads.encode(mbody))
+
+        self.publish_events(update.events)
+
+    def publish_events(self, events: list[AlarmEvent]) -> None:
+        for e in events:
+            self.link.publish(self.topics.events, payloads.encode(payloads.event_payload(e, self.agent_id)))
+
+    def publish_agent_event(self, kind: str, message: str, time_s: float, **detail: Any) -> None:
+        body = payloads.agent_event_payload(kind, message, self.agent_id, time_s, **detail)
+        self.link.publish(self.topics.events, payloads.encode(body))
+
+    def publish_command_result(self, body: dict[str, Any]) -> None:
+        self.link.publish(self.topics.command_result, payloads.encode(body))
+
+    def forget(self, machine_id: str) -> None:
+        """A machine removed by a reload: clear its retained topics so dashboards do not show ghosts."""
+        prefix = f"{self.topics.root}/machine/{machine_id}/"
+        for topic in [t for t in self._signature if t.startswith(prefix)]:
+            self._signature.pop(topic, None)
+            self.link.publish(topic, b"", retain=True)
+        self._last_refresh.pop(machine_id, None)
