@@ -181,7 +181,8 @@ class SoundcardSource(Source):
                                     samplerate=self.fs_hz)
         except (sd.PortAudioError, ValueError) as exc:
             raise SourceUnavailable(
-                f"{where}: cannot capture {self.channels} channel(s) at {self.fs_hz:g} Hz float32: {exc}"
+                f"{where}: cannot capture {self.channels} channel(s) at {self.fs_hz:g} Hz float32: {exc} "
+                "(is it connected and not in use by another program?)"
             ) from None
         while not self._queue.empty():
             self._queue.get_nowait()
