@@ -11,7 +11,7 @@ order they are tried (the first that fires is reported):
    the amplitude is limited, spectra and RMS read low and smeared;
 5. ``disconnected``: the AC RMS sits at the interface noise floor (below ``open_rms_v``, 0.1 mV): no
    sensor, an open cable, or an unpowered IEPE supply;
-6. ``bias_shift``: the mean of an AC-coupled input sits far from zero (``bias_fraction`` of the input
+6. ``bias_shift``: the mean of an AC-coupled input sits far from zero (``bias_fraction``, 5 %, of the input
    range): a cable or connector fault, a failing sensor amplifier.
 
 The thresholds are common practice for accelerometers on sound and DAQ interfaces, not taken from a
@@ -34,7 +34,7 @@ class SensorLimits:
     open_rms_v: float = 1e-4  # 0.1 mV RMS: interface noise floor, no sensor signal above it
     clip_margin: float = 0.01  # a sample within 1 % of the input range counts as clipped
     clip_fraction: float = 0.001  # more than 0.1 % clipped samples is clipping
-    bias_fraction: float = 0.1  # |mean| above 10 % of the input range is a bias shift
+    bias_fraction: float = 0.05  # |mean| above 5 % of the input range is a bias shift
     min_zero_run: int = 32  # this many exact zeros in a row is a dropout
 
 

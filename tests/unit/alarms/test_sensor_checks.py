@@ -1,7 +1,7 @@
 """Sensor checks on raw volts blocks: each fault found, a good signal passes.
 
 The thresholds are common practice (no single source): 0.1 mV RMS noise floor, 1 % clip margin with
-0.1 % of samples, 10 % of the input range for a bias shift, 32 exact zeros in a row for a dropout.
+0.1 % of samples, 5 % of the input range for a bias shift, 32 exact zeros in a row for a dropout.
 """
 
 from __future__ import annotations

@@ -1,0 +1,210 @@
+"""``rotorwatch replay``: a scenario or a recording through the alarm logic, with a timeline and checks.
+
+    rotorwatch replay --scenario config/scenarios/demo-outer-race.toml
+    rotorwatch replay --config config/university-rig.toml --input rec.wav --unit g --learning-updates 5
+    rotorwatch replay --scenario S --expect "machine never alarm" --format jsonl
+
+With only ``--scenario`` the machine configuration is the one the scenario names; ``--config`` replaces
+it (same machine id). Expectations come from the scenario's ``expect`` list and every ``--expect``; the
+command exits 1 when one fails. Baselines go to a fresh temporary directory unless ``--state-dir`` is
+given, so a replay never mixes with a live daemon's baselines.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import json
+import sys
+import tempfile
+import time
+from datetime import datetime, timezone
+from pathlib import Path
+
+from rotorwatch.errors import ConfigError, ExpectationFailed, InputError
+from rotorwatch.expectations import evaluate, parse
+from rotorwatch.replay import (UNITS, ReplayLog, event_record, open_recording, recording_frames, scenario_frames,
+                               timeline, update_record)
+from rotorwatch.settings.models import AlarmPolicy
+
+DEFAULT_START = "2025-01-01T00:00:00Z"
+
+
+def add_parser(p: argparse.ArgumentParser) -> None:
+    src = p.add_mutually_exclusive_group(required=True)
+    src.add_argument("--scenario", metavar="FILE", help="scenario TOML file (config/scenarios/...)")
+    src.add_argument("--input", metavar="FILE", help="recording to replay: .wav or .npz (needs --config)")
+    p.add_argument("--config", metavar="FILE", help="machine configuration (default with --scenario: the scenario's)")
+    p.add_argument("--machine", metavar="ID", help="machine id, when the configuration has several")
+    p.add_argument("--unit", choices=UNITS, default="volts",
+                   help="what the recording's samples are (default volts; integer WAV: full scale = input_range_v)")
+    p.add_argument("--rpm", type=float, metavar="R/MIN", help="recording: the speed, as a tach or drive would report it")
+    p.add_argument("--expect", action="append", default=[], metavar="TEXT",
+                   help='an expectation, e.g. "de-outer-race on de-h reaches alarm between day 10 and day 20" (repeatable)')
+    p.add_argument("--format", choices=("human", "jsonl"), default="human",
+                   help="human timeline (default) or one JSON object per line: every update and event")
+    p.add_argument("--state-dir", metavar="DIR", help="where baselines go (default: a fresh temporary directory)")
+    p.add_argument("--start", default=DEFAULT_START, metavar="DATE",
+                   help=f"date and time (UTC) the replay starts at, ISO 8601 (default {DEFAULT_START})")
+    p.add_argument("--learning-updates", type=int, metavar="N",
+                   help="learn baselines from the first N updates instead of the configured learning period")
+
+
+def _start_unix_s(text: str) -> float:
+    try:
+        dt = datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError:
+        raise InputError(f"--start = {text!r}: not an ISO 8601 date, e.g. 2025-01-01 or 2025-01-01T06:00:00Z") from None
+    if dt.tzinfo is None:
+        dt = dt.replace(tzinfo=timezone.utc)
+    return dt.timestamp()
+
+
+def _pick_machine(config, machine_id: str | None, source: str):
+    ids = [m.id for m in config.machines]
+    if machine_id is None:
+        if len(ids) > 1:
+            raise ConfigError([f"{source}: has {len(ids)} machines; choose one with --machine: {', '.join(ids)}"])
+        return config.machines[0]
+    if machine_id not in ids:
+        raise ConfigError([f"{source}: --machine = {machine_id!r}: unknown machine, known: {', '.join(ids)}"])
+    return config.machine(machine_id)
+
+
+def _open_scenario(args):
+    from rotorwatch.settings.loading import load_config
+    from rotorwatch.simulators.render import ScenarioRenderer
+    from rotorwatch.simulators.scenario import cross_check, load_scenario
+
+    scenario = load_scenario(args.scenario)
+    if args.config:
+        config = load_config(args.config)
+        machine = _pick_machine(config, args.machine or scenario.machine.id, args.config)
+        problems = cross_check(scenario.spec, machine, config, str(scenario.path))
+        if problems:
+            raise ConfigError(problems)
+        scenario = dataclasses.replace(scenario, config=config, config_path=Path(args.config), machine=machine)
+    elif args.machine and args.machine != scenario.machine.id:
+        raise ConfigError([f"{args.scenario}: --machine = {args.machine!r}: the scenario replays machine {scenario.machine.id!r}"])
+    return scenario, ScenarioRenderer(scenario)
+
+
+def _expectations(args, machine, scenario) -> list:
+    out = []
+    if scenario is not None:
+        for i, text in enumerate(scenario.spec.scenario.expect):
+            out.append(parse(text, machine, where=f"{scenario.path}: scenario.expect[{i}]"))
+    for i, text in enumerate(args.expect):
+        out.append(parse(text, machine, where=f"--expect[{i}]"))
+    return out
+
+
+def _emit(obj: dict, out) -> None:
+    out.write(json.dumps(obj, allow_nan=False, separators=(",", ":")) + "\n")
+
+
+def run(args: argparse.Namespace) -> int:
+    from rotorwatch.pipeline import MachinePipeline
+    from rotorwatch.settings.loading import load_config
+
+    out = sys.stdout
+    start = _start_unix_s(args.start)
+    if args.learning_updates is not None and args.learning_updates < 1:
+        raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
+    scenario = renderer = None
+    if args.scenario:
+        scenario, renderer = _open_scenario(args)
+        config, machine = scenario.config, scenario.machine
+        fs_hz = config.acquisition.sample_rate_hz
+        window_s = machine.analysis.window_s
+        frames = scenario_frames(renderer, fs_hz, window_s)
+        total = len(renderer.times())
+        source = f"scenario {scenario.name!r} ({args.scenario}), config {scenario.config_path}"
+        cadence = f"every {scenario.spec.scenario.cadence_s / 3600:g} h"
+    else:
+        if not args.config:
+            raise InputError("--input needs --config (the machine configuration the recording belongs to)")
+        config = load_config(args.config)
+        machine = _pick_machine(config, args.machine, args.config)
+        window_s = machine.analysis.window_s
+        rec = open_recording(args.input, machine, args.unit, window_s)
+        fs_hz = rec.fs_hz
+        frames = recording_frames(rec, args.rpm)
+        total = rec.n_frames // rec.window_frames
+        source = f"recording {args.input} ({args.unit}), config {args.config}"
+        cadence = f"consecutive {window_s:g} s windows"
+        if rec.unmapped:
+            print(f"rotorwatch: {args.input}: no channel for point(s) {', '.join(rec.unmapped)}: they read no_data", file=sys.stderr)
+        if rec.dropped_frames:
+            print(f"rotorwatch: {args.input}: the last {rec.dropped_frames} frames (less than one window) are not replayed", file=sys.stderr)
+    expectations = _expectations(args, machine, scenario)
+    policy = AlarmPolicy(learning_hours=0.0, min_learning_updates=args.learning_updates) if args.learning_updates else None
+
+    tmp = None
+    if args.state_dir:
+        state_dir = Path(args.state_dir)
+    else:
+        tmp = tempfile.TemporaryDirectory(prefix="rotorwatch-replay-")
+        state_dir = Path(tmp.name)
+    try:
+        pipeline = MachinePipeline(config, machine, state_dir=state_dir, policy=policy)
+        log = ReplayLog(machine, start)
+        progress = sys.stderr.isatty() and args.format == "human"
+        t_wall = time.perf_counter()
+        for i, frame in enumerate(frames):
+            update = pipeline.step(start + frame.elapsed_s, frame.blocks_v, rpm=frame.rpm, fs_hz=fs_hz)
+            log.add(frame.elapsed_s, update)
+            if args.format == "jsonl":
+                _emit(update_record(update, frame.elapsed_s), out)
+                for e in update.events:
+                    _emit(event_record(e, frame.elapsed_s), out)
+            if progress and i % 10 == 0:
+                print(f"\rreplay: update {i + 1} of {total}", end="", file=sys.stderr, flush=True)
+        wall_s = time.perf_counter() - t_wall
+        if progress:
+            print("\r" + " " * 40 + "\r", end="", file=sys.stderr, flush=True)
+        pipeline.close()
+    finally:
+        if tmp is not None:
+            tmp.cleanup()
+    n = len(log.samples)
+    if n == 0:
+        raise InputError(f"{args.scenario or args.input}: nothing to replay (no update)")
+
+    verdicts = [evaluate(x, log.samples) for x in expectations]
+    failed = [v for v in verdicts if not v.passed]
+    if args.format == "jsonl":
+        for v in verdicts:
+            _emit({"type": "expectation", "text": v.expectation.text, "passed": v.passed, "detail": v.detail}, out)
+        _emit({
+            "type": "summary", "machine": machine.id, "updates": n, "points": len(machine.points),
+            "wall_s": round(wall_s, 3), "final_state": log.last.state if log.last else None,
+            "expectations": len(verdicts), "failed": len(failed),
+        }, out)
+    else:
+        from rotorwatch.analysis.severity import boundaries
+
+        last = log.samples[-1].elapsed_s
+        out.write(f"rotorwatch replay: {source}\n")
+        out.write(
+            f"machine {machine.id} ({machine.name or 'unnamed'}), points {', '.join(p.id for p in machine.points)}; "
+            f"{n} updates {cadence} over {last / 86400:.2f} days from {args.start}; "
+            f"{window_s:g} s windows at {fs_hz:g} Hz\n"
+        )
+        out.write(f"replay took {wall_s:.1f} s ({1000 * wall_s / n:.0f} ms per update)\n\n")
+        try:
+            limits = boundaries(machine.iso_group, machine.support)
+        except ValueError:
+            limits = None
+        out.write(timeline(log, limits) + "\n")
+        if verdicts:
+            out.write("\nExpectations\n")
+            for v in verdicts:
+                out.write(f"  {'PASS' if v.passed else 'FAIL'}  {v.expectation.text}  ({v.detail})\n")
+            out.write(f"  {len(verdicts) - len(failed)} of {len(verdicts)} passed\n")
+    out.flush()
+    if failed:
+        names = "; ".join(repr(v.expectation.text) for v in failed[:3])
+        more = f" and {len(failed) - 3} more" if len(failed) > 3 else ""
+        raise ExpectationFailed(f"{len(failed)} of {len(verdicts)} expectation(s) failed: {names}{more}")
+    return 0

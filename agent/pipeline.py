@@ -1,0 +1,108 @@
+"""One machine's processing per update: raw volts blocks in, a :class:`MachineUpdate` out.
+
+    pipeline = MachinePipeline(config, machine, state_dir="var/rotorwatch")
+    update = pipeline.step(time_s, {"de-h": volts, "nde-h": volts}, rpm=None)
+
+For each point: sensor checks on the raw volts -> calibration to m/s^2 (volts / ``volts_per_m_s2``) ->
+:class:`~rotorwatch.analysis.point.PointAnalyzer` (built once per point and sampling rate) -> and for
+the machine, :class:`~rotorwatch.alarms.monitor.MachineMonitor`. A point missing from ``blocks_v``
+reads ``no_data``; a block the analysis cannot take (too short, not finite) reads ``no_data`` with the
+reason, or ``sensor_fault`` when the sensor checks failed. Replay and the daemon run exactly this code.
+
+Not thread-safe: one owner calls :meth:`step`.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import numpy as np
+
+from rotorwatch.alarms.monitor import MachineMonitor
+from rotorwatch.alarms.records import MachineUpdate, SensorHealth
+from rotorwatch.alarms.sensor_checks import DEFAULT_LIMITS, SensorLimits, check_block
+from rotorwatch.analysis.point import PointAnalyzer
+from rotorwatch.analysis.result import PointResult
+from rotorwatch.errors import InputError
+from rotorwatch.settings.models import AlarmPolicy, Config, Machine
+
+log = logging.getLogger(__name__)
+
+# Faults after which the samples are not worth analysing (nothing but NaN, or one constant value).
+UNANALYSABLE = ("invalid", "flatline")
+
+
+class MachinePipeline:
+    """Sensor checks, calibration, analysis and alarm logic of one machine."""
+
+    def __init__(
+        self,
+        config: Config,
+        machine: Machine,
+        state_dir: str | Path | None = None,
+        keep_spectra: bool = False,
+        *,
+        policy: AlarmPolicy | None = None,
+        sensor_limits: SensorLimits = DEFAULT_LIMITS,
+    ):
+        self.config = config
+        self.machine = machine
+        self.keep_spectra = keep_spectra
+        self.sensor_limits = sensor_limits
+        self.state_dir = Path(state_dir if state_dir is not None else config.storage.state_dir)
+        self.monitor = MachineMonitor(machine, self.state_dir, policy)
+        self._analyzers: dict[tuple[str, float], PointAnalyzer] = {}
+
+    def analyzer(self, point_id: str, fs_hz: float) -> PointAnalyzer:
+        key = (point_id, float(fs_hz))
+        if key not in self._analyzers:
+            self._analyzers[key] = PointAnalyzer(self.machine, self.machine.point(point_id), float(fs_hz))
+        return self._analyzers[key]
+
+    def step(
+        self,
+        time_s: float,
+        blocks_v: dict[str, np.ndarray | None],
+        rpm: float | None = None,
+        *,
+        rpm_source: str | None = None,
+        fs_hz: float | None = None,
+    ) -> MachineUpdate:
+        """Process one update: ``blocks_v`` maps point id -> raw volts (1-D) sampled at ``fs_hz``
+        (default ``acquisition.sample_rate_hz``); ``rpm`` is an outside speed reading, if any."""
+        fs = float(fs_hz if fs_hz is not None else self.config.acquisition.sample_rate_hz)
+        results: dict[str, PointResult | None] = {}
+        health: dict[str, SensorHealth] = {}
+        notes: dict[str, str] = {}
+        for p in self.machine.points:
+            block = blocks_v.get(p.id)
+            if block is None or np.size(block) == 0:
+                results[p.id] = None
+                health[p.id] = SensorHealth(ok=True, reason="no samples")
+                notes[p.id] = "no samples for this point this update"
+                continue
+            volts = np.asarray(block, dtype=float)
+            h = check_block(volts, p.sensor, self.sensor_limits)
+            health[p.id] = h
+            if h.fault in UNANALYSABLE:
+                results[p.id] = None
+                continue
+            accel_m_s2 = volts / p.sensor.volts_per_m_s2
+            try:
+                results[p.id] = self.analyzer(p.id, fs).analyze(
+                    accel_m_s2, time_s=time_s, rpm=rpm, rpm_source=rpm_source, keep_spectra=self.keep_spectra,
+                )
+            except InputError as e:
+                results[p.id] = None
+                notes[p.id] = f"cannot analyse this block: {e}"
+        return self.monitor.update(time_s, results, health, rpm=rpm, rpm_source=rpm_source or "", notes=notes)
+
+    def acknowledge(self, point_id: str | None = None, value: str | None = None, time_s: float | None = None):
+        return self.monitor.acknowledge(point_id, value, time_s)
+
+    def relearn(self, point_id: str | None = None, value: str | None = None) -> list[str]:
+        return self.monitor.relearn(point_id, value)
+
+    def close(self) -> None:
+        self.monitor.close()

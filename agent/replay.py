@@ -1,0 +1,404 @@
+"""Replay: run a simulated scenario or a recording through the same pipeline the daemon runs.
+
+A replay is a sequence of :class:`Frame` (one update: a volts block per point) fed to
+:class:`~rotorwatch.pipeline.MachinePipeline` as fast as the CPU allows. Frames come from
+
+- a scenario (:func:`scenario_frames`): at each snapshot time (``cadence_s``) the renderer draws
+  ``analysis.window_s`` seconds at ``acquisition.sample_rate_hz``. Speed: the analysis finds it the way
+  the daemon would (the configured speed, or estimated from the spectrum); only machines whose speed
+  comes from outside the vibration channels (``tach``, ``mqtt``) get the scenario's true speed, the
+  reading a tach or a drive would give;
+- a recording (:func:`recording_frames`): a WAV file or a ``.npz`` archive cut into consecutive
+  ``window_s`` windows (see :func:`open_recording` for the formats and units).
+
+:class:`ReplayLog` keeps what the timeline and the expectations need from each update.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from rotorwatch.alarms.records import AlarmEvent, MachineUpdate
+from rotorwatch.errors import InputError
+from rotorwatch.expectations import Sample
+from rotorwatch.settings.models import G_N, Config, Machine
+
+UNITS = ("volts", "g", "m/s2")
+
+
+@dataclass(frozen=True)
+class Frame:
+    """One update's input: elapsed seconds from the start, raw volts per point, outside speed."""
+
+    elapsed_s: float
+    blocks_v: dict[str, np.ndarray]
+    rpm: float | None = None
+
+
+# ------------------------------------------------------------------------------------------ scenarios
+def scenario_frames(renderer, fs_hz: float, window_s: float, times_s: np.ndarray | None = None) -> Iterator[Frame]:
+    """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence."""
+    machine: Machine = renderer.machine
+    outside_speed = machine.speed.mode in ("tach", "mqtt")
+    for t in renderer.times() if times_s is None else times_s:
+        t = float(t)
+        blocks = renderer.snapshot(t, window_s, fs_hz)
+        yield Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None)
+
+
+# ----------------------------------------------------------------------------------------- recordings
+@dataclass
+class Recording:
+    """An opened recording: its rate, length, and a reader of consecutive windows in volts."""
+
+    path: Path
+    fs_hz: float
+    n_frames: int
+    kind: str  # "wav" or "npz"
+    windows: Iterator[dict[str, np.ndarray]]
+    window_frames: int
+    dropped_frames: int
+    unmapped: list[str] = field(default_factory=list)
+
+
+def _to_volts(x: np.ndarray, machine: Machine, point_id: str, unit: str) -> np.ndarray:
+    sensor = machine.point(point_id).sensor
+    if unit == "volts":
+        return x
+    accel = x * G_N if unit == "g" else x
+    return accel * sensor.volts_per_m_s2
+
+
+def open_recording(path: str | Path, machine: Machine, unit: str, window_s: float) -> Recording:
+    """Open a WAV or ``.npz`` recording for replay, cut into ``window_s`` windows.
+
+    WAV: channel c feeds the point whose ``sensor.channel`` is c. ``unit`` says what the samples are:
+    ``volts`` (the sensor output; an integer PCM file holds fractions of full scale, and full scale is the
+    sensor's ``input_range_v``), or ``g`` / ``m/s2`` (acceleration, float files only), converted to volts
+    through the sensor's sensitivity so the sensor checks and the calibration run as for a live input.
+
+    NPZ: ``fs_hz`` (a scalar) and the samples, either one 1-D array per point named by the point id, or
+    one 2-D array ``channels`` of shape (frames, channels) mapped by ``sensor.channel``; same ``unit``.
+    """
+    p = Path(path)
+    if unit not in UNITS:
+        raise InputError(f"--unit = {unit!r}: expected one of {', '.join(UNITS)}")
+    if not p.is_file():
+        raise InputError(f"{p}: no such file")
+    suffix = p.suffix.lower()
+    if suffix == ".npz":
+        return _open_npz(p, machine, unit, window_s)
+    if suffix in (".wav", ".wave"):
+        return _open_wav(p, machine, unit, window_s)
+    raise InputError(f"{p}: unknown recording type {p.suffix or '(no suffix)'!r}: expected .wav or .npz")
+
+
+def _window_frames(p: Path, fs_hz: float, n_frames: int, window_s: float) -> int:
+    n = int(round(window_s * fs_hz))
+    if n < 1 or n_frames < n:
+        raise InputError(
+            f"{p}: {n_frames} frames ({n_frames / fs_hz:.3g} s at {fs_hz:g} Hz) is shorter than one "
+            f"analysis window (analysis.window_s = {window_s:g} s)"
+        )
+    return n
+
+
+def _channel_map(p: Path, machine: Machine, n_channels: int) -> tuple[dict[str, int], list[str]]:
+    mapped = {pt.id: pt.sensor.channel for pt in machine.points if pt.sensor.channel < n_channels}
+    unmapped = [pt.id for pt in machine.points if pt.id not in mapped]
+    if not mapped:
+        chans = ", ".join(f"{pt.id}: {pt.sensor.channel}" for pt in machine.points)
+        raise InputError(f"{p}: has {n_channels} channel(s), but the points of machine {machine.id!r} use channels {chans}")
+    return mapped, unmapped
+
+
+def _open_wav(p: Path, machine: Machine, unit: str, window_s: float) -> Recording:
+    import soundfile
+
+    try:
+        info = soundfile.info(str(p))
+    except (RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
+        raise InputError(f"{p}: cannot read as WAV: {e}") from None
+    integer = info.subtype.startswith("PCM") or info.subtype in ("ULAW", "ALAW")
+    if integer and unit != "volts":
+        raise InputError(
+            f"{p}: integer {info.subtype} samples hold fractions of full scale; use --unit volts (full scale = "
+            f"the sensor's input_range_v) or write the recording as a float WAV"
+        )
+    fs = float(info.samplerate)
+    n_win = _window_frames(p, fs, info.frames, window_s)
+    mapped, unmapped = _channel_map(p, machine, info.channels)
+
+    def windows() -> Iterator[dict[str, np.ndarray]]:
+        try:
+            with soundfile.SoundFile(str(p)) as f:
+                while True:
+                    data = f.read(n_win, dtype="float64", always_2d=True)
+                    if data.shape[0] < n_win:
+                        return
+                    out = {}
+                    for pid, ch in mapped.items():
+                        x = data[:, ch].copy()
+                        if integer:
+                            x *= machine.point(pid).sensor.input_range_v
+                        out[pid] = _to_volts(x, machine, pid, unit)
+                    yield out
+        except (RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
+            raise InputError(f"{p}: read failed: {e}") from None
+
+    return Recording(p, fs, info.frames, "wav", windows(), n_win, info.frames % n_win, unmapped)
+
+
+def _open_npz(p: Path, machine: Machine, unit: str, window_s: float) -> Recording:
+    try:
+        archive = np.load(p, allow_pickle=False)
+        keys = set(archive.files)
+    except (OSError, ValueError) as e:
+        raise InputError(f"{p}: cannot read as .npz: {e}") from None
+    if "fs_hz" not in keys:
+        raise InputError(f"{p}: no 'fs_hz' entry (the sample rate in Hz); entries: {', '.join(sorted(keys)) or 'none'}")
+    try:
+        fs = float(np.asarray(archive["fs_hz"]).reshape(()))
+    except (ValueError, TypeError):
+        raise InputError(f"{p}: fs_hz must be one number") from None
+    if not (math.isfinite(fs) and fs > 0):
+        raise InputError(f"{p}: fs_hz = {fs:g}: must be a positive sample rate")
+    columns: dict[str, np.ndarray] = {}
+    if "channels" in keys:
+        data = np.asarray(archive["channels"], dtype=float)
+        if data.ndim != 2:
+            raise InputError(f"{p}: 'channels' has shape {data.shape}: expected (frames, channels)")
+        mapped, _ = _channel_map(p, machine, data.shape[1])
+        columns = {pid: data[:, ch] for pid, ch in mapped.items()}
+    else:
+        for pt in machine.points:
+            if pt.id in keys:
+                x = np.asarray(archive[pt.id], dtype=float)
+                if x.ndim != 1:
+                    raise InputError(f"{p}: {pt.id!r} has shape {x.shape}: expected one channel (1-D)")
+                columns[pt.id] = x
+        if not columns:
+            ids = ", ".join(pt.id for pt in machine.points)
+            raise InputError(f"{p}: no samples for any point: expected arrays named {ids}, or a 2-D 'channels'")
+    lengths = {len(x) for x in columns.values()}
+    if len(lengths) != 1:
+        raise InputError(f"{p}: the point arrays differ in length ({', '.join(map(str, sorted(lengths)))} frames)")
+    n_frames = lengths.pop()
+    n_win = _window_frames(p, fs, n_frames, window_s)
+    unmapped = [pt.id for pt in machine.points if pt.id not in columns]
+
+    def windows() -> Iterator[dict[str, np.ndarray]]:
+        for i in range(n_frames // n_win):
+            sl = slice(i * n_win, (i + 1) * n_win)
+            yield {pid: _to_volts(x[sl].copy(), machine, pid, unit) for pid, x in columns.items()}
+
+    return Recording(p, fs, n_frames, "npz", windows(), n_win, n_frames % n_win, unmapped)
+
+
+def recording_frames(rec: Recording, rpm: float | None = None) -> Iterator[Frame]:
+    step_s = rec.window_frames / rec.fs_hz
+    for i, blocks in enumerate(rec.windows):
+        yield Frame(i * step_s, blocks, rpm)
+
+
+# ------------------------------------------------------------------------------------------ recording
+@dataclass
+class ReplayLog:
+    """What a replay keeps of each update: states for the expectations, events for the timeline."""
+
+    machine: Machine
+    start_unix_s: float
+    samples: list[Sample] = field(default_factory=list)
+    events: list[tuple[float, AlarmEvent]] = field(default_factory=list)  # (elapsed_s, event)
+    overall: dict[str, list[tuple[float, float, str | None]]] = field(default_factory=dict)  # point -> (t, mm/s, zone)
+    peaks: dict[tuple[str, str], tuple[float, float]] = field(default_factory=dict)  # (point, value) -> (max, at t)
+    last: MachineUpdate | None = None
+
+    def add(self, elapsed_s: float, update: MachineUpdate) -> None:
+        values: dict[tuple[str, str], tuple[str, float, str]] = {}
+        zones: dict[str, str | None] = {}
+        points: dict[str, str] = {}
+        for pid, pu in update.points.items():
+            points[pid] = pu.state
+            for name, vs in pu.values.items():
+                values[(pid, name)] = (vs.state, vs.value, vs.unit)
+                if math.isfinite(vs.value) and vs.state != "suppressed":
+                    best = self.peaks.get((pid, name))
+                    if best is None or vs.value > best[0]:
+                        self.peaks[(pid, name)] = (vs.value, elapsed_s)
+            zone = None
+            if pu.result is not None and pu.state not in ("sensor_fault", "stopped"):
+                zone = pu.result.iso_zone
+                self.overall.setdefault(pid, []).append((elapsed_s, pu.result.overall_velocity_mm_s, zone))
+            zones[pid] = zone
+        self.samples.append(Sample(elapsed_s, update.state, points, values, zones))
+        self.events.extend((elapsed_s, e) for e in update.events)
+        self.last = update
+
+
+# ------------------------------------------------------------------------------------------- output
+def _clean(x):
+    """JSON-safe: non-finite floats become null, tuples lists, numpy scalars Python numbers."""
+    if isinstance(x, dict):
+        return {str(k): _clean(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_clean(v) for v in x]
+    if isinstance(x, (np.floating, float)):
+        x = float(x)
+        return x if math.isfinite(x) else None
+    if isinstance(x, np.integer):
+        return int(x)
+    return x
+
+
+def iso_date(unix_s: float) -> str:
+    from datetime import datetime, timezone
+
+    return datetime.fromtimestamp(unix_s, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def update_record(update: MachineUpdate, elapsed_s: float) -> dict:
+    """One update as a JSON-ready dict (``type: update``)."""
+    points = {}
+    for pid, pu in update.points.items():
+        r = pu.result
+        h = pu.health
+        points[pid] = {
+            "state": pu.state,
+            "reason": pu.reason,
+            "overall_mm_s": r.overall_velocity_mm_s if r is not None else None,
+            "iso_zone": r.iso_zone if r is not None else None,
+            "rpm": r.rpm if r is not None else None,
+            "health": {
+                "ok": h.ok, "fault": h.fault, "reason": h.reason, "rms_v": h.rms_v, "mean_v": h.mean_v,
+                "clipped_fraction": h.clipped_fraction,
+            },
+            "values": {
+                name: {
+                    "value": v.value, "unit": v.unit, "state": v.state, "warning_level": v.warning_level,
+                    "alarm_level": v.alarm_level, "baseline": v.baseline, "latched": v.latched,
+                }
+                for name, v in pu.values.items()
+            },
+        }
+    return _clean({
+        "type": "update", "time_s": update.time_s, "date": iso_date(update.time_s), "elapsed_s": elapsed_s,
+        "day": elapsed_s / 86400.0, "machine": update.machine_id, "state": update.state, "reason": update.reason,
+        "rpm": update.rpm, "rpm_source": update.rpm_source, "points": points,
+    })
+
+
+def event_record(e: AlarmEvent, elapsed_s: float) -> dict:
+    """One transition as a JSON-ready dict (``type: event``)."""
+    return _clean({
+        "type": "event", "time_s": e.time_s, "date": iso_date(e.time_s), "elapsed_s": elapsed_s,
+        "day": elapsed_s / 86400.0, "machine": e.machine_id, "point": e.point_id, "value": e.value_name,
+        "old_state": e.old_state, "new_state": e.new_state, "reading": e.value, "unit": e.unit,
+        "level": e.level, "level_kind": e.level_kind, "reason": e.reason,
+    })
+
+
+def _when(elapsed_s: float, start_unix_s: float) -> str:
+    date = iso_date(start_unix_s + elapsed_s)[:16].replace("T", " ")
+    return f"day {elapsed_s / 86400.0:6.2f}  {date}"
+
+
+def _value_order(machine: Machine, pid: str) -> list[str]:
+    return ["overall"] + [b.name for b in machine.bands_for(pid)]
+
+
+def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None = None, max_lines: int = 40) -> str:
+    """A human timeline: baselines, first warning/alarm of each value, zones, faults, machine states."""
+    m, t0 = log.machine, log.start_unix_s
+    lines: list[str] = []
+
+    learned = [(t, e) for t, e in log.events if e.old_state == "learning" and e.new_state == "normal" and e.value_name not in ("point", "machine")]
+    if learned:
+        lines.append("Baselines learned")
+        by_time: dict[float, dict[str, int]] = {}
+        for t, e in learned:
+            by_time.setdefault(t, {}).setdefault(e.point_id or "-", 0)
+            by_time[t][e.point_id or "-"] += 1
+        for t, counts in list(by_time.items())[:max_lines]:
+            lines.append(f"  {_when(t, t0)}  " + ", ".join(f"{p}: {n} value{'s' if n != 1 else ''}" for p, n in counts.items()))
+        lines.append("")
+
+    lines.append("First warning and alarm of each value")
+    firsts = []
+    reached = set()
+    for t, e in log.events:
+        if e.value_name in ("point", "machine"):
+            continue
+        for kind in ("warning", "alarm"):
+            key = (e.point_id, e.value_name, kind)
+            rank = {"warning": 1, "alarm": 2}
+            if rank.get(e.new_state, 0) >= rank[kind] and rank.get(e.old_state, 0) < rank[kind] and key not in reached:
+                reached.add(key)
+                firsts.append((t, e, kind))
+    for t, e, kind in firsts[:max_lines]:
+        detail = e.reason if e.new_state == kind else f"{e.reason} (straight to alarm)"
+        lines.append(f"  {_when(t, t0)}  {e.point_id:<6} {e.value_name:<16} {kind:<7}  {detail}")
+    if len(firsts) > max_lines:
+        lines.append(f"  ... {len(firsts) - max_lines} more")
+    quiet = []
+    for p in m.points:
+        for name in _value_order(m, p.id):
+            if (p.id, name, "warning") not in reached:
+                peak = log.peaks.get((p.id, name))
+                unit = next((s.values[(p.id, name)][2] for s in log.samples[-1:] if (p.id, name) in s.values), "")
+                quiet.append(f"{p.id} {name}" + (f" (peak {peak[0]:.3g} {unit} at day {peak[1] / 86400:.2f})" if peak else ""))
+    if not firsts:
+        lines.append("  no value reached warning")
+    if quiet:
+        lines.append("  never reached warning: " + "; ".join(quiet))
+    lines.append("")
+
+    limits = f": A/B {zone_limits_mm_s[0]:g}, B/C {zone_limits_mm_s[1]:g}, C/D {zone_limits_mm_s[2]:g} mm/s" if zone_limits_mm_s else ""
+    lines.append(f"Overall velocity and ISO 20816-3 zone (group {m.iso_group}, {m.support}{limits})")
+    for p in m.points:
+        series = log.overall.get(p.id, [])
+        if not series:
+            lines.append(f"  {p.id:<6} no overall velocity (no analysed update)")
+            continue
+        first_t, first_v, first_z = series[0]
+        parts = [f"zone {first_z} at the start ({first_v:.3g} mm/s)"]
+        seen = {first_z}
+        for t, v, z in series[1:]:
+            if z is not None and z not in seen and (first_z is None or z > first_z):
+                seen.add(z)
+                parts.append(f"zone {z} from {_when(t, t0).strip()} ({v:.3g} mm/s)")
+        peak_v, peak_t = max((v, t) for t, v, _ in series)
+        if len(parts) == 1:
+            parts[0] = f"zone {first_z} throughout"
+        lines.append(f"  {p.id:<6} " + "; ".join(parts) + f"; peak {peak_v:.3g} mm/s at day {peak_t / 86400:.2f}")
+    lines.append("")
+
+    faults = [(t, e) for t, e in log.events if e.value_name == "point" and "sensor_fault" in (e.old_state, e.new_state)]
+    if faults:
+        lines.append("Sensor faults")
+        for t, e in faults[:max_lines]:
+            what = e.reason if e.new_state == "sensor_fault" else f"back to {e.new_state}"
+            lines.append(f"  {_when(t, t0)}  {e.point_id:<6} {what}")
+        if len(faults) > max_lines:
+            lines.append(f"  ... {len(faults) - max_lines} more")
+        lines.append("")
+
+    machine_events = [(t, e) for t, e in log.events if e.value_name == "machine"]
+    lines.append("Machine state changes")
+    for t, e in machine_events[:max_lines]:
+        lines.append(f"  {_when(t, t0)}  {e.old_state} -> {e.new_state}")
+    if len(machine_events) > max_lines:
+        lines.append(f"  ... {len(machine_events) - max_lines} more")
+    lines.append("")
+
+    if log.last is not None and log.samples:
+        last_t = log.samples[-1].elapsed_s
+        lines.append(f"Final state ({_when(last_t, t0).strip()} UTC): machine {log.last.state}")
+        for pid, pu in log.last.points.items():
+            lines.append(f"  {pid:<6} {pu.state:<12} {pu.reason}")
+    return "\n".join(lines)
