@@ -30,6 +30,8 @@ class Finding:
     found_hz: float  # where the peak was found within the slip tolerance
     strength: float  # decision measure: peak over local floor, combined over harmonics (see analysis docs)
     harmonics_found: int
+    series: str = ""  # the line series matched: the name, or "2xBSF" when elements strike at twice BSF
+    sidebands_found: int = 0  # sidebands (1x shaft for race defects, FTF for elements) that stand out
 
 
 @dataclass(frozen=True)
@@ -59,3 +61,4 @@ class PointResult:
     acceleration: Spectrum | None = None  # kept only when asked (evidence, status page)
     velocity: Spectrum | None = None
     envelope: Spectrum | None = None
+    envelope_kurtosis: float | None = None  # spectral kurtosis of the demodulation band (when chosen by it)

@@ -1,0 +1,76 @@
+"""Band values: the RMS of a spectrum within a band's edges, read from a power spectral density.
+
+A band's value is sqrt(sum(PSD[k]) * df) over the bins k of its windows, in the unit of its quantity
+(acceleration m/s^2, velocity mm/s, envelope m/s^2). Windows:
+
+- ``low_hz``/``high_hz``: one window, fixed;
+- ``low_order``/``high_order``: one window whose edges are orders times the shaft speed *used for this
+  update* (configured, measured or estimated), so the band follows the speed;
+- ``feature``: one window per harmonic, k x centre +/- ``tolerance_pct`` (see ``kinematics.band_edges_hz``);
+  the value is the root-sum-square over the windows, i.e. the RMS of their union (overlapping windows are
+  merged, so no line is counted twice).
+
+Each window is widened by 1.5 bins on each side: the Hann window spreads a tone over +/- 2 bins, and a
+narrow window (a shaft order +/- 3 % at a 3 Hz resolution is narrower than one bin) must still collect
+the whole main lobe of a tone inside it to read that tone's RMS.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from rotorwatch import kinematics
+from rotorwatch.analysis.plan import HANN_LOBE_MARGIN_BINS, BandPlan, AnalysisPlan
+
+
+def window_bins(edges_hz: list[tuple[float, float]] | tuple[tuple[float, float], ...], df_hz: float,
+                n_bins: int, margin_bins: float = HANN_LOBE_MARGIN_BINS) -> list[tuple[int, int]]:
+    """Merged half-open bin ranges [start, stop) covering the windows, each widened by ``margin_bins``."""
+    ranges = []
+    for lo, hi in edges_hz:
+        start = max(int(math.ceil(lo / df_hz - margin_bins - 1e-9)), 0)
+        stop = min(int(math.floor(hi / df_hz + margin_bins + 1e-9)) + 1, n_bins)
+        if stop > start:
+            ranges.append((start, stop))
+    ranges.sort()
+    merged: list[tuple[int, int]] = []
+    for start, stop in ranges:
+        if merged and start <= merged[-1][1]:
+            merged[-1] = (merged[-1][0], max(merged[-1][1], stop))
+        else:
+            merged.append((start, stop))
+    return merged
+
+
+def band_rms(psd: np.ndarray, df_hz: float, edges_hz, margin_bins: float = HANN_LOBE_MARGIN_BINS) -> float:
+    """RMS within the (merged, widened) windows ``edges_hz`` of a one-sided PSD with uniform bins."""
+    total = 0.0
+    for start, stop in window_bins(edges_hz, df_hz, psd.shape[-1], margin_bins):
+        total += float(psd[start:stop].sum())
+    return math.sqrt(total * df_hz)
+
+
+def band_edges(plan: AnalysisPlan, bp: BandPlan, shaft_hz: float) -> list[tuple[float, float]]:
+    """Edges in Hz of a band at this update's shaft speed."""
+    if bp.fixed_edges_hz is not None:
+        return list(bp.fixed_edges_hz)
+    return kinematics.band_edges_hz(plan.machine, bp.band, shaft_hz)
+
+
+def band_values(plan: AnalysisPlan, shaft_hz: float, accel_psd: np.ndarray, vel_psd: np.ndarray,
+                env_psd: np.ndarray | None, env_df_hz: float) -> dict[str, float]:
+    """Every band of the point, by name, in its quantity's unit."""
+    out: dict[str, float] = {}
+    for bp in plan.bands:
+        edges = band_edges(plan, bp, shaft_hz)
+        if bp.quantity == "acceleration":
+            out[bp.band.name] = band_rms(accel_psd, plan.df_hz, edges)
+        elif bp.quantity == "velocity":
+            out[bp.band.name] = band_rms(vel_psd, plan.df_hz, edges)
+        elif env_psd is not None:
+            out[bp.band.name] = band_rms(env_psd, env_df_hz, edges)
+        else:
+            out[bp.band.name] = float("nan")
+    return out

@@ -1,0 +1,284 @@
+"""The analysis plan of one measurement point: every setting turned into samples, bins and masks once.
+
+A plan is built when a :class:`~rotorwatch.analysis.point.PointAnalyzer` is created (per machine, point
+and sampling rate) and never changes afterwards; each update only reads it. It holds
+
+- the Welch spectrum set-up: segment length ``n_per_seg`` from the asked lines and span
+  (``fs / n_per_seg <= fmax_hz / lines``, rounded up to a power of two), overlap, Hann window;
+- the velocity integration weights (1/(2 pi f))^2 with the low cut-off, and the overall band's bins;
+- each configured band, with its bins when its edges are fixed in Hz;
+- the envelope set-up (fixed demodulation band or spectral-kurtosis search, span, lines);
+- the bearing defects to look for, with their tolerance and harmonic count;
+- the speed settings (source, nominal, search range, stop threshold).
+
+Everything is checked against the actual sampling rate here: a band, span or demodulation band that does
+not fit below Nyquist raises :class:`~rotorwatch.errors.InputError` naming the limit (the caller knows
+which file or device it came from and adds that).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from rotorwatch import kinematics
+from rotorwatch.errors import InputError
+from rotorwatch.settings.models import Band, Machine, Point
+
+# Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
+DEFECT_NAMES = ("bpfo", "bpfi", "bsf", "ftf")
+DEFAULT_DEFECT_TOLERANCE_PCT = 3.0  # covers 1-2 % slip plus speed uncertainty (common practice)
+DEFAULT_DEFECT_HARMONICS = 3
+# A spectral line of a Hann-windowed tone spreads over +/- 2 bins; a band whose edges fall inside a
+# tone's main lobe still collects its whole energy when widened by 1.5 bins on each side.
+HANN_LOBE_MARGIN_BINS = 1.5
+# Amplitude correction for an AC-coupled input is capped (x10, +20 dB) to keep noise near 0 Hz bounded.
+AC_CORRECTION_MAX = 10.0
+# The envelope analysis tapers this fraction of the block at each end and drops it afterwards.
+EDGE_TAPER_FRACTION = 0.02
+
+
+@dataclass(frozen=True)
+class BandPlan:
+    """A configured band as the analysis reads it."""
+
+    band: Band
+    quantity: str  # acceleration | velocity | envelope
+    fixed_edges_hz: tuple[tuple[float, float], ...] | None  # edges known at set-up (Hz bands)
+
+
+@dataclass(frozen=True)
+class DefectPlan:
+    """A bearing defect the findings look for."""
+
+    bearing_id: str
+    name: str  # bpfo | bpfi | bsf | ftf
+    order: float  # multiple of shaft speed
+    tolerance: float  # fraction (0.03 = +/- 3 %)
+    harmonics: int
+
+
+@dataclass(frozen=True)
+class EnvelopePlan:
+    band_hz: tuple[float, float] | None  # fixed demodulation band, or None: spectral kurtosis
+    auto_min_hz: float
+    auto_max_hz: float  # top of the search range (just below Nyquist)
+    fmax_hz: float  # envelope-spectrum span
+    lines: int
+    df_hz: float  # asked resolution of the envelope spectrum, fmax_hz / lines
+    overlap_frac: float
+    min_bandwidth_hz: float  # narrowest demodulation band the search considers
+
+    @property
+    def segment_s(self) -> float:
+        return 1.0 / self.df_hz
+
+
+@dataclass(frozen=True)
+class SpeedPlan:
+    mode: str  # fixed | estimated | tach | mqtt
+    nominal_rpm: float
+    min_rpm: float | None
+    max_rpm: float | None
+    stopped_rpm: float
+
+
+@dataclass(frozen=True, eq=False)
+class AnalysisPlan:
+    machine: Machine
+    point: Point
+    fs_hz: float
+    fmax_hz: float
+    lines: int
+    n_per_seg: int
+    n_overlap: int
+    df_hz: float
+    freqs_hz: np.ndarray  # rfft bin frequencies of one segment, 0 .. Nyquist
+    n_keep: int  # bins 0 .. fmax_hz kept in the published spectra
+    window: np.ndarray
+    ac_power_gain: np.ndarray | None  # PSD correction for an AC-coupled input, or None
+    velocity_weight: np.ndarray  # (1000 / (2 pi f))^2 above the cut-off, else 0: (m/s^2)^2/Hz -> (mm/s)^2/Hz
+    velocity_cutoff_hz: float
+    overall_bins: slice
+    iso_group: int
+    support: str
+    bands: tuple[BandPlan, ...]
+    envelope: EnvelopePlan
+    defects: tuple[DefectPlan, ...]
+    speed: SpeedPlan
+
+    @property
+    def min_samples(self) -> int:
+        """Fewest samples one update needs: one spectrum segment and one envelope segment."""
+        usable = 1.0 - 2.0 * EDGE_TAPER_FRACTION
+        return max(self.n_per_seg, int(math.ceil(self.envelope.segment_s * self.fs_hz / usable)) + 2)
+
+
+def _too_fast(what: str, hz: float, fs_hz: float) -> InputError:
+    return InputError(
+        f"sample rate {fs_hz:g} Hz is too low: {what} reaches {hz:g} Hz, which needs a rate above "
+        f"{2 * hz:g} Hz (Nyquist {fs_hz / 2:g} Hz)"
+    )
+
+
+def _segment_length(fs_hz: float, fmax_hz: float, lines: int) -> int:
+    """Power-of-two segment length whose resolution is at least ``fmax_hz / lines``."""
+    need = int(math.ceil(lines * fs_hz / fmax_hz - 1e-9))
+    return 1 << max(need - 1, 1).bit_length()
+
+
+def _defects(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
+    """Defects of the point's bearing (or of every bearing of the machine when the point names none).
+
+    Tolerance and harmonic count come from an envelope band configured on the same feature and
+    bearing, when there is one; otherwise the defaults above.
+    """
+    bearings = [machine.bearing(point.bearing)] if point.bearing else list(machine.bearings)
+    out = []
+    for b in bearings:
+        mult = kinematics.bearing_multiples(b).as_dict()
+        for name in DEFECT_NAMES:
+            tol_pct, harmonics = DEFAULT_DEFECT_TOLERANCE_PCT, DEFAULT_DEFECT_HARMONICS
+            for band in machine.bands_for(point.id):
+                if band.feature == name and band.bearing == b.id and band.quantity == "envelope":
+                    tol_pct, harmonics = band.tolerance_pct, max(band.harmonics, 2)
+                    break
+            out.append(DefectPlan(b.id, name, mult[name], tol_pct / 100.0, harmonics))
+    return tuple(out)
+
+
+def _speed(machine: Machine) -> SpeedPlan:
+    s = machine.speed
+    return SpeedPlan(s.mode, s.nominal_rpm, s.min_rpm, s.max_rpm, s.stopped_rpm)
+
+
+def highest_rpm(speed: SpeedPlan) -> float:
+    """The highest speed the plan must cover (spans are sized for it)."""
+    if speed.mode == "estimated" and speed.max_rpm is not None:
+        return speed.max_rpm
+    if speed.mode == "fixed":
+        return speed.nominal_rpm * 1.05
+    return speed.nominal_rpm * 1.25  # tachometer / published speed: allow for a faster reading
+
+
+def _envelope_span_hz(machine: Machine, point: Point, defects: tuple[DefectPlan, ...], shaft_hz: float) -> float:
+    """Default envelope span: the highest defect harmonic (2 x BSF for elements) plus two shaft orders
+    of sidebands, and any envelope feature band, rounded up to 50 Hz."""
+    top = 10.0 * shaft_hz
+    for d in defects:
+        order = 2 * d.order if d.name == "bsf" else d.order
+        top = max(top, (d.harmonics * order * (1 + d.tolerance) + 2) * shaft_hz)
+    for band in machine.bands_for(point.id):
+        if band.quantity != "envelope":
+            continue
+        for _, hi in kinematics.band_edges_hz(machine, band, shaft_hz):
+            top = max(top, hi * 1.02)
+    return 50.0 * math.ceil(top / 50.0)
+
+
+def _band_edges_at(machine: Machine, band: Band, shaft_hz: float) -> list[tuple[float, float]]:
+    return kinematics.band_edges_hz(machine, band, shaft_hz)
+
+
+def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
+    """Turn the settings of ``point`` on ``machine`` into an :class:`AnalysisPlan` at ``fs_hz``."""
+    if not (fs_hz > 0 and math.isfinite(fs_hz)):
+        raise InputError(f"sample rate {fs_hz!r}: must be a positive number of Hz")
+    nyquist = fs_hz / 2.0
+    an = machine.analysis
+    fmax = an.fmax_hz if an.fmax_hz is not None else fs_hz / 2.56
+    if fmax > nyquist:
+        raise _too_fast(f"machine {machine.id!r} analysis.fmax_hz", fmax, fs_hz)
+    n_per_seg = _segment_length(fs_hz, fmax, an.lines)
+    n_overlap = min(int(round(n_per_seg * an.overlap_pct / 100.0)), n_per_seg - 1)
+    freqs = np.fft.rfftfreq(n_per_seg, 1.0 / fs_hz)
+    df = fs_hz / n_per_seg
+    n_keep = int(np.searchsorted(freqs, fmax, side="right"))
+
+    from scipy.signal import get_window  # noqa: PLC0415 - keep the import where it is needed
+
+    window = get_window("hann", n_per_seg)  # periodic ("DFT-even") Hann
+
+    corner = point.sensor.ac_coupling_corner_hz
+    ac_gain = None
+    if corner is not None:
+        with np.errstate(divide="ignore"):
+            gain = 1.0 + (corner / freqs) ** 2  # |H|^-2 of a first-order high-pass
+        ac_gain = np.minimum(gain, AC_CORRECTION_MAX**2)
+        ac_gain[0] = 0.0
+
+    ov = machine.overall
+    if ov.high_hz >= nyquist:
+        raise _too_fast(f"machine {machine.id!r} overall.high_hz", ov.high_hz, fs_hz)
+    speed = _speed(machine)
+    slow_hz = (speed.min_rpm or speed.nominal_rpm) / 60.0
+    fast_hz = highest_rpm(speed) / 60.0
+    # Velocity integration cut-off: the overall band's low edge, lowered for velocity bands that reach
+    # below it (at the slowest expected speed), never below two bins (DC and its leakage).
+    cutoff = ov.low_hz
+    bands = []
+    for band in machine.bands_for(point.id):
+        edges_fast = _band_edges_at(machine, band, fast_hz)
+        top = max(hi for _, hi in edges_fast)
+        if band.quantity != "envelope" and top >= nyquist:
+            raise _too_fast(f"machine {machine.id!r} band {band.name!r}", top, fs_hz)
+        if band.quantity == "velocity":
+            low = min(lo for lo, _ in _band_edges_at(machine, band, slow_hz))
+            cutoff = min(cutoff, 0.8 * low)
+        fixed = tuple(edges_fast) if band.low_hz is not None else None
+        bands.append(BandPlan(band, band.quantity, fixed))
+    cutoff = max(cutoff, 2.0 * df)
+    with np.errstate(divide="ignore"):
+        vel_w = (1000.0 / (2.0 * np.pi * freqs)) ** 2
+    vel_w[freqs < cutoff] = 0.0
+    overall_bins = slice(int(np.searchsorted(freqs, ov.low_hz, side="left")),
+                         int(np.searchsorted(freqs, ov.high_hz, side="right")))
+
+    defects = _defects(machine, point)
+    env_cfg = an.envelope
+    env_fmax = env_cfg.fmax_hz if env_cfg.fmax_hz is not None else _envelope_span_hz(machine, point, defects, fast_hz)
+    if env_cfg.band_hz is not None and env_cfg.band_hz[1] >= nyquist:
+        raise _too_fast(f"machine {machine.id!r} analysis.envelope.band_hz", env_cfg.band_hz[1], fs_hz)
+    auto_max = 0.98 * nyquist
+    min_bw = max(env_fmax, 20.0 * df)
+    if env_cfg.band_hz is None and env_cfg.auto_min_hz + min_bw > auto_max:
+        raise InputError(
+            f"sample rate {fs_hz:g} Hz is too low for the envelope band search of machine {machine.id!r}: "
+            f"it starts at auto_min_hz = {env_cfg.auto_min_hz:g} Hz and needs at least {min_bw:g} Hz of "
+            f"bandwidth below {auto_max:g} Hz"
+        )
+    envelope = EnvelopePlan(
+        band_hz=tuple(env_cfg.band_hz) if env_cfg.band_hz is not None else None,  # type: ignore[arg-type]
+        auto_min_hz=env_cfg.auto_min_hz,
+        auto_max_hz=auto_max,
+        fmax_hz=float(env_fmax),
+        lines=env_cfg.lines,
+        df_hz=float(env_fmax) / env_cfg.lines,
+        overlap_frac=an.overlap_pct / 100.0,
+        min_bandwidth_hz=min_bw,
+    )
+    return AnalysisPlan(
+        machine=machine,
+        point=point,
+        fs_hz=float(fs_hz),
+        fmax_hz=float(fmax),
+        lines=an.lines,
+        n_per_seg=n_per_seg,
+        n_overlap=n_overlap,
+        df_hz=df,
+        freqs_hz=freqs,
+        n_keep=n_keep,
+        window=window,
+        ac_power_gain=ac_gain,
+        velocity_weight=vel_w,
+        velocity_cutoff_hz=float(cutoff),
+        overall_bins=overall_bins,
+        iso_group=machine.iso_group,
+        support=machine.support,
+        bands=tuple(bands),
+        envelope=envelope,
+        defects=defects,
+        speed=speed,
+    )

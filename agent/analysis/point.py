@@ -1,0 +1,134 @@
+"""The full analysis of one measurement point: a block of acceleration in, a :class:`PointResult` out.
+
+    analyzer = PointAnalyzer(machine, point, fs_hz)      # builds the plan once
+    result = analyzer.analyze(block_m_s2, time_s=t)      # per update
+
+Per update: waveform indicators; Welch acceleration PSD (Hann); velocity by integration and the overall
+velocity RMS with its ISO 20816-3 zone; the running speed; band values (orders follow that speed);
+envelope and squared-envelope spectra; bearing findings. The block is calibrated acceleration in m/s^2
+(the caller divides volts by the sensor's sensitivity).
+
+Speed used when ``rpm`` is not given: ``fixed`` -> the configured rpm; ``estimated`` -> the harmonic-sum
+estimate within min_rpm..max_rpm, or the nominal rpm (source ``nominal``) when no clear series shows;
+``tach``/``mqtt`` without a reading -> the nominal rpm (source ``nominal``). A given ``rpm`` is reported
+with the speed mode as its source (``fixed`` for fixed and estimated machines) unless ``rpm_source``
+says otherwise.
+
+An analyzer keeps no state between blocks except cached set-ups, so blocks may be analysed in any order;
+it is not safe to share one analyzer between threads.
+"""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+
+from rotorwatch.analysis import bands as band_mod
+from rotorwatch.analysis import severity
+from rotorwatch.analysis.envelope import BlockSpectrum, EnvelopeKernel
+from rotorwatch.analysis.findings import find_defects
+from rotorwatch.analysis.indicators import waveform
+from rotorwatch.analysis.plan import AnalysisPlan, build_plan
+from rotorwatch.analysis.result import PointResult, Spectrum
+from rotorwatch.analysis.speed import N_HARMONICS, estimate_speed
+from rotorwatch.analysis.spectrum import WelchKernel
+from rotorwatch.analysis.velocity import overall_velocity_mm_s, velocity_line_rms, velocity_psd
+from rotorwatch.errors import InputError
+from rotorwatch.settings.models import Machine, Point
+
+log = logging.getLogger(__name__)
+
+
+class PointAnalyzer:
+    """Analyses blocks of one point at one sampling rate (see the module docstring)."""
+
+    def __init__(self, machine: Machine, point: Point, fs_hz: float, *, band_criterion: str = "cyclic"):
+        self.plan: AnalysisPlan = build_plan(machine, point, fs_hz)
+        self.band_criterion = band_criterion  # how a searched envelope band is chosen: cyclic | kurtosis
+        p = self.plan
+        self._welch = WelchKernel(p.window, p.n_overlap, p.fs_hz, dtype=np.float32)
+        self._envelope = EnvelopeKernel(p.envelope, p.fs_hz)
+
+    @property
+    def min_samples(self) -> int:
+        return self.plan.min_samples
+
+    def _check_block(self, block: np.ndarray) -> np.ndarray:
+        x = np.asarray(block, dtype=float)
+        if x.ndim != 1:
+            raise InputError(f"block has shape {x.shape}: expected one channel (a 1-D array)")
+        p = self.plan
+        if x.size < p.min_samples:
+            raise InputError(
+                f"block of {x.size} samples ({x.size / p.fs_hz:.3g} s) is too short: {p.lines} lines up to "
+                f"{p.fmax_hz:g} Hz and {p.envelope.lines} envelope lines up to {p.envelope.fmax_hz:g} Hz need at "
+                f"least {p.min_samples} samples ({p.min_samples / p.fs_hz:.3g} s at {p.fs_hz:g} Hz)"
+            )
+        if not np.isfinite(x).all():
+            raise InputError(f"block holds {int(np.count_nonzero(~np.isfinite(x)))} non-finite samples (NaN or inf)")
+        return x
+
+    def _speed(self, bs: BlockSpectrum, rpm: float | None, rpm_source: str | None) -> tuple[float, str]:
+        sp = self.plan.speed
+        if rpm is not None:
+            if not (np.isfinite(rpm) and rpm >= 0):
+                raise InputError(f"rpm = {rpm!r}: must be a finite speed >= 0")
+            return float(rpm), rpm_source or (sp.mode if sp.mode in ("tach", "mqtt") else "fixed")
+        if sp.mode == "fixed":
+            return sp.nominal_rpm, "fixed"
+        if sp.mode == "estimated":
+            top_hz = (N_HARMONICS + 2) * sp.max_rpm / 60.0  # type: ignore[operator]
+            n_bins = min(int(top_hz / bs.df_hz) + 2, bs.spec.size)
+            est = estimate_speed(bs.amplitude(n_bins), bs.df_hz, sp.min_rpm, sp.max_rpm)  # type: ignore[arg-type]
+            if est.clear:
+                return est.rpm, "estimated"
+            log.debug("speed estimate not clear (harmonics=%d) point=%s", est.harmonics_clear, self.plan.point.id)
+        return sp.nominal_rpm, "nominal"
+
+    def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
+                keep_spectra: bool = False, rpm_source: str | None = None) -> PointResult:
+        p = self.plan
+        x = self._check_block(block_m_s2)
+        wave, x0 = waveform(x)
+
+        accel_psd = self._welch.psd(x0)
+        if p.ac_power_gain is not None:
+            accel_psd *= p.ac_power_gain
+        vel_psd = velocity_psd(p, accel_psd)
+        overall = overall_velocity_mm_s(p, vel_psd)
+        zone = severity.zone(overall, p.iso_group, p.support)
+        accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
+
+        bs = self._envelope.block_spectrum(x0)
+        rpm_used, source = self._speed(bs, rpm, rpm_source)
+        shaft_hz = rpm_used / 60.0
+
+        env = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion)
+        band_values = band_mod.band_values(p, shaft_hz, accel_psd, vel_psd, env.envelope_psd, env.df_hz)
+        running = rpm_used > p.speed.stopped_rpm
+        findings = find_defects(env.squared_rms, env.df_hz, shaft_hz, p.defects) if running else []
+
+        spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
+        if keep_spectra:
+            freqs = p.freqs_hz[: p.n_keep]
+            spectra["acceleration"] = Spectrum(freqs, accel_rms, "m/s^2")
+            spectra["velocity"] = Spectrum(freqs, velocity_line_rms(p, accel_rms), "mm/s")
+            spectra["envelope"] = Spectrum(env.freqs_hz, env.envelope_rms, "m/s^2")
+        return PointResult(
+            machine_id=p.machine.id,
+            point_id=p.point.id,
+            time_s=float(time_s),
+            fs_hz=p.fs_hz,
+            n_samples=int(x.size),
+            rpm=float(rpm_used),
+            rpm_source=source,
+            overall_velocity_mm_s=overall,
+            iso_zone=zone,
+            bands=band_values,
+            waveform=wave,
+            envelope_band_hz=env.band_hz,
+            findings=findings,
+            envelope_kurtosis=None if np.isnan(env.kurtosis) else float(env.kurtosis),
+            **spectra,
+        )
