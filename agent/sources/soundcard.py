@@ -6,8 +6,7 @@ and the arrival time, and puts the copy on a bounded queue with ``put_nowait``. 
 logging, no locks, no waiting. A full queue (the consumer fell behind by more than ``queue_s``
 seconds) drops the block, counts an overflow and marks the next chunk ``gap=True``.
 
-Failure handling, as measured through PulseAudio's ALSA plugin (deploy notes in
-``/work/shared/recipes.md`` style):
+Failure handling, as measured through PulseAudio's ALSA plugin (tests/integration/test_capture.py):
 
 - A device that stops delivering (a stalled converter, a source removed from the sound server) keeps
   the stream "active" with no callbacks. ``read()`` returns None per timeout (stalls) and raises

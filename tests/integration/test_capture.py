@@ -231,6 +231,20 @@ def _soundcard_config(tmp_path: Path) -> Path:
     return path
 
 
+def test_devices_command_checks_the_configured_device(audio_env, tmp_path):
+    config = _soundcard_config(tmp_path)
+    done = subprocess.run([sys.executable, "-m", "rotorwatch", "devices", "--config", str(config)], env=audio_env,
+                          capture_output=True, text=True, timeout=60)
+    assert done.returncode == 0, done.stderr
+    assert "device 'rw_pipe_2ch' accepts 2 channel(s) at 48000 Hz float32" in done.stdout
+    bad = tmp_path / "bad.toml"
+    bad.write_text(config.read_text().replace('device = "rw_pipe_2ch"', 'device = "rw_nowhere"'))
+    done = subprocess.run([sys.executable, "-m", "rotorwatch", "devices", "--config", str(bad)], env=audio_env,
+                          capture_output=True, text=True, timeout=60)
+    assert done.returncode == 2 and "Traceback" not in done.stderr
+    assert "rw_nowhere" in done.stderr and "rw_pipe_2ch" in done.stderr
+
+
 def test_calibrate_measures_a_fed_reference_tone_within_one_percent(audio_device, audio_env, tmp_path):
     config = _soundcard_config(tmp_path)
     original = config.read_text()
