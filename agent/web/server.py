@@ -27,6 +27,7 @@ import hmac
 import ipaddress
 import json
 import logging
+import socket
 import threading
 from http import HTTPStatus
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
@@ -84,6 +85,42 @@ def _host_of(header: str) -> str:
     return header.rsplit(":", 1)[0] if header.count(":") == 1 else header
 
 
+class _Server(ThreadingHTTPServer):
+    """ThreadingHTTPServer that remembers its open connections, so stopping also ends keep-alive ones
+    (a browser polling every few seconds would otherwise go on talking to a stopped server)."""
+
+    daemon_threads = True
+
+    def __init__(self, *args, **kwargs) -> None:
+        self._conns: set[socket.socket] = set()
+        self._conns_lock = threading.Lock()
+        super().__init__(*args, **kwargs)
+
+    def get_request(self):
+        conn, addr = super().get_request()
+        with self._conns_lock:
+            self._conns.add(conn)
+        return conn, addr
+
+    def shutdown_request(self, request) -> None:
+        with self._conns_lock:
+            self._conns.discard(request)
+        super().shutdown_request(request)
+
+    def close_connections(self) -> None:
+        with self._conns_lock:
+            conns, self._conns = list(self._conns), set()
+        for conn in conns:
+            try:
+                conn.shutdown(socket.SHUT_RDWR)
+            except OSError:
+                pass
+
+
+class _Server6(_Server):
+    address_family = socket.AF_INET6
+
+
 class StatusServer:
     """Serve ``board`` on ``bind``:``port`` in a background thread."""
 
@@ -110,7 +147,7 @@ class StatusServer:
             if on_snapshot is not None:
                 self._actions["snapshot"] = on_snapshot
         self._static = {p.name: p for p in STATIC_DIR.iterdir() if p.is_file() and p.suffix in CONTENT_TYPES}
-        self._httpd: ThreadingHTTPServer | None = None
+        self._httpd: _Server | None = None
         self._thread: threading.Thread | None = None
 
     @property
@@ -133,18 +170,13 @@ class StatusServer:
         if self._httpd is not None:
             return self
         handler = type("BoundStatusHandler", (_Handler,), {"app": self})
-        server_cls = ThreadingHTTPServer
-        if ":" in self.bind:
-            import socket
-
-            server_cls = type("V6Server", (ThreadingHTTPServer,), {"address_family": socket.AF_INET6})
+        server_cls = _Server6 if ":" in self.bind else _Server
         try:
             httpd = server_cls((self.bind, self.requested_port), handler)
         except OSError as exc:
             raise RotorwatchError(
                 f"status_page: cannot listen on {self.bind}:{self.requested_port}: {exc.strerror or exc}"
             ) from exc
-        httpd.daemon_threads = True
         self._loopback_only = _is_loopback(self.bind)
         self._httpd = httpd
         self._thread = threading.Thread(target=httpd.serve_forever, kwargs={"poll_interval": 0.2},
@@ -167,6 +199,7 @@ class StatusServer:
         threading.Thread(target=_shutdown, daemon=True).start()
         if not done.wait(timeout_s):
             log.warning("status page did not stop within %.1f s", timeout_s)
+        httpd.close_connections()
         httpd.server_close()
         if thread is not None:
             thread.join(timeout=max(0.1, timeout_s))

@@ -66,9 +66,20 @@
     if (a !== 0 && (a < 1e-3 || a >= 1e5)) return x.toExponential(d - 1);
     return Number(x.toPrecision(d)).toLocaleString("en-US", { maximumFractionDigits: 6 });
   }
-  const unitText = (u) => (u || "").replace("^2", "²");
+  const unitText = (u) => (u || "").replace(/\^2/g, "²");
+  const MONTHS = ["Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec"];
+  const pad = (n) => String(n).padStart(2, "0");
   const clock = (t) => (t === null || t === undefined) ? "–" :
     new Date(t * 1000).toLocaleTimeString("en-GB", { hour12: false });
+  const day = (t) => { const d = new Date(t * 1000); return d.getDate() + " " + MONTHS[d.getMonth()]; };
+  // a moment in time: the clock alone when it is today (agent's "now"), else with the date
+  function when(t) {
+    if (t === null || t === undefined) return "–";
+    const now = ui.overview ? ui.overview.now_s : Date.now() / 1000;
+    if (day(t) === day(now) && Math.abs(now - t) < 86400) return clock(t);
+    const d = new Date(t * 1000);
+    return day(t) + " " + pad(d.getHours()) + ":" + pad(d.getMinutes());
+  }
   function ago(s) {
     if (s === null || s === undefined) return "never";
     if (s < 90) return Math.round(s) + " s ago";
@@ -225,7 +236,7 @@
       const points = m.points.map((p) => el("li", {
         "data-machine": m.id, "data-point": p.id, "data-state": p.state,
         "data-overall": p.overall_mm_s === null ? "" : p.overall_mm_s, "data-zone": p.zone || "",
-        title: p.reason, onclick: () => select(m.id, p.id),
+        title: unitText(p.reason), onclick: () => select(m.id, p.id),
       }, [
         tile(p.state),
         el("span", { class: "pt-name", text: p.name }),
@@ -249,7 +260,7 @@
             el("div", { class: "machine-state" }, [word(m.state)]),
           ]),
         ]),
-        el("div", { class: "reason", text: m.reason }),
+        el("div", { class: "reason", text: unitText(m.reason) }),
         el("div", { class: "facts" }, facts),
         el("ul", { class: "points" }, points),
       ]);
@@ -276,14 +287,14 @@
       return;
     }
     list.replaceChildren(...events.slice(0, 60).map((e) => el("li", { "data-to": e.to }, [
-      el("time", { text: clock(e.time_s) }),
+      el("time", { text: when(e.time_s) }),
       tile(e.to),
       el("span", {}, [
         el("b", { text: e.machine + (e.point ? "/" + e.point : "") + " " + e.value + ": " }),
         document.createTextNode((STATE_WORDS[e.from] || e.from) + " → " + (STATE_WORDS[e.to] || e.to) +
           (e.reading !== null ? " at " + fmt(e.reading) + " " + unitText(e.unit) : "")),
       ]),
-      el("span", { class: "ev-reason", text: e.reason }),
+      el("span", { class: "ev-reason", text: unitText(e.reason) }),
     ])));
   }
 
@@ -300,7 +311,7 @@
       tile(pd.state, true),
       el("div", {}, [
         el("div", { class: "title" }, [document.createTextNode(pd.name + "  "), word(pd.state)]),
-        el("div", { class: "reason", text: pd.reason + (pd.time_s ? " · analysed " + clock(pd.time_s) : "") }),
+        el("div", { class: "reason", text: unitText(pd.reason) + (pd.time_s ? " · analysed " + when(pd.time_s) : "") }),
       ]),
       overall,
     );
@@ -380,7 +391,9 @@
     }
     for (const [v, px, label] of xTicks) {
       ctx.beginPath(); ctx.moveTo(px + 0.5, box.y0); ctx.lineTo(px + 0.5, box.y1); ctx.stroke();
-      ctx.textAlign = "center"; ctx.textBaseline = "top"; ctx.fillText(label, px, box.y1 + 5);
+      ctx.textBaseline = "top";
+      ctx.textAlign = px > box.x1 - 24 ? "right" : px < box.x0 + 24 ? "left" : "center";
+      ctx.fillText(label, px, box.y1 + 5);
     }
     ctx.strokeStyle = css("--rule");
     ctx.strokeRect(box.x0 + 0.5, box.y0 + 0.5, box.x1 - box.x0, box.y1 - box.y0);
@@ -635,11 +648,16 @@
     const X = (v) => box.x0 + (box.x1 - box.x0) * (v - t0) / (t1 - t0 || 1);
     const Y = (v) => box.y1 - (box.y1 - box.y0) * v / ymax;
     const span = t1 - t0;
-    const target = Math.max(3, Math.floor((box.x1 - box.x0) / 80));
-    const STEPS = [1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600, 43200, 86400];
-    const step = STEPS.find((st) => span / st <= target) || 86400;
+    const long = span > 86400;
+    const target = Math.max(3, Math.floor((box.x1 - box.x0) / (long ? 110 : 80)));
+    const STEPS = [1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600, 43200,
+      86400, 172800, 345600, 604800, 1209600, 2592000];
+    const step = STEPS.find((st) => span / st <= target) || 2592000;
+    const label = (v) => step >= 86400 ? day(v) : long ? day(v) + " " + clock(v).slice(0, 5) : clock(v).slice(0, step >= 60 ? 5 : 8);
+    // whole days start at local midnight
+    const offset = new Date(t0 * 1000).getTimezoneOffset() * 60;
     const xt = [];
-    for (let v = Math.ceil(t0 / step) * step; v <= t1 && xt.length < 40; v += step) xt.push([v, X(v), clock(v).slice(0, step >= 60 ? 5 : 8)]);
+    for (let v = Math.ceil((t0 - offset) / step) * step + offset; v <= t1 && xt.length < 40; v += step) xt.push([v, X(v), label(v)]);
     axes(ctx, box, xt, linearTicks(0, ymax, 4, Y), "", unitText(s.unit));
     ctx.save();
     const stepLine = (arr, color) => {
@@ -676,7 +694,7 @@
     let best = -1, bd = Infinity;
     g.t.forEach((tt, i) => { const d = Math.abs(g.X(tt) - x); if (d < bd) { bd = d; best = i; } });
     if (best < 0 || bd > 30) { out.textContent = ""; return; }
-    out.textContent = clock(g.t[best]) + "  " + fmt(g.s.values[best]) + " " + unitText(g.s.unit) + "  (" + (STATE_WORDS[g.s.state[best]] || g.s.state[best] || "–") + ")";
+    out.textContent = when(g.t[best]) + "  " + fmt(g.s.values[best]) + " " + unitText(g.s.unit) + "  (" + (STATE_WORDS[g.s.state[best]] || g.s.state[best] || "–") + ")";
   }
 
   // --------------------------------------------------------------- actions (only with a token on the agent)
@@ -694,8 +712,29 @@
     out.textContent = r.ok ? (body.detail || kind + " done") : (body.error || "failed: HTTP " + r.status);
   }
 
+  // --------------------------------------------------------------- legend of the symbols
+  const LEGEND = [
+    ["normal", "every value below its levels"],
+    ["learning", "learning the healthy baseline"],
+    ["warning", "a value passed its warning level"],
+    ["alarm", "a value passed its alarm level"],
+    ["sensor_fault", "the sensor or its cable, not the machine"],
+    ["stopped", "machine below its running speed"],
+    ["no_data", "nothing received yet"],
+  ];
+  function renderLegend() {
+    const items = LEGEND.map(([s, text]) => el("li", {}, [tile(s), word(s), el("span", { class: "lg-text", text })]));
+    $("#legend").replaceChildren(
+      el("h2", { text: "Reading this page" }),
+      el("ul", { class: "legend-list" }, items),
+      el("p", { class: "legend-zone", text: "The bar under each point is the ISO 20816-3 zone scale of its overall velocity: " +
+        "A new machine, B long-term operation, C limited time, D damage likely. The pointer is the reading." }),
+    );
+  }
+
   // --------------------------------------------------------------- wiring
   function init() {
+    renderLegend();
     document.querySelectorAll("#quantity-seg button").forEach((b) => b.addEventListener("click", () => { ui.quantity = b.dataset.q; renderControls(); drawSpectrum(); }));
     document.querySelectorAll("#scale-seg button").forEach((b) => b.addEventListener("click", () => { ui.scale = b.dataset.scale; renderControls(); drawSpectrum(); }));
     $("#span-select").addEventListener("change", (e) => { ui.span[ui.quantity] = e.target.value; drawSpectrum(); });

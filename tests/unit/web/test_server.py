@@ -211,3 +211,18 @@ def test_stop_closes_the_port(board):
     with pytest.raises(OSError):
         socket.create_connection(("127.0.0.1", port), timeout=1).close()
     srv.stop()  # a second stop is harmless
+
+
+def test_stop_also_ends_keep_alive_connections(board):
+    # a browser keeps its connection open between polls; after stop() it must not be answered any more
+    srv = StatusServer(board, "127.0.0.1", 0).start()
+    conn = http.client.HTTPConnection("127.0.0.1", srv.port, timeout=5)
+    conn.request("GET", "/healthz")
+    resp = conn.getresponse()
+    resp.read()
+    assert resp.status == 200 and resp.getheader("Connection") != "close"
+    srv.stop(timeout_s=5)
+    with pytest.raises((http.client.HTTPException, OSError)):
+        conn.request("GET", "/healthz")
+        conn.getresponse().read()
+    conn.close()
