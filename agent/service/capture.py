@@ -42,7 +42,7 @@ POSIX_PLAUSIBLE_S = 1e9  # chunk times below this are not wall-clock (a scenario
 
 @dataclass(frozen=True)
 class CaptureStatus:
-    state: str  # starting | running | stalled | unavailable | ended | stopped
+    state: str  # starting | running | stalled | unavailable | ended | stopped (see Capture._run)
     reason: str
     since_s: float  # time.monotonic() of the change
 
@@ -85,7 +85,7 @@ class Capture:
         self.backoff_min_s = backoff_min_s
         self.backoff_max_s = backoff_max_s
         fs = acquisition.sample_rate_hz
-        block_s = acquisition.block_frames / fs / max(acquisition.speedup, 1.0)
+        block_s = acquisition.block_frames / fs / (acquisition.speedup if acquisition.source == "recording" else 1.0)
         self.read_timeout_s = read_timeout_s if read_timeout_s is not None else min(0.25, max(2.5 * block_s, 0.02))
         self._wake = wake
         self._stop = threading.Event()
@@ -115,9 +115,12 @@ class Capture:
             self.stats.set("source_up", 1 if state == "running" else 0)
             self._wake.set()
             level = logging.INFO if state in ("running", "stopped", "ended") else logging.WARNING
-            ok, held = self._limiter.allow(f"status:{state}:{reason}") if level == logging.WARNING else (True, 0)
+            ok, held = self._limiter.allow(f"status:{state}") if level == logging.WARNING else (True, 0)
             if ok:
-                log.log(level, f"source {state}", extra=fields(kind=self.acquisition.source, reason=reason, repeats=held))
+                extra = fields(kind=self.acquisition.source, reason=reason)
+                if held:
+                    extra["fields"]["repeats"] = held
+                log.log(level, f"source {state}", extra=extra)
 
     @property
     def source_time_s(self) -> float | None:
@@ -164,7 +167,10 @@ class Capture:
                     self.source = src
                     new_run = True
                     self.last_data_monotonic = time.monotonic()
-                    self._set_status("running", "source opened")
+                    # the status turns "running" with the first chunk, so a source that opens but
+                    # delivers nothing (a stalled sensor) does not flap between running and stalled
+                    if self.status.state == "unavailable":
+                        self._set_status("starting", "source opened, waiting for samples")
                 try:
                     chunk = self.source.read(self.read_timeout_s)  # type: ignore[attr-defined]
                 except (RotorwatchError, OSError, ValueError) as e:
@@ -191,7 +197,7 @@ class Capture:
                 new_run = False
                 self.last_data_monotonic = now
                 if self.status.state != "running":
-                    self._set_status("running", "samples flowing again")
+                    self._set_status("running", "samples flowing")
                 delay = self.backoff_min_s
         finally:
             self._close_source()

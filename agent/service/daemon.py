@@ -62,6 +62,9 @@ class RunOptions:
     max_updates: int | None = None  # stop after this many update rounds (tests, --once)
     duration_s: float | None = None  # stop after this many wall seconds (tests)
     stop_timeout_s: float = 5.0
+    # READY=1 goes out after the first good update; if the input stays away this long after start,
+    # it goes out anyway (the daemon is up and reporting the fault), so systemd does not kill it.
+    ready_grace_s: float = 30.0
 
 
 def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) -> Any:
@@ -73,7 +76,17 @@ def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) 
 def default_source_factory(config: Config, config_dir: Path) -> Any:
     from rotorwatch.sources.base import channel_full_scale_v, open_source
 
-    return open_source(config.acquisition, config_dir, full_scale_v=channel_full_scale_v(config))
+    options: dict[str, Any] = {}
+    if config.acquisition.source == "simulated":
+        options["segment_s"] = simulated_segment_s(config)
+    return open_source(config.acquisition, config_dir, full_scale_v=channel_full_scale_v(config), **options)
+
+
+def simulated_segment_s(config: Config) -> float:
+    """Seconds of unbroken signal per segment of a sped-up simulation: the longest analysis window plus
+    one update interval, so every segment holds at least one full window at an update time."""
+    longest = max(m.analysis.window_s for m in config.machines)
+    return longest + config.acquisition.update_interval_s + 2 * config.acquisition.block_frames / config.acquisition.sample_rate_hz
 
 
 def monitor_of(pipeline: Any) -> Any:
@@ -136,6 +149,7 @@ class Daemon:
         self._run_id: int | None = None
         self._last_no_input_report = 0.0
         self._stop_reason = "stopped"
+        self._started = time.monotonic()
 
     # ============================================================================== life cycle
     def request_stop(self, reason: str = "stop requested") -> None:
@@ -166,7 +180,7 @@ class Daemon:
         log.info("rotorwatch starting", extra=fields(
             version=__version__, config=str(self.config_path), agent=config.site.agent_id,
             machines=",".join(self.runtimes), source=config.acquisition.source, state_dir=str(self.state_dir)))
-        started = time.monotonic()
+        started = self._started = time.monotonic()
         try:
             self._start_sinks(config)  # publishers first ...
             self._start_capture(config)  # ... the source last
@@ -214,10 +228,15 @@ class Daemon:
                 layout[ch] = max(layout.get(ch, 0), rt.n_window + 2 * config.acquisition.block_frames)
         return layout
 
-    def _stall_after_s(self, config: Config) -> float:
+    @staticmethod
+    def _stall_after_s(config: Config) -> float:
+        """Wall seconds without samples after which the source counts as stalled: two update intervals
+        (of wall time), but never less than four blocks or half a second."""
         acq = config.acquisition
-        wall_interval = acq.update_interval_s / (acq.speedup if acq.source in ("simulated", "recording") else 1.0)
-        block_wall = acq.block_frames / acq.sample_rate_hz / max(acq.speedup, 1.0)
+        sped = acq.source in ("simulated", "recording")
+        wall_interval = acq.update_interval_s / (acq.speedup if sped else 1.0)
+        # a recording is paced at speedup x real time; a simulation streams at real time between its jumps
+        block_wall = acq.block_frames / acq.sample_rate_hz / (acq.speedup if acq.source == "recording" else 1.0)
         return max(2.0 * wall_interval, 4.0 * block_wall, 0.5)
 
     # ---------------------------------------------------------------------------------- sinks
@@ -327,6 +346,10 @@ class Daemon:
         status = cap.status
         if status.state in ("stalled", "unavailable", "ended"):
             self._report_no_input(status)
+            if not self.notifier.ready_sent and time.monotonic() - self._started > self.options.ready_grace_s:
+                log.warning("no good update yet; reporting ready without input",
+                            extra=fields(source=status.state, reason=status.reason))
+                self.notifier.ready(f"running without input: {status.state}: {status.reason}")
             return
         self._maybe_update(cap)
 
@@ -351,10 +374,10 @@ class Daemon:
             blocks, end_s = self._windows(rt)
             if blocks is None:
                 continue  # the window is still filling
-            rpm = self._rpm(rt, end_s)
+            rpm, rpm_source = self._rpm(rt)
             t0 = time.monotonic()
             try:
-                update = rt.pipeline.step(end_s, blocks, rpm=rpm)
+                update = rt.pipeline.step(end_s, blocks, rpm=rpm, rpm_source=rpm_source)
             except RotorwatchError as e:
                 ok, held = self._limiter.allow(f"step:{rt.machine.id}:{e}")
                 if ok:
@@ -393,20 +416,24 @@ class Daemon:
             end_s = end if end_s is None else min(end_s, end)
         return blocks, float(end_s)  # type: ignore[arg-type]
 
-    def _rpm(self, rt: MachineRuntime, end_s: float) -> float | None:
+    def _rpm(self, rt: MachineRuntime) -> tuple[float | None, str | None]:
+        """An outside speed reading for this update: the tach channel or the MQTT speed topic."""
         speed = rt.machine.speed
         if speed.mode == "tach" and rt.tach_channel is not None:
             from rotorwatch.sources.tach import rpm_from_pulses
 
             pulses = self.rings[rt.tach_channel].latest(rt.n_window)
             if pulses is None:
-                return None
+                return None, None
             rpm = rpm_from_pulses(pulses, self.config.acquisition.sample_rate_hz,  # type: ignore[union-attr]
                                   speed.tach_threshold_v, speed.pulses_per_rev)
-            return 0.0 if rpm is None else rpm  # no pulses over a whole window: the shaft stands still
+            return (0.0 if rpm is None else rpm), "tach"  # no pulses over a whole window: standing still
         if speed.mode == "mqtt" and self.speeds is not None:
-            return self.speeds.rpm(rt.machine.id)  # None when stale: the pipeline uses the nominal speed
-        return None
+            rpm = self.speeds.rpm(rt.machine.id)
+            if rpm is None:
+                return speed.nominal_rpm, "nominal"  # no reading, or older than mqtt_max_age_s
+            return rpm, "mqtt"
+        return None, None
 
     def _deliver(self, rt: MachineRuntime, update: MachineUpdate, blocks: dict[str, np.ndarray] | None) -> None:
         rt.last_update = update

@@ -280,7 +280,9 @@ class MqttLink:
         client.subscribe([(self.topics.command, self.settings.qos)] + [(t, self.settings.qos) for t in extra])
         if not self._stopping:
             self.publish(self.topics.availability, availability_payload(True), retain=True)
-            for topic, payload in retained.items():
+            # after a reconnect, re-send the current retained states (the broker may have lost them);
+            # on the first connect paho itself sends what was queued while connecting
+            for topic, payload in (retained.items() if not first else ()):
                 if topic != self.topics.availability:
                     self.publish(topic, payload, retain=True)
 
