@@ -1,0 +1,406 @@
+"""Spool + Forwarder against a real mosquitto: nothing is lost across a broker outage or a kill -9.
+
+The publisher appends records at a steady rate through :class:`Spool` and :class:`Forwarder` while a
+persistent-session QoS 1 subscriber (MQTT 5, clean_start=False + SessionExpiryInterval, as in the
+shared recipes section 2) collects them. The checks:
+
+- every seq the spool handed out arrives (loss count 0); duplicates are allowed, counted and printed;
+- order per lane: the lanes are the seq ranges between the forwarder's backlog split points (one per
+  connect); within each range the first arrivals of the seqs are increasing;
+- live records are not held behind the backlog: some live record arrives before the backlog is done.
+
+The broker is the session fixture ``mosquitto_broker``; a test that stops it starts it again.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+import uuid
+from pathlib import Path
+
+import paho.mqtt.client as mqtt
+import pytest
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.properties import Properties
+
+from rotorwatch.storage.forwarder import Forwarder
+from rotorwatch.storage.spool import Spool
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))  # tests/components.py, any import mode
+from components import MosquittoBroker  # noqa: E402
+
+pytestmark = pytest.mark.integration
+
+KIND_CYCLE = ("metrics",) * 8 + ("state", "event")
+
+
+def _topic(prefix: str, kind: str) -> str:
+    return f"{prefix}/m1/{ {'metrics': 'metrics', 'state': 'state', 'event': 'events'}[kind] }"
+
+
+class Collector:
+    """A persistent-session QoS 1 subscriber recording the seq of every message, in arrival order."""
+
+    def __init__(self, host: str, port: int, prefix: str) -> None:
+        self.seqs: list[int] = []
+        self.sessions_present: list[bool] = []
+        self._lock = threading.Lock()
+        self._subscribed = threading.Event()
+        self.prefix = prefix
+        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"collector-{prefix[-8:]}",
+                                  protocol=mqtt.MQTTv5)
+        self.client.reconnect_delay_set(1, 2)
+        self.client.on_connect = self._on_connect
+        self.client.on_subscribe = lambda *a: self._subscribed.set()
+        self.client.on_message = self._on_message
+        props = Properties(PacketTypes.CONNECT)
+        props.SessionExpiryInterval = 600
+        self.client.connect(host, port, keepalive=5, clean_start=False, properties=props)
+        self.client.loop_start()
+        assert self._subscribed.wait(10), "collector: no SUBACK within 10 s"
+
+    def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:
+        self.sessions_present.append(bool(flags.session_present))
+        if not reason_code.is_failure and not flags.session_present:
+            client.subscribe(f"{self.prefix}/#", qos=1)
+
+    def _on_message(self, client, userdata, msg) -> None:
+        seq = json.loads(msg.payload)["seq"]
+        with self._lock:
+            self.seqs.append(seq)
+
+    def received(self) -> list[int]:
+        with self._lock:
+            return list(self.seqs)
+
+    def wait_for_all(self, expected: set[int], timeout_s: float) -> set[int]:
+        """Wait (bounded) until every expected seq arrived; returns the missing ones."""
+        deadline = time.monotonic() + timeout_s
+        while True:
+            missing = expected - set(self.received())
+            if not missing or time.monotonic() > deadline:
+                return missing
+            time.sleep(0.05)
+
+    def close(self) -> None:
+        self.client.disconnect()
+        self.client.loop_stop()
+
+
+class TimedClient(mqtt.Client):
+    """A real paho client that also notes when each record was handed to it (monotonic s, seq)."""
+
+    def __init__(self, *args, **kwargs) -> None:
+        super().__init__(*args, **kwargs)
+        self.handed: list[tuple[float, int]] = []
+
+    def publish(self, topic, payload=None, qos=0, retain=False, properties=None):
+        try:
+            self.handed.append((time.monotonic(), json.loads(payload)["seq"]))
+        except (ValueError, KeyError, TypeError):
+            pass
+        return super().publish(topic, payload, qos=qos, retain=retain, properties=properties)
+
+
+def _publisher_client(host: str, port: int, client_id: str) -> TimedClient:
+    client = TimedClient(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
+    client.reconnect_delay_set(1, 2)
+    return client
+
+
+def _check_order_per_lane(arrivals: list[int], splits: list[int]) -> None:
+    """Within each lane range (between split points), first arrivals come in increasing seq order."""
+    first: list[int] = []
+    seen: set[int] = set()
+    for s in arrivals:
+        if s not in seen:
+            seen.add(s)
+            first.append(s)
+    bounds = sorted(set(splits))
+    for lo, hi in zip([0, *bounds], [*bounds, float("inf")]):
+        lane = [s for s in first if lo < s <= hi]
+        assert lane == sorted(lane), f"lane ({lo}, {hi}] out of order: first out-of-order pair at " \
+            f"{next(i for i in range(1, len(lane)) if lane[i] < lane[i - 1])}"
+
+
+def _duplicates(arrivals: list[int]) -> int:
+    return len(arrivals) - len(set(arrivals))
+
+
+def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_path):
+    broker = mosquitto_broker
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    collector = Collector(broker.host, broker.port, prefix)
+    spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
+    client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
+    backlog_rate = 150.0
+    forwarder = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=backlog_rate, live_reserve=4)
+    forwarder.install()
+    client.connect_async(broker.host, broker.port, keepalive=5)
+    client.loop_start()
+    forwarder.start()
+    n_records, rate_per_s = 900, 100.0
+    outage = {}
+    try:
+        t0 = time.monotonic()
+        for i in range(n_records):
+            kind = KIND_CYCLE[i % len(KIND_CYCLE)]
+            spool.append(kind, _topic(prefix, kind), {"i": i}, retain=(kind == "state"))
+            if i == 250:
+                outage["stop_s"] = time.monotonic() - t0
+                broker.stop()
+                outage["seq_at_stop"] = spool.last_seq
+            if i == 550:
+                broker.start()
+                outage["start_s"] = time.monotonic() - t0
+            delay = t0 + (i + 1) / rate_per_s - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+        append_s = time.monotonic() - t0
+        assert forwarder.wait_drained(30.0), f"spool not drained: {spool.stats()} {forwarder.stats()}"
+        drained_s = time.monotonic() - t0
+        expected = set(range(1, spool.last_seq + 1))
+        missing = collector.wait_for_all(expected, 20.0)
+    finally:
+        if not broker.running:
+            broker.start()
+        forwarder.stop()
+        client.disconnect()
+        client.loop_stop()
+        collector.close()
+    st, fs = spool.stats(), forwarder.stats()
+    spool.close()
+    arrivals = collector.received()
+    splits = [s.backlog_through_seq for s in forwarder.lane_splits]
+    reconnect = next(s for s in forwarder.lane_splits if s.backlog_through_seq > outage["seq_at_stop"])
+    backlog_n = reconnect.backlog_depth
+    print(f"\n[outage] appended {spool.last_seq} records in {append_s:.1f} s; broker down "
+          f"{outage['stop_s']:.1f}-{outage['start_s']:.1f} s; backlog {backlog_n} records at <= {backlog_rate:.0f}/s; "
+          f"drained at {drained_s:.1f} s; received {len(arrivals)} messages, loss {len(missing)}, "
+          f"duplicates {_duplicates(arrivals)}; lane splits {list(forwarder.lane_splits)}; forwarder {fs}")
+    assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
+    assert st.dropped_total == 0 and st.depth == 0
+    assert fs.connects >= 2 and len(splits) >= 2  # the outage really happened
+    assert collector.sessions_present[-1] is True  # the subscriber resumed its session
+    _check_order_per_lane(arrivals, splits)
+    # live data is not starved: a record appended after the reconnect arrives before the backlog ends
+    first_index = {}
+    for idx, s in enumerate(arrivals):
+        first_index.setdefault(s, idx)
+    B = reconnect.backlog_through_seq
+    assert min(first_index[s] for s in expected if s > B) < first_index[B]
+    # the backlog lane kept to its rate bound: handing n records over took at least (n - burst) / rate
+    # (a lower bound on time, so a slow machine cannot fail it)
+    after = [(t, s) for t, s in client.handed if t >= reconnect.connected_at_s and s <= B]
+    span_s = after[-1][0] - after[0][0]
+    print(f"[outage] backlog of {len(after)} records handed over in {span_s:.2f} s = "
+          f"{(len(after) - 1) / span_s:.0f} records/s (bound {backlog_rate:.0f}/s)")
+    burst = min(20 - 4, backlog_rate * 0.25)
+    assert span_s >= (len(after) - burst) / backlog_rate * 0.95
+
+
+def test_frozen_broker_requeues_what_was_in_flight(make_mosquitto_broker, tmp_path):
+    """SIGSTOP the broker: PUBACKs stop, the window fills, paho's keepalive gives up, the in-flight
+    records are requeued and published again after SIGCONT (duplicates counted, none lost)."""
+    broker = make_mosquitto_broker()  # private: freezing it must not disturb other tests
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    collector = Collector(broker.host, broker.port, prefix)
+    spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
+    client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
+    forwarder = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=300.0)
+    forwarder.install()
+    client.connect(broker.host, broker.port, keepalive=2)
+    client.loop_start()
+    forwarder.start()
+    frozen = False
+    try:
+        t0 = time.monotonic()
+        for i in range(700):
+            spool.append("metrics" if i % 10 else "event", _topic(prefix, "metrics" if i % 10 else "event"), {"i": i})
+            if i == 150:
+                os.kill(broker.pid, signal.SIGSTOP)
+                frozen = True
+            if i == 500:
+                os.kill(broker.pid, signal.SIGCONT)
+                frozen = False
+            delay = t0 + (i + 1) / 100.0 - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+        assert forwarder.wait_drained(30.0), f"not drained: {spool.stats()} {forwarder.stats()}"
+        missing = collector.wait_for_all(set(range(1, spool.last_seq + 1)), 20.0)
+    finally:
+        if frozen:
+            os.kill(broker.pid, signal.SIGCONT)
+        forwarder.stop()
+        client.disconnect()
+        client.loop_stop()
+        collector.close()
+    fs = forwarder.stats()
+    spool.close()
+    arrivals = collector.received()
+    print(f"\n[freeze] {len(set(arrivals))} records, {len(arrivals)} messages: loss {len(missing)}, "
+          f"duplicates {_duplicates(arrivals)}; requeued {fs.requeued}; splits {list(forwarder.lane_splits)}")
+    assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
+    assert fs.requeued > 0 and fs.connects >= 2  # the window really was in flight when the link died
+    _check_order_per_lane(arrivals, [sp.backlog_through_seq for sp in forwarder.lane_splits])
+
+
+_CHILD = textwrap.dedent("""
+    import json, os, sys, time
+    import paho.mqtt.client as mqtt
+    from rotorwatch.storage.forwarder import Forwarder
+    from rotorwatch.storage.spool import Spool
+
+    spool_path, host, port, prefix, start_i, n, rate, splits_path = sys.argv[1:9]
+    port, start_i, n, rate = int(port), int(start_i), int(n), float(rate)
+    KIND_CYCLE = ("metrics",) * 8 + ("state", "event")
+    TOPIC = {"metrics": "metrics", "state": "state", "event": "events"}
+    spool = Spool(spool_path, max_bytes=1 << 30, max_records=1_000_000)
+    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="edge-" + prefix[-8:], protocol=mqtt.MQTTv5)
+    client.reconnect_delay_set(1, 2)
+    fwd = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=400.0)
+    fwd.install()
+    client.connect_async(host, port, keepalive=5)
+    client.loop_start()
+    fwd.start()
+    fd = os.open(splits_path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+    written = 0
+    def flush_splits():
+        global written
+        splits = list(fwd.lane_splits)
+        for s in splits[written:]:
+            os.write(fd, (json.dumps(s.backlog_through_seq) + "\\n").encode())
+        written = len(splits)
+    t0 = time.monotonic()
+    for k in range(n):
+        i = start_i + k
+        kind = KIND_CYCLE[i % len(KIND_CYCLE)]
+        seq = spool.append(kind, f"{prefix}/m1/{TOPIC[kind]}", {"i": i}, retain=(kind == "state"))
+        flush_splits()
+        delay = t0 + (k + 1) / rate - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+    ok = fwd.wait_drained(30.0)
+    flush_splits()
+    fwd.stop()
+    client.disconnect()
+    client.loop_stop()
+    st = spool.stats()
+    print(json.dumps({"drained": ok, "last_seq": st.last_seq, "depth": st.depth, "dropped": st.dropped_total}))
+    spool.close()
+    sys.exit(0 if ok else 1)
+""")
+
+
+def test_kill_9_of_the_publisher_resumes_from_the_spool_on_disk(mosquitto_broker, tmp_path):
+    broker = mosquitto_broker
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    collector = Collector(broker.host, broker.port, prefix)
+    script = tmp_path / "publisher.py"
+    script.write_text(_CHILD)
+    spool_path, splits_path = tmp_path / "spool.sqlite", tmp_path / "splits.jsonl"
+
+    def launch(start_i: int, n: int, log_name: str) -> subprocess.Popen:
+        log = open(tmp_path / log_name, "wb")
+        return subprocess.Popen([sys.executable, str(script), str(spool_path), broker.host, str(broker.port),
+                                 prefix, str(start_i), str(n), "100", str(splits_path)],
+                                stdout=log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL)
+
+    first = second = None
+    try:
+        first = launch(0, 1000, "first.log")
+        # wait (bounded) until the first publisher has appended a few hundred records, then kill -9
+        deadline = time.monotonic() + 20
+        while len(set(collector.received())) < 250 and time.monotonic() < deadline and first.poll() is None:
+            time.sleep(0.02)
+        assert first.poll() is None, (tmp_path / "first.log").read_text()
+        first.send_signal(signal.SIGKILL)
+        assert first.wait(timeout=10) == -signal.SIGKILL
+        before_kill = set(collector.received())
+        received_before = len(before_kill)
+        second = launch(1000, 200, "second.log")
+        rc = second.wait(timeout=45)
+        out = (tmp_path / "second.log").read_text()
+        assert rc == 0, out
+        summary = json.loads(out.strip().splitlines()[-1])
+        expected = set(range(1, summary["last_seq"] + 1))
+        missing = collector.wait_for_all(expected, 15.0)
+    finally:
+        for proc in (first, second):
+            if proc is not None and proc.poll() is None:
+                proc.kill()
+                proc.wait(timeout=10)
+        collector.close()
+    with Spool(spool_path) as spool:  # the file the two processes shared, read back
+        st = spool.stats()
+    arrivals = collector.received()
+    splits = [json.loads(line) for line in splits_path.read_text().split()]
+    print(f"\n[kill -9] first publisher killed after {received_before} distinct records arrived; "
+          f"{summary['last_seq']} appended in total; received {len(arrivals)} messages, loss {len(missing)}, "
+          f"duplicates {_duplicates(arrivals)}; lane splits {splits}")
+    assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
+    # the second process continued the sequence (its 200 records come after everything seen before)
+    assert summary["last_seq"] >= max(before_kill) + 200
+    assert st.depth == 0 and st.dropped_total == 0
+    assert len(splits) >= 2
+    _check_order_per_lane(arrivals, splits)
+
+
+@pytest.mark.parametrize("window", [20, 100])
+def test_backlog_drain_figures(tmp_path, window):
+    """How fast a backlog drains with no rate bound (figures printed; completeness asserted).
+
+    A private broker: mosquitto keeps at most ``max_queued_messages`` (default 1000) QoS 1 messages
+    queued per subscriber and drops the rest with "Outgoing messages are being dropped" when the
+    subscriber falls behind (seen here with the default). That is the broker's bound, not the
+    spool's; this broker is configured to queue the whole run so the subscriber check is complete.
+    """
+    broker = MosquittoBroker(workdir=tmp_path / "broker")
+    with open(broker.config_path, "a") as conf:
+        conf.write("max_queued_messages 20000\n")
+    broker.start()
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    n = 5000
+    # fill fast (no fsync per append), then drain with the default power-loss durability
+    with Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000,
+               durability="process_crash") as fill:
+        for i in range(n):
+            kind = KIND_CYCLE[i % len(KIND_CYCLE)]
+            fill.append(kind, _topic(prefix, kind), {"i": i, "overall_mm_s": 2.31, "zone": "B"},
+                        retain=(kind == "state"))
+    try:
+        collector = Collector(broker.host, broker.port, prefix)
+    except BaseException:
+        broker.stop()
+        raise
+    spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
+    client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
+    forwarder = Forwarder(spool, client, in_flight_window=window, backlog_rate_per_s=1e9, live_reserve=0)
+    forwarder.install()
+    try:
+        client.connect(broker.host, broker.port, keepalive=10)
+        t0 = time.monotonic()
+        client.loop_start()
+        forwarder.start()
+        assert forwarder.wait_drained(40.0), f"not drained: {spool.stats()}"
+        drain_s = time.monotonic() - t0
+        missing = collector.wait_for_all(set(range(1, n + 1)), 15.0)
+    finally:
+        forwarder.stop()
+        client.disconnect()
+        client.loop_stop()
+        collector.close()
+        spool.close()
+        broker.stop()
+    arrivals = collector.received()
+    print(f"\n[drain] window {window}: {n} records acknowledged in {drain_s:.2f} s = {n / drain_s:.0f} records/s; "
+          f"loss {len(missing)}, duplicates {_duplicates(arrivals)}")
+    assert not missing
+    assert arrivals == sorted(arrivals)  # one lane, one connection: exactly seq order
