@@ -1,0 +1,368 @@
+"""``rotorwatch analyze FILE``: run the point analysis over one recording and report what it finds.
+
+Input: a WAV file (read with soundfile; calibrated float samples in g, or m/s^2 with ``--unit m/s2``;
+``--channel`` picks the channel) or a numpy ``.npz`` archive with ``signal`` (acceleration in g) and
+``fs`` (Hz). The whole recording is analysed as one block.
+
+The machine comes either from a configuration (``--config C --point P``, ``--machine M`` when the file
+describes more than one machine) or from the command line (quick mode): ``--rpm``, one ``--bearing`` per
+bearing (``n=9,d=0.3126in,D=1.537in,angle=0``; diameters in mm or in; ``name=`` optional, default b1,
+b2, ...; or the four multiples ``bpfo=..,bpfi=..,bsf=..,ftf=..``), ``--blades``. ``--envelope-band LO,HI``
+fixes the demodulation band in both modes; ``--rpm`` also overrides a configuration's speed.
+
+Output: a summary for a person, or with ``--format json`` one JSON document whose ``findings`` list holds
+``name``, ``frequency_hz``, ``strength``, ``bearing``, ``found_hz``, ``harmonics`` (empty when nothing
+stands out). A file that cannot be read, is empty, too short or sampled too slowly for the asked analysis
+gives one line naming the file and the limit, and exit code 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import re
+import sys
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from rotorwatch.errors import ConfigError, InputError
+from rotorwatch.settings.models import G_N
+
+MIN_RATE_HZ = 1000.0
+
+
+def add_parser(p: argparse.ArgumentParser) -> None:
+    p.add_argument("file", metavar="FILE", help="recording: WAV (calibrated float samples) or .npz with signal and fs")
+    src = p.add_argument_group("machine from a configuration")
+    src.add_argument("--config", metavar="C", help="machine configuration file (TOML)")
+    src.add_argument("--machine", metavar="M", help="machine id (needed when the file has several machines)")
+    src.add_argument("--point", metavar="P", help="measurement point id (needed when the machine has several)")
+    quick = p.add_argument_group("machine from the command line (quick mode)")
+    quick.add_argument("--rpm", type=float, help="shaft speed in r/min (quick mode: required; with --config: overrides)")
+    quick.add_argument("--bearing", action="append", default=[], metavar="SPEC",
+                       help="n=9,d=0.3126in,D=1.537in,angle=0[,name=de] or bpfo=..,bpfi=..,bsf=..,ftf=.. (repeatable)")
+    quick.add_argument("--blades", type=int, help="fan or impeller blade count")
+    p.add_argument("--envelope-band", metavar="LO,HI", help="fixed demodulation band in Hz (default: searched)")
+    p.add_argument("--unit", choices=("g", "m/s2"), default="g", help="unit of WAV samples (default g; .npz is always g)")
+    p.add_argument("--channel", type=int, default=0, help="WAV channel, 0-based (default 0)")
+    p.add_argument("--format", choices=("text", "json"), default="text", help="output format (default text)")
+
+
+# ------------------------------------------------------------------------------------------- reading
+def read_recording(path: str, unit: str = "g", channel: int = 0) -> tuple[np.ndarray, float]:
+    """Samples in m/s^2 and the sampling rate of a WAV or .npz recording; InputError naming the file."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"{path}: no such file")
+    if p.is_dir():
+        raise InputError(f"{path}: is a directory, expected a recording")
+    if p.suffix.lower() == ".npz":
+        x, fs = _read_npz(p)
+        scale = G_N
+    else:
+        x, fs = _read_sound(p, channel)
+        scale = G_N if unit == "g" else 1.0
+    if x.size == 0:
+        raise InputError(f"{path}: holds no samples")
+    if not (math.isfinite(fs) and fs >= MIN_RATE_HZ):
+        raise InputError(f"{path}: sample rate {fs:g} Hz is too low: the analysis needs at least {MIN_RATE_HZ:g} Hz")
+    bad = int(np.count_nonzero(~np.isfinite(x)))
+    if bad:
+        raise InputError(f"{path}: {bad} samples are not finite numbers (NaN or inf)")
+    return x.astype(float) * scale, fs
+
+
+def _read_npz(p: Path) -> tuple[np.ndarray, float]:
+    import zipfile  # noqa: PLC0415
+
+    try:
+        with np.load(p, allow_pickle=False) as z:
+            missing = [k for k in ("signal", "fs") if k not in z.files]
+            if missing:
+                raise InputError(f"{p}: .npz lacks {' and '.join(missing)} (has: {', '.join(z.files) or 'nothing'})")
+            x = np.asarray(z["signal"])
+            fs_arr = np.asarray(z["fs"])
+    except InputError:
+        raise
+    except (OSError, ValueError, zipfile.BadZipFile, EOFError) as e:
+        raise InputError(f"{p}: cannot read as .npz: {e}") from None
+    if fs_arr.size != 1 or not np.issubdtype(fs_arr.dtype, np.number):
+        raise InputError(f"{p}: fs must be one number (Hz), got shape {fs_arr.shape} of {fs_arr.dtype}")
+    if not np.issubdtype(x.dtype, np.number) or np.iscomplexobj(x):
+        raise InputError(f"{p}: signal must hold real numbers, got {x.dtype}")
+    x = np.squeeze(x)
+    if x.ndim > 1:
+        raise InputError(f"{p}: signal has shape {x.shape}: expected one channel")
+    return x.reshape(-1), float(fs_arr.reshape(-1)[0])
+
+
+def _read_sound(p: Path, channel: int) -> tuple[np.ndarray, float]:
+    import soundfile  # noqa: PLC0415
+
+    try:
+        info = soundfile.info(str(p))
+        data, fs = soundfile.read(str(p), dtype="float64", always_2d=True)
+    except (RuntimeError, soundfile.LibsndfileError, OSError) as e:
+        raise InputError(f"{p}: cannot read as a sound file: {e}") from None
+    if not 0 <= channel < data.shape[1]:
+        raise InputError(f"{p}: --channel {channel}: the file has {data.shape[1]} channel(s), 0..{data.shape[1] - 1}")
+    if not info.subtype.startswith(("FLOAT", "DOUBLE")):
+        print(f"rotorwatch: note: {p} holds {info.subtype} integer samples, read with full scale = 1; "
+              "calibrated recordings are float WAVs", file=sys.stderr)
+    return data[:, channel], float(fs)
+
+
+# ------------------------------------------------------------------------------------- quick machine
+_LENGTH = re.compile(r"^([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*(mm|in)$")
+
+
+def _number(spec: str, key: str, text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise InputError(f"--bearing {spec!r}: {key}={text!r} is not a number") from None
+    if not math.isfinite(v):
+        raise InputError(f"--bearing {spec!r}: {key}={text!r} is not a finite number")
+    return v
+
+
+def parse_bearing(spec: str, index: int) -> dict[str, Any]:
+    """``--bearing`` text -> Bearing fields (diameters converted to mm when their units differ)."""
+    fields: dict[str, str] = {}
+    for part in filter(None, (s.strip() for s in spec.split(","))):
+        key, sep, value = part.partition("=")
+        if not sep or not value:
+            raise InputError(f"--bearing {spec!r}: {part!r} is not key=value")
+        fields[key.strip()] = value.strip()
+    known = {"name", "n", "d", "D", "angle", "bpfo", "bpfi", "bsf", "ftf"}
+    unknown = sorted(set(fields) - known)
+    if unknown:
+        raise InputError(f"--bearing {spec!r}: unknown key {', '.join(unknown)} (known: {', '.join(sorted(known))})")
+    out: dict[str, Any] = {"id": fields.get("name", f"b{index}")}
+    multiples = [k for k in ("bpfo", "bpfi", "bsf", "ftf") if k in fields]
+    if multiples:
+        for k in multiples:
+            out[k] = _number(spec, k, fields[k])
+        return out
+    for k in ("n", "d", "D"):
+        if k not in fields:
+            raise InputError(f"--bearing {spec!r}: needs n (elements), d (element diameter) and D (pitch diameter), "
+                             "e.g. n=9,d=0.3126in,D=1.537in,angle=0")
+    n = _number(spec, "n", fields["n"])
+    if n != int(n):
+        raise InputError(f"--bearing {spec!r}: n={fields['n']}: the number of elements must be a whole number")
+    lengths = {}
+    for k in ("d", "D"):
+        m = _LENGTH.match(fields[k])
+        if m is None:
+            raise InputError(f"--bearing {spec!r}: {k}={fields[k]!r}: give a length with its unit, mm or in (e.g. {k}=0.3126in)")
+        lengths[k] = (float(m.group(1)), m.group(2))
+    unit = lengths["d"][1] if lengths["d"][1] == lengths["D"][1] else "mm"
+    to_unit = {("in", "mm"): 25.4, ("mm", "mm"): 1.0, ("in", "in"): 1.0}
+    out.update(elements=int(n), diameter_unit=unit,
+               element_diameter=lengths["d"][0] * to_unit[(lengths["d"][1], unit)],
+               pitch_diameter=lengths["D"][0] * to_unit[(lengths["D"][1], unit)],
+               contact_angle_deg=_number(spec, "angle", fields.get("angle", "0")))
+    return out
+
+
+def _model_error(what: str, e: Exception) -> InputError:
+    from pydantic import ValidationError  # noqa: PLC0415
+
+    if isinstance(e, ValidationError):
+        err = e.errors(include_url=False)[0]
+        loc = ".".join(str(x) for x in err["loc"])
+        msg = err["msg"].removeprefix("Value error, ")
+        return InputError(f"{what}: {loc + ': ' if loc else ''}{msg}")
+    return InputError(f"{what}: {e}")
+
+
+def quick_machine(args: argparse.Namespace, envelope_band: tuple[float, float] | None):
+    """A one-point machine from the command-line options."""
+    from rotorwatch.settings import models  # noqa: PLC0415
+
+    if args.rpm is None:
+        raise InputError("give --rpm (and --bearing for bearing findings), or --config C --point P")
+    bearings = []
+    for i, spec in enumerate(args.bearing, start=1):
+        fields = parse_bearing(spec, i)
+        try:
+            bearings.append(models.Bearing(**fields))
+        except Exception as e:  # pydantic ValidationError
+            raise _model_error(f"--bearing {spec!r}", e) from None
+    bands: list[dict[str, Any]] = [{"name": "1x", "quantity": "velocity", "feature": "shaft", "harmonics": 1},
+                                   {"name": "2x", "quantity": "velocity", "low_order": 1.9, "high_order": 2.1}]
+    if args.blades:
+        bands.append({"name": "blade-pass", "quantity": "velocity", "feature": "blade_pass", "harmonics": 2})
+    for b in bearings:
+        for feature in ("bpfo", "bpfi", "bsf"):
+            bands.append({"name": f"{b.id}-{feature}", "quantity": "envelope", "feature": feature, "bearing": b.id})
+    try:
+        return models.Machine(
+            id="recording",
+            speed=models.Speed(mode="fixed", rpm=args.rpm),
+            bearings=bearings,
+            blades=args.blades,
+            points=[models.Point(id="p1", sensor=models.Sensor(channel=0, sensitivity_mv_per_g=1000.0))],
+            bands=[models.Band(**b) for b in bands],
+            analysis=models.Analysis(envelope=models.Envelope(band_hz=envelope_band)),
+        )
+    except Exception as e:  # pydantic ValidationError
+        raise _model_error("quick-mode machine (--rpm/--bearing/--blades)", e) from None
+
+
+def config_machine(args: argparse.Namespace, envelope_band: tuple[float, float] | None):
+    from rotorwatch.settings.loading import load_config  # noqa: PLC0415
+
+    cfg = load_config(args.config)
+    ids = [m.id for m in cfg.machines]
+    if args.machine is None:
+        if len(ids) > 1:
+            raise ConfigError([f"{args.config}: holds machines {', '.join(ids)}: choose one with --machine"])
+        machine = cfg.machines[0]
+    elif args.machine in ids:
+        machine = cfg.machine(args.machine)
+    else:
+        raise ConfigError([f"{args.config}: no machine {args.machine!r}; known: {', '.join(ids)}"])
+    points = [p.id for p in machine.points]
+    if args.point is None:
+        if len(points) > 1:
+            raise ConfigError([f"{args.config}: machine {machine.id} has points {', '.join(points)}: choose one with --point"])
+        point = machine.points[0]
+    elif args.point in points:
+        point = machine.point(args.point)
+    else:
+        raise ConfigError([f"{args.config}: machine {machine.id} has no point {args.point!r}; known: {', '.join(points)}"])
+    if envelope_band is not None:
+        env = machine.analysis.envelope.model_copy(update={"band_hz": envelope_band})
+        machine = machine.model_copy(update={"analysis": machine.analysis.model_copy(update={"envelope": env})})
+    return machine, point
+
+
+def parse_band(text: str | None) -> tuple[float, float] | None:
+    if text is None:
+        return None
+    parts = text.split(",")
+    try:
+        lo, hi = (float(v) for v in parts)
+    except ValueError:
+        raise InputError(f"--envelope-band {text!r}: give two frequencies in Hz, LO,HI (e.g. 2000,7000)") from None
+    if not (0 < lo < hi and math.isfinite(hi)):
+        raise InputError(f"--envelope-band {text!r}: need 0 < LO < HI")
+    return lo, hi
+
+
+# ------------------------------------------------------------------------------------------- report
+def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dict[str, Any]:
+    from rotorwatch.analysis.labels import kinematic_lines, name_line, strongest_peaks  # noqa: PLC0415
+
+    units = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
+    band_q = {b.name: b.quantity for b in machine.bands_for(point.id)}
+    shaft_hz = result.rpm / 60.0
+    peaks = []
+    env = result.envelope
+    if env is not None and env.freqs_hz.size > 2:
+        bearing_ids = [point.bearing] if point.bearing else None
+        lines = kinematic_lines(machine, shaft_hz, float(env.freqs_hz[-1]) * 1.05, bearing_ids)
+        df = float(env.freqs_hz[1] - env.freqs_hz[0])
+        for hz, amp in strongest_peaks(env.freqs_hz, env.amplitude, count=8, min_hz=max(2.0, 0.25 * shaft_hz)):
+            peaks.append({"frequency_hz": round(hz, 3), "amplitude_m_s2": amp, "matches": name_line(hz, lines, df)})
+    w = result.waveform
+    return {
+        "file": path,
+        "fs_hz": fs_hz,
+        "n_samples": n,
+        "duration_s": n / fs_hz,
+        "machine": machine.id,
+        "point": point.id,
+        "rpm": result.rpm,
+        "rpm_source": result.rpm_source,
+        "shaft_hz": shaft_hz,
+        "overall_velocity_mm_s": result.overall_velocity_mm_s,
+        "overall_band_hz": [machine.overall.low_hz, machine.overall.high_hz],
+        "iso_zone": result.iso_zone,
+        "iso_group": machine.iso_group,
+        "support": machine.support,
+        "waveform": {"rms_m_s2": w.rms_m_s2, "peak_m_s2": w.peak_m_s2, "crest_factor": w.crest_factor,
+                     "kurtosis": w.kurtosis, "mean_m_s2": w.mean_m_s2},
+        "envelope_band_hz": list(result.envelope_band_hz),
+        "envelope_band_searched": machine.analysis.envelope.band_hz is None,
+        "envelope_kurtosis": result.envelope_kurtosis,
+        "bands": {name: {"value": v, "unit": units[band_q[name]], "quantity": band_q[name]} for name, v in result.bands.items()},
+        "findings": [{"name": f.name, "frequency_hz": f.frequency_hz, "strength": f.strength, "bearing": f.bearing,
+                      "found_hz": f.found_hz, "harmonics": f.harmonics_found, "series": f.series,
+                      "sidebands": f.sidebands_found} for f in result.findings],
+        "envelope_peaks": peaks,
+    }
+
+
+def format_text(r: dict[str, Any]) -> str:
+    w = r["waveform"]
+    lo, hi = r["envelope_band_hz"]
+    how = "searched" if r["envelope_band_searched"] else "fixed"
+    sk = f", spectral kurtosis {r['envelope_kurtosis']:.2f}" if r["envelope_kurtosis"] is not None else ""
+    lines = [
+        f"{r['file']}: {r['duration_s']:.2f} s at {r['fs_hz']:g} Hz ({r['n_samples']} samples), "
+        f"machine {r['machine']} point {r['point']}",
+        f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz",
+        f"  overall velocity  {r['overall_velocity_mm_s']:.3f} mm/s RMS ({r['overall_band_hz'][0]:g}-{r['overall_band_hz'][1]:g} Hz): "
+        f"ISO 20816-3 zone {r['iso_zone']} (group {r['iso_group']}, {r['support']})",
+        f"  waveform          RMS {w['rms_m_s2']:.4g} m/s^2 ({w['rms_m_s2'] / G_N:.4g} g), peak {w['peak_m_s2']:.4g} m/s^2, "
+        f"crest factor {w['crest_factor']:.2f}, kurtosis {w['kurtosis']:.2f}",
+        f"  envelope band     {lo:.0f}-{hi:.0f} Hz ({how}{sk})",
+    ]
+    if r["bands"]:
+        lines.append("  bands")
+        for name, b in r["bands"].items():
+            lines.append(f"    {name:<18}{b['quantity']:<14}{b['value']:.4g} {b['unit']}")
+    if r["findings"]:
+        lines.append("  findings (strongest first)")
+        for f in r["findings"]:
+            series = f" as {f['series']}" if f["series"] and f["series"] != f["name"] else ""
+            lines.append(f"    {f['name']:<5} bearing {f['bearing']}: expected {f['frequency_hz']:.2f} Hz, found "
+                         f"{f['found_hz']:.2f} Hz{series}, strength {f['strength']:.1f} "
+                         f"({f['harmonics']} harmonic{'s' if f['harmonics'] != 1 else ''}, {f['sidebands']} sideband{'s' if f['sidebands'] != 1 else ''})")
+    else:
+        lines.append("  findings          none: no bearing defect line stands out clearly")
+    if r["envelope_peaks"]:
+        lines.append("  strongest envelope peaks")
+        for p in r["envelope_peaks"]:
+            lines.append(f"    {p['frequency_hz']:8.2f} Hz  {p['amplitude_m_s2']:.4g} m/s^2  {p['matches'] or '-'}")
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    from rotorwatch.analysis.point import PointAnalyzer  # noqa: PLC0415
+
+    band = parse_band(args.envelope_band)
+    if args.config is not None:
+        machine, point = config_machine(args, band)
+    else:
+        if args.machine or args.point:
+            raise InputError("--machine and --point need --config")
+        machine = quick_machine(args, band)
+        point = machine.points[0]
+    if args.rpm is not None and not (math.isfinite(args.rpm) and args.rpm > 0):
+        raise InputError(f"--rpm {args.rpm:g}: must be a speed above 0")
+    x, fs = read_recording(args.file, args.unit, args.channel)
+    try:
+        analyzer = PointAnalyzer(machine, point, fs)
+        result = analyzer.analyze(x, rpm=args.rpm, keep_spectra=True)
+    except InputError as e:
+        raise InputError(f"{args.file}: {e}") from None
+    report = build_report(args.file, machine, point, result, fs, x.size)
+    if args.format == "json":
+        json.dump(report, sys.stdout, indent=2, allow_nan=False, default=_json_default)
+        sys.stdout.write("\n")
+    else:
+        print(format_text(report))
+    return 0
+
+
+def _json_default(o: Any) -> Any:
+    if isinstance(o, (np.floating, np.integer)):
+        return o.item()
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")

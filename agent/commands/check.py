@@ -1,0 +1,125 @@
+"""``rotorwatch check CONFIG``: validate a configuration and print what the analysis derives from it.
+
+Validation is the configuration models' (one line per problem: file, field path, what is wrong) plus the
+analysis plan of every point at the acquisition's sampling rate (bands, spans and the demodulation band
+must fit below Nyquist). Nothing is opened or probed: no devices, no network.
+
+For a valid file it prints, per machine, the kinematic frequencies at the configured (or nominal) speed in
+orders and Hz: 1x, 2x, blade pass, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing; then per point the
+spectrum and envelope set-up and each band's edges in Hz. Exit 0 when valid, 2 otherwise.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import TextIO
+
+from rotorwatch import kinematics
+from rotorwatch.errors import ConfigError, InputError
+from rotorwatch.settings.models import Config, Machine
+
+
+def add_parser(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", metavar="CONFIG", help="machine configuration file (TOML)")
+    p.add_argument("--rpm", type=float, default=None, help="print the frequency table at this speed instead of the configured one")
+
+
+def _plan_problems(path: str, cfg: Config) -> list[str]:
+    from rotorwatch.analysis.plan import build_plan  # noqa: PLC0415
+
+    fs = cfg.acquisition.sample_rate_hz
+    problems = []
+    for i, m in enumerate(cfg.machines):
+        for j, p in enumerate(m.points):
+            try:
+                plan = build_plan(m, p, fs)
+            except InputError as e:
+                problems.append(f"{path}: machines[{i}].points[{j}] ({m.id}/{p.id}) at acquisition.sample_rate_hz = {fs:g}: {e}")
+                continue
+            need_s = plan.min_samples / fs
+            if m.analysis.window_s < need_s:
+                problems.append(
+                    f"{path}: machines[{i}].analysis.window_s = {m.analysis.window_s:g}: shorter than the {need_s:.3g} s "
+                    f"point {p.id!r} needs ({plan.lines} lines to {plan.fmax_hz:g} Hz and {plan.envelope.lines} "
+                    f"envelope lines to {plan.envelope.fmax_hz:g} Hz); lengthen it or ask for fewer lines"
+                )
+    return problems
+
+
+def _speed_line(m: Machine, rpm: float, given: bool) -> str:
+    s = m.speed
+    if given:
+        where = "given on the command line"
+    elif s.mode == "fixed":
+        where = "fixed"
+    elif s.mode == "estimated":
+        where = f"nominal; estimated within {s.min_rpm:g}-{s.max_rpm:g} r/min"
+    else:
+        where = f"nominal; measured by {'tachometer' if s.mode == 'tach' else 'MQTT'} when running"
+    return f"speed {rpm:g} r/min ({where}), shaft frequency {rpm / 60.0:.3f} Hz"
+
+
+def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool = False) -> None:
+    from rotorwatch.analysis.plan import build_plan  # noqa: PLC0415
+    from rotorwatch.analysis.severity import boundaries  # noqa: PLC0415
+
+    f = rpm / 60.0
+    title = f"machine {m.id}" + (f" ({m.name})" if m.name else "")
+    out.write(f"\n{title}\n")
+    out.write(f"  {_speed_line(m, rpm, given)}\n")
+    ab, bc, cd = boundaries(m.iso_group, m.support)
+    out.write(f"  ISO 20816-3 group {m.iso_group}, {m.support} support: zone boundaries A/B {ab:g}, B/C {bc:g}, "
+              f"C/D {cd:g} mm/s RMS over {m.overall.low_hz:g}-{m.overall.high_hz:g} Hz\n")
+    out.write(f"  {'frequency':<22}{'order':>10}{'Hz':>12}\n")
+    rows = [("1x", 1.0), ("2x", 2.0)]
+    if m.blades:
+        rows.append((f"blade pass ({m.blades} blades)", float(m.blades)))
+    for name, order in rows:
+        out.write(f"  {name:<22}{order:>10.5f}{order * f:>12.2f}\n")
+    for b in m.bearings:
+        mult = kinematics.bearing_multiples(b)
+        out.write(f"  bearing {b.id}" + (f" ({b.name})" if b.name else "") + "\n")
+        for name, order in (("BPFO", mult.bpfo), ("BPFI", mult.bpfi), ("BSF", mult.bsf),
+                            ("2xBSF", 2 * mult.bsf), ("FTF", mult.ftf)):
+            out.write(f"    {name:<20}{order:>10.5f}{order * f:>12.2f}\n")
+    for p in m.points:
+        plan = build_plan(m, p, fs_hz)
+        env = plan.envelope
+        band = (f"{env.band_hz[0]:g}-{env.band_hz[1]:g} Hz" if env.band_hz is not None
+                else f"searched above {env.auto_min_hz:g} Hz")
+        out.write(f"  point {p.id}" + (f" ({p.name})" if p.name else "") + f", channel {p.sensor.channel}"
+                  + (f", bearing {p.bearing}" if p.bearing else "") + "\n")
+        out.write(f"    spectrum: {plan.lines} lines to {plan.fmax_hz:g} Hz at {fs_hz:g} Hz sampling "
+                  f"(segments of {plan.n_per_seg} samples, {plan.df_hz:.4g} Hz resolution); needs blocks of "
+                  f"at least {plan.min_samples / fs_hz:.3g} s, window {m.analysis.window_s:g} s\n")
+        out.write(f"    envelope: band {band}, {env.lines} lines to {env.fmax_hz:g} Hz\n")
+        bands = m.bands_for(p.id)
+        if not bands:
+            out.write("    no bands\n")
+            continue
+        out.write(f"    {'band':<18}{'quantity':<14}edges (Hz)\n")
+        for band_cfg in bands:
+            edges = kinematics.band_edges_hz(m, band_cfg, f)
+            text = ", ".join(f"{lo:.2f}-{hi:.2f}" for lo, hi in edges)
+            out.write(f"    {band_cfg.name:<18}{band_cfg.quantity:<14}{text}\n")
+
+
+def run(args: argparse.Namespace) -> int:
+    from rotorwatch.settings.loading import load_config  # noqa: PLC0415
+
+    path = args.config
+    cfg = load_config(path)
+    problems = _plan_problems(path, cfg)
+    if problems:
+        raise ConfigError(problems)
+    if args.rpm is not None and not args.rpm > 0:
+        raise ConfigError([f"--rpm = {args.rpm:g}: must be a speed above 0"])
+    out = sys.stdout
+    n_points = sum(len(m.points) for m in cfg.machines)
+    out.write(f"{path}: valid ({len(cfg.machines)} machine{'s' if len(cfg.machines) != 1 else ''}, "
+              f"{n_points} point{'s' if n_points != 1 else ''}, {cfg.acquisition.sample_rate_hz:g} Hz sampling)\n")
+    for m in cfg.machines:
+        rpm = args.rpm if args.rpm is not None else m.speed.nominal_rpm
+        print_machine(m, rpm, cfg.acquisition.sample_rate_hz, out, given=args.rpm is not None)
+    return 0
