@@ -87,6 +87,38 @@ def test_soundcard_source_captures_the_fed_signal_at_real_time(audio_device):
     assert "rw_pipe_2ch" in src.describe()
 
 
+def test_full_queue_drops_blocks_counts_them_and_flags_the_gap(audio_device):
+    """A consumer that stops reading: the callback never blocks, whole blocks are dropped and counted,
+    and the next chunk says gap=True. A frame counter on channel 0 shows exactly what was lost."""
+    n = 4 * FS
+    counter = np.arange(n, dtype=np.float64)
+    fed = np.stack([counter / 2**24, np.zeros(n)], axis=1).astype(np.float32)  # exact in float32 below 2^24
+    src = SoundcardSource("rw_pipe_2ch", FS, 2, 480, queue_s=0.0)  # the minimum queue: 8 blocks = 80 ms
+    src.start()
+    feed = audio_device.feed(fed, "rw_pipe_2ch")
+    try:
+        first = src.read(timeout_s=2.0)
+        assert first is not None and not first.gap
+        time.sleep(0.6)  # the consumer stalls; the callback keeps delivering
+        chunks = _read_frames(src, int(0.6 * FS), timeout_s=5.0)
+    finally:
+        feed.stop()
+        src.close()
+    frames = [first, *chunks]
+    index = [np.rint(c.frames[:, 0].astype(np.float64) * 2**24).astype(np.int64) for c in frames]
+    s = src.stats.snapshot()
+    assert s.overflows >= 1 and s.dropped_frames >= 480 and s.dropped_frames % 480 == 0
+    flagged = [i for i, c in enumerate(frames) if c.gap]
+    assert flagged and all(frames[i].overflow for i in flagged)
+    lost = 0
+    for i in range(1, len(frames)):
+        jump = int(index[i][0] - index[i - 1][-1] - 1)
+        assert np.all(np.diff(index[i]) == 1)           # inside a chunk nothing is ever lost
+        assert (jump > 0) == frames[i].gap, (i, jump)   # a gap flag exactly where frames are missing
+        lost += jump
+    assert lost == s.dropped_frames
+
+
 def test_stalled_feed_returns_none_within_timeout_and_close_is_bounded(audio_device):
     src = SoundcardSource("rw_pipe_2ch", FS, 2, 2400, stall_limit_s=2.0)
     src.start()
