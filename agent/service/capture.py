@@ -117,10 +117,8 @@ class Capture:
             level = logging.INFO if state in ("running", "stopped", "ended") else logging.WARNING
             ok, held = self._limiter.allow(f"status:{state}") if level == logging.WARNING else (True, 0)
             if ok:
-                extra = fields(kind=self.acquisition.source, reason=reason)
-                if held:
-                    extra["fields"]["repeats"] = held
-                log.log(level, f"source {state}", extra=extra)
+                log.log(level, f"source {state}", extra=fields(kind=self.acquisition.source, reason=reason,
+                                                               repeats=held or None))
 
     @property
     def source_time_s(self) -> float | None:

@@ -381,7 +381,7 @@ class Daemon:
             except RotorwatchError as e:
                 ok, held = self._limiter.allow(f"step:{rt.machine.id}:{e}")
                 if ok:
-                    log.error(f"analysis failed: {e}", extra=fields(machine=rt.machine.id, repeats=held))
+                    log.error(f"analysis failed: {e}", extra=fields(machine=rt.machine.id, repeats=held or None))
                 continue
             self.stats.set("update_duration_seconds", time.monotonic() - t0, machine=rt.machine.id)
             self.stats.set("last_update_timestamp_seconds", end_s, machine=rt.machine.id)
@@ -396,7 +396,7 @@ class Daemon:
                 ok, held = self._limiter.allow("behind")
                 if ok:
                     log.warning("analysis is behind the input; skipped updates", extra=fields(
-                        skipped=behind, interval_s=interval, repeats=held))
+                        skipped=behind, interval_s=interval, repeats=held or None))
             if good and not self.notifier.ready_sent:
                 log.info("first update done; ready", extra=fields(
                     states=",".join(f"{m}={rt.last_update.state}" for m, rt in self.runtimes.items() if rt.last_update)))
@@ -560,7 +560,7 @@ class Daemon:
             self.stats.inc("commands", result="rejected")
             ok, held = self._limiter.allow("commands-full")
             if ok:
-                log.warning("command queue full; command dropped", extra=fields(repeats=held))
+                log.warning("command queue full; command dropped", extra=fields(repeats=held or None))
 
     def _serve_requests(self) -> None:
         for _ in range(16):  # bounded per loop turn
@@ -593,7 +593,7 @@ class Daemon:
             self.stats.inc("commands", result="rejected")
             ok, held = self._limiter.allow(f"rejected:{e}")
             if ok:
-                log.warning(f"command rejected: {e}", extra=fields(origin=req.origin, repeats=held))
+                log.warning(f"command rejected: {e}", extra=fields(origin=req.origin, repeats=held or None))
             body = payloads.command_result_payload(agent, now, e.command, False, str(e), e.request_id)
             if self.publisher is not None and req.origin == "mqtt":
                 self.publisher.publish_command_result(body)

@@ -22,8 +22,8 @@ _PREFIX = "rotorwatch."
 
 
 def fields(**kv: Any) -> dict[str, Any]:
-    """``log.info("msg", extra=fields(machine="ef3"))``."""
-    return {"fields": kv}
+    """``log.info("msg", extra=fields(machine="ef3"))``; keys whose value is None are left out."""
+    return {"fields": {k: v for k, v in kv.items() if v is not None}}
 
 
 def _component(name: str) -> str:

@@ -226,7 +226,7 @@ class MqttLink:
             self.stats.inc("mqtt_publish_failures")
             ok, held = self._limiter.allow(f"publish:{int(rc)}")
             if ok:
-                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc), repeats=held))
+                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc), repeats=held or None))
             return False
         with self._lock:
             if info.mid in self._early_acks:
@@ -262,7 +262,7 @@ class MqttLink:
                     or "password" in str(reason_code).lower() else ""
                 log.error(f"mqtt broker refused the connection: {reason_code}{hint}; retrying with back-off",
                           extra=fields(host=self.settings.host, port=self.settings.port,
-                                       user=self.settings.username or "-", repeats=held))
+                                       user=self.settings.username or "-", repeats=held or None))
             return
         self._limiter.reset("connect-fail")
         first = not self._ever_connected
@@ -291,7 +291,7 @@ class MqttLink:
         ok, held = self._limiter.allow("connect-fail")
         if ok:
             log.warning("mqtt broker not reachable; retrying with back-off",
-                        extra=fields(host=self.settings.host, port=self.settings.port, repeats=held))
+                        extra=fields(host=self.settings.host, port=self.settings.port, repeats=held or None))
 
     def _handle_disconnect(self, client, userdata, disconnect_flags, reason_code, properties) -> None:
         was = self._connected.is_set()

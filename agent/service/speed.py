@@ -84,7 +84,7 @@ class SpeedBoard:
         except SpeedRejected as e:
             ok, held = self._limiter.allow(f"bad:{topic}")
             if ok:
-                log.warning("ignored speed reading", extra=fields(topic=topic, problem=str(e), repeats=held))
+                log.warning("ignored speed reading", extra=fields(topic=topic, problem=str(e), repeats=held or None))
             return False
         now = self._clock()
         with self._lock:

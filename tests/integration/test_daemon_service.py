@@ -1,0 +1,287 @@
+"""The daemon as a service: TLS + password broker, a wrong password, a missing broker, a stalled
+input that comes back, sd_notify over a real unix socket, a real Prometheus scraping /metrics, and
+start-up errors. ``rotorwatch run`` runs as a subprocess; every wait is bounded.
+"""
+
+from __future__ import annotations
+
+import json
+import signal
+import socket
+import threading
+import time
+import uuid
+
+import numpy as np
+import pytest
+
+from components import MosquittoBroker, MqttListener, free_port, wait_until
+
+from .daemon_support import (
+    ROTORWATCH,
+    DaemonProcess,
+    as_json,
+    daemon_config,
+    json_pred,
+    messages,
+    wait_message,
+    write_setup,
+)
+
+pytestmark = pytest.mark.integration
+
+AGENT = "halden-ef3"
+
+
+@pytest.fixture
+def daemons():
+    started: list[DaemonProcess] = []
+    yield started
+    for d in started:
+        d.stop()
+
+
+def prefix() -> str:
+    return f"rwsvc-{uuid.uuid4().hex[:8]}"
+
+
+def counter(text: str, name: str) -> float:
+    for line in text.splitlines():
+        if line.startswith(name + "{") or line.startswith(name + " "):
+            return float(line.rsplit(" ", 1)[1])
+    raise AssertionError(f"{name} not exposed")
+
+
+# --------------------------------------------------------------------------------------- TLS + auth
+def test_tls_broker_with_password_file(mosquitto_tls_broker, tmp_path, daemons):
+    b = mosquitto_tls_broker
+    (tmp_path / "mqtt-password").write_text(b.password + "\n")
+    p = prefix()
+    cfg = daemon_config(b, prefix=p, mqtt={"host": "localhost", "tls": True, "ca_file": str(b.ca_path),
+                                            "username": b.username, "password_file": "mqtt-password"})
+    d = DaemonProcess(write_setup(tmp_path, cfg))
+    daemons.append(d)
+    root = f"{p}/{AGENT}"
+    with MqttListener(b, topics=[f"{root}/#"]) as listener:
+        assert wait_message(listener, f"{root}/availability", lambda m: m.payload == b"online", 20), d.describe()
+        assert wait_message(listener, f"{root}/machine/ef3/point/de-h/state", timeout_s=30), d.describe()
+    assert b.password not in d.log()  # the secret never reaches the log
+    assert d.stop() == 0
+
+
+def test_wrong_password_is_reported_once_and_the_daemon_keeps_running(mosquitto_tls_broker, tmp_path, daemons):
+    b = mosquitto_tls_broker
+    (tmp_path / "mqtt-password").write_text("not-the-password\n")
+    cfg = daemon_config(b, prefix=prefix(), mqtt={"host": "localhost", "tls": True, "ca_file": str(b.ca_path),
+                                                  "username": b.username, "password_file": "mqtt-password",
+                                                  "reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
+    d = DaemonProcess(write_setup(tmp_path, cfg))
+    daemons.append(d)
+    assert d.wait_log(r"ERROR service\.mqtt mqtt broker refused the connection: Not authorized", 20), d.describe()
+    # retries go on with back-off, quietly: the count grows in the metrics, not in the log
+    assert wait_until(lambda: counter(d.scrape(), "rotorwatch_mqtt_connect_failures_total") >= 3, 15), d.describe()
+    refused = [ln for ln in d.log().splitlines() if "refused the connection" in ln]
+    assert len(refused) == 1, refused
+    assert "not-the-password" not in d.log()
+    # analysis carries on without the broker
+    assert wait_until(lambda: counter(d.scrape(), "rotorwatch_updates_total") >= 1, 20), d.describe()
+    assert d.alive()
+    assert d.stop() == 0
+    assert "Traceback" not in d.log()
+
+
+def test_missing_broker_never_blocks_start_and_is_joined_later(tmp_path, daemons):
+    port = free_port()
+    broker = MosquittoBroker(workdir=tmp_path / "late-broker", port=port)  # not started yet
+    p = prefix()
+    d = DaemonProcess(write_setup(tmp_path, daemon_config(broker, prefix=p)))
+    daemons.append(d)
+    try:
+        assert wait_until(lambda: counter(d.scrape(), "rotorwatch_updates_total") >= 1, 30), d.describe()
+        assert d.wait_log(r"mqtt broker not reachable", 5)
+        broker.start()
+        root = f"{p}/{AGENT}"
+        with MqttListener(broker, topics=[f"{root}/#"]) as listener:
+            assert wait_message(listener, f"{root}/availability", lambda m: m.payload == b"online", 20), d.describe()
+            assert wait_message(listener, f"{root}/machine/ef3/state", timeout_s=20), d.describe()
+        assert d.stop() == 0
+    finally:
+        broker.stop()
+
+
+# --------------------------------------------------------------------------------------- stalled input
+class FrameServer:
+    """A TCP server streaming float32 frames at real-time pace (a DAQ bridge); pausable."""
+
+    def __init__(self, fs_hz: float, channels: int):
+        self.fs_hz, self.channels = fs_hz, channels
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(4)
+        self.sock.settimeout(0.2)
+        self.port = self.sock.getsockname()[1]
+        self.sending = threading.Event()
+        self.sending.set()
+        self._stop = threading.Event()
+        self.connections = 0
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        chunk = 2048
+        t = np.arange(chunk) / self.fs_hz
+        k = 0
+        while not self._stop.is_set():
+            try:
+                conn, _ = self.sock.accept()
+            except socket.timeout:
+                continue
+            self.connections += 1
+            t_next = time.monotonic()
+            with conn:
+                while not self._stop.is_set():
+                    if not self.sending.is_set():
+                        time.sleep(0.02)
+                        t_next = time.monotonic()
+                        continue
+                    # 24.7 Hz (1482 r/min) at 10 mV plus broadband noise, volts at the input
+                    x = 0.01 * np.sin(2 * np.pi * 24.7 * (t + k * chunk / self.fs_hz))
+                    rng = np.random.default_rng(k)
+                    frames = np.stack([x + 0.003 * rng.standard_normal(chunk) for _ in range(self.channels)], axis=1)
+                    try:
+                        conn.sendall(frames.astype("<f4").tobytes())
+                    except OSError:
+                        break
+                    k += 1
+                    t_next += chunk / self.fs_hz
+                    time.sleep(max(0.0, t_next - time.monotonic()))
+
+    def close(self) -> None:
+        self._stop.set()
+        self._thread.join(5)
+        self.sock.close()
+
+
+def test_stalled_input_reports_sensor_fault_and_recovers(mosquitto_broker, tmp_path, daemons):
+    server = FrameServer(51200.0, 2)
+    p = prefix()
+    root = f"{p}/{AGENT}"
+    cfg = daemon_config(mosquitto_broker, prefix=p, speedup=1.0, update_interval_s=0.5,
+                        acquisition={"source": "stdin", "device": f"tcp:127.0.0.1:{server.port}", "speedup": 1.0})
+    del cfg["acquisition"]["scenario"]
+    try:
+        with MqttListener(mosquitto_broker, topics=[f"{root}/#"]) as listener:
+            d = DaemonProcess(write_setup(tmp_path, cfg))
+            daemons.append(d)
+            topic = f"{root}/machine/ef3/point/de-h/state"
+            assert wait_message(listener, topic, lambda m: as_json(m)["overall"]["velocity_mm_s"], 30), d.describe()
+            server.sending.clear()  # the sensor goes quiet; the connection stays open
+            t0 = time.monotonic()
+            stalled = wait_message(listener, topic, lambda m: as_json(m)["sensor"]["fault"] == "stalled", 15)
+            assert stalled is not None, d.describe()
+            print(f"\nstall reported {time.monotonic() - t0:.2f} s after the input went quiet")
+            assert as_json(stalled)["state"] == "sensor_fault"
+            assert wait_message(listener, f"{root}/events", json_pred(point="de-h", new_state="sensor_fault"), 5)
+            assert counter(d.scrape(), "rotorwatch_source_stalls_total") >= 1
+            assert d.alive()
+            n = len(listener.messages)
+            server.sending.set()
+            back = wait_until(lambda: [m for m in list(listener.messages)[n:] if m.topic == topic
+                                       and as_json(m)["sensor"]["ok"] and as_json(m)["overall"]["velocity_mm_s"]], 30)
+            assert back, d.describe()
+            assert server.connections >= 2  # the daemon reopened the source
+            assert d.stop() == 0
+    finally:
+        server.close()
+
+
+# --------------------------------------------------------------------------------------- sd_notify
+def test_sd_notify_ready_watchdog_stopping(mosquitto_broker, tmp_path, daemons):
+    sock_path = str(tmp_path / "notify.sock")
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(sock_path)
+    sock.settimeout(0.5)
+    got: list[str] = []
+    try:
+        cfg = daemon_config(mosquitto_broker, prefix=prefix())
+        d = DaemonProcess(write_setup(tmp_path, cfg), env={"NOTIFY_SOCKET": sock_path, "WATCHDOG_USEC": "2000000"})
+        daemons.append(d)
+
+        def collect_until(pred, timeout_s):
+            deadline = time.monotonic() + timeout_s
+            while time.monotonic() < deadline:
+                try:
+                    got.append(sock.recv(4096).decode())
+                except socket.timeout:
+                    pass
+                if pred():
+                    return True
+            return False
+
+        assert collect_until(lambda: any(m.startswith("READY=1") for m in got), 30), (got, d.describe())
+        assert collect_until(lambda: got.count("WATCHDOG=1") >= 2, 5), got
+        first_ready = next(m for m in got if m.startswith("READY=1"))
+        assert "STATUS=" in first_ready and "ef3" in first_ready
+        d.signal(signal.SIGTERM)
+        assert collect_until(lambda: "STOPPING=1" in got, 10), got
+        assert d.wait(15) == 0
+    finally:
+        sock.close()
+
+
+# --------------------------------------------------------------------------------------- Prometheus
+def test_real_prometheus_scrapes_the_daemon(tmp_path, daemons, prometheus_server):
+    d = DaemonProcess(write_setup(tmp_path, daemon_config(None, prefix=prefix())))
+    daemons.append(d)
+    port = d.metrics_port()
+    prom = prometheus_server([f"127.0.0.1:{port}"], job="rotorwatch", scrape_interval_s=1.0)
+    # Prometheus needs about 5-6 s for its first scrape (service discovery throttle; recipes §3)
+    up = prom.wait_for('up{job="rotorwatch"} == 1', timeout_s=20)
+    assert up, prom.targets()
+    result = prom.wait_for('rotorwatch_overall_velocity_meters_per_second{machine="ef3",point="de-h"}', timeout_s=20)
+    assert result, d.describe()
+    v = float(result[0]["value"][1])
+    assert 1e-4 < v < 5e-2  # m/s: the demo fan runs at about 1 mm/s overall
+    zones = prom.query('rotorwatch_iso_zone{machine="ef3",point="de-h"} == 1')
+    assert len(zones) == 1 and zones[0]["metric"]["rotorwatch_iso_zone"] in "ABCD"
+    assert d.stop() == 0
+
+
+# --------------------------------------------------------------------------------------- start-up errors
+def test_bad_config_exits_with_one_line(tmp_path):
+    import subprocess
+
+    cfg = daemon_config(None, prefix="x")
+    cfg["mqtt"] = {"port": 70000}
+    path = write_setup(tmp_path, cfg)
+    done = subprocess.run([*ROTORWATCH, "run", "--config", str(path), "--once"], capture_output=True, text=True,
+                          timeout=60, cwd=tmp_path)
+    assert done.returncode == 2
+    lines = done.stderr.strip().splitlines()
+    assert lines == [f"rotorwatch: {path}: mqtt.port = 70000: Input should be less than or equal to 65535"], lines
+
+
+def test_missing_password_file_exits_with_one_line(tmp_path, mosquitto_broker):
+    import subprocess
+
+    cfg = daemon_config(mosquitto_broker, prefix="x", mqtt={"username": "u", "password_file": "nope.txt"})
+    path = write_setup(tmp_path, cfg)
+    done = subprocess.run([*ROTORWATCH, "run", "--config", str(path), "--once"], capture_output=True, text=True,
+                          timeout=60, cwd=tmp_path)
+    assert done.returncode == 2, done.stderr
+    errors = [ln for ln in done.stderr.splitlines() if ln.startswith("rotorwatch:")]
+    assert len(errors) == 1 and "mqtt.password_file" in errors[0] and "no such file" in errors[0], done.stderr
+    assert "Traceback" not in done.stderr
+
+
+def test_once_runs_one_update_and_exits_zero(tmp_path):
+    import subprocess
+
+    path = write_setup(tmp_path, daemon_config(None, prefix="x", metrics=False))
+    done = subprocess.run([*ROTORWATCH, "run", "--config", str(path), "--once", "--log-format", "json"],
+                          capture_output=True, text=True, timeout=60, cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    records = [json.loads(ln) for ln in done.stderr.splitlines()]
+    assert any(r["message"] == "first update done; ready" for r in records)
+    assert records[-1]["message"] == "rotorwatch stopped" and records[-1]["updates"] == 1
