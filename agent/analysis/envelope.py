@@ -47,7 +47,7 @@ import numpy as np
 import scipy.fft
 
 from rotorwatch.analysis.plan import EDGE_TAPER_FRACTION, EnvelopePlan
-from rotorwatch.analysis.spectrum import WelchKernel
+from rotorwatch.analysis.spectrum import WelchKernel, hann
 from rotorwatch.errors import InputError
 
 BAND_EDGE_TAPER_FRACTION = 0.05  # of the band's bins, raised-cosine at each band edge
@@ -160,10 +160,8 @@ class EnvelopeKernel:
         key = (n_per_seg, m)
         k = self._welch_cache.get(key)
         if k is None:
-            from scipy.signal import get_window  # noqa: PLC0415
-
             n_overlap = min(int(round(n_per_seg * self.plan.overlap_frac)), n_per_seg - 1)
-            k = WelchKernel(get_window("hann", n_per_seg), n_overlap, fs_c)
+            k = WelchKernel(hann(n_per_seg), n_overlap, fs_c)
             if len(self._welch_cache) > 32:
                 self._welch_cache.clear()
             self._welch_cache[key] = k

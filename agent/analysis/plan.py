@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rotorwatch import kinematics
+from rotorwatch.analysis.spectrum import hann
 from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Band, Machine, Point
 
@@ -197,9 +198,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     df = fs_hz / n_per_seg
     n_keep = int(np.searchsorted(freqs, fmax, side="right"))
 
-    from scipy.signal import get_window  # noqa: PLC0415 - keep the import where it is needed
-
-    window = get_window("hann", n_per_seg)  # periodic ("DFT-even") Hann
+    window = hann(n_per_seg)
 
     corner = point.sensor.ac_coupling_corner_hz
     ac_gain = None

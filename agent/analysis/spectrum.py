@@ -30,6 +30,13 @@ from numpy.lib.stride_tricks import sliding_window_view
 from rotorwatch.errors import InputError
 
 
+def hann(n: int) -> np.ndarray:
+    """Periodic ("DFT-even") Hann window, w[k] = 0.5 - 0.5 cos(2 pi k / n): the same as
+    ``scipy.signal.get_window("hann", n)``, built here so the daemon does not import ``scipy.signal``
+    (tens of MB of resident memory) for one cosine."""
+    return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
+
+
 class WelchKernel:
     """Welch PSD for a fixed segment length, hop and window (set up once, applied to many blocks)."""
 
