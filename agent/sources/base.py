@@ -53,9 +53,12 @@ Adding an input kind (a DAQ driver, for example)
 ------------------------------------------------
 1. Write ``agent/sources/<kind>.py`` with a class derived from :class:`Source` (implement ``_open``,
    ``_read`` and ``_close``; keep the callback rules above) and a module-level function
-   ``from_settings(acquisition, config_dir, **options) -> Source`` that reads what it needs from the
-   :class:`~rotorwatch.settings.models.Acquisition` table (``device``, ``sample_rate_hz``,
-   ``channels``, ``block_frames``) and turns unusable values into one-line errors.
+   ``from_settings(acquisition, config_dir, *, full_scale_v=None, **options) -> Source`` that reads
+   what it needs from the :class:`~rotorwatch.settings.models.Acquisition` table (``device``,
+   ``sample_rate_hz``, ``channels``, ``block_frames``) and turns unusable values into one-line errors
+   (:class:`~rotorwatch.errors.SourceUnavailable` when retrying may help, ``InputError`` or
+   ``ConfigError`` when it cannot). Apply ``full_scale_v`` if the driver delivers digital full-scale
+   units; ignore it if it already delivers volts. Build nothing that does I/O before ``start()``.
 2. Add ``"<kind>": "rotorwatch.sources.<kind>"`` to :data:`BUILTIN_SOURCES` below and the name to the
    ``Acquisition.source`` choices in ``agent/settings/models.py`` (config validation rejects unknown
    kinds before any I/O).
