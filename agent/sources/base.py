@@ -58,7 +58,7 @@ Adding an input kind (a DAQ driver, for example)
    ``sample_rate_hz``, ``channels``, ``block_frames``) and turns unusable values into one-line errors
    (:class:`~rotorwatch.errors.SourceUnavailable` when retrying may help, ``InputError`` or
    ``ConfigError`` when it cannot). Apply ``full_scale_v`` if the driver delivers digital full-scale
-   units; ignore it if it already delivers volts. Build nothing that does I/O before ``start()``.
+   units; ignore it if it already delivers volts. Open no device or stream before ``start()``.
 2. Add ``"<kind>": "rotorwatch.sources.<kind>"`` to :data:`BUILTIN_SOURCES` below and the name to the
    ``Acquisition.source`` choices in ``agent/settings/models.py`` (config validation rejects unknown
    kinds before any I/O).
