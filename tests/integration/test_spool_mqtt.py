@@ -115,6 +115,29 @@ def _publisher_client(host: str, port: int, client_id: str) -> TimedClient:
     return client
 
 
+def _retained_seq(broker, topic: str, timeout_s: float = 5.0) -> int | None:
+    """The seq of the retained message a new (clean) subscriber gets on ``topic``."""
+    got: list[int] = []
+    done = threading.Event()
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"late-{uuid.uuid4().hex[:8]}",
+                    protocol=mqtt.MQTTv5)
+    c.on_connect = lambda cl, u, f, rc, p: cl.subscribe(topic, qos=1)
+
+    def on_message(cl, u, msg):
+        if msg.retain:
+            got.append(json.loads(msg.payload)["seq"])
+            done.set()
+    c.on_message = on_message
+    c.connect(broker.host, broker.port, keepalive=5)
+    c.loop_start()
+    try:
+        done.wait(timeout_s)
+    finally:
+        c.disconnect()
+        c.loop_stop()
+    return got[0] if got else None
+
+
 def _check_order_per_lane(arrivals: list[int], splits: list[int]) -> None:
     """Within each lane range (between split points), first arrivals come in increasing seq order."""
     first: list[int] = []
@@ -168,6 +191,8 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
         drained_s = time.monotonic() - t0
         expected = set(range(1, spool.last_seq + 1))
         missing = collector.wait_for_all(expected, 20.0)
+        last_state_seq = max(r for r in expected if KIND_CYCLE[(r - 1) % len(KIND_CYCLE)] == "state")
+        retained = _retained_seq(broker, _topic(prefix, "state"))
     finally:
         if not broker.running:
             broker.start()
@@ -190,6 +215,8 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
     assert fs.connects >= 2 and len(splits) >= 2  # the outage really happened
     assert collector.sessions_present[-1] is True  # the subscriber resumed its session
     _check_order_per_lane(arrivals, splits)
+    # the backlog did not overwrite the broker's retained state with a stale one
+    assert fs.retain_downgraded > 0 and retained == last_state_seq
     # live data is not starved: a record appended after the reconnect arrives before the backlog ends
     first_index = {}
     for idx, s in enumerate(arrivals):
@@ -250,6 +277,43 @@ def test_frozen_broker_requeues_what_was_in_flight(make_mosquitto_broker, tmp_pa
     assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
     assert fs.requeued > 0 and fs.connects >= 2  # the window really was in flight when the link died
     _check_order_per_lane(arrivals, [sp.backlog_through_seq for sp in forwarder.lane_splits])
+
+
+def test_a_record_the_broker_refuses_is_counted_and_does_not_block(tmp_path):
+    """An ACL denies one topic: MQTT 5 PUBACK carries 'Not authorized' (0x87); the record is deleted and
+    counted as broker_rejected, the records behind it still go (private broker with an acl_file)."""
+    broker = MosquittoBroker(workdir=tmp_path / "broker")
+    acl = tmp_path / "broker" / "acl"
+    acl.write_text("topic readwrite rwtest/ok/#\n")
+    with open(broker.config_path, "a") as conf:
+        conf.write(f"acl_file {acl}\n")
+    broker.start()
+    try:
+        collector = Collector(broker.host, broker.port, "rwtest/ok")
+        spool = Spool(tmp_path / "spool.sqlite")
+        client = _publisher_client(broker.host, broker.port, "edge-acl")
+        forwarder = Forwarder(spool, client)
+        forwarder.install()
+        client.connect(broker.host, broker.port, keepalive=10)
+        client.loop_start()
+        forwarder.start()
+        try:
+            ok = [spool.append("event", "rwtest/ok/m1/events", {"i": 0})]
+            denied = spool.append("event", "rwtest/denied/m1/events", {"i": 1})
+            ok += [spool.append("event", "rwtest/ok/m1/events", {"i": i}) for i in range(2, 6)]
+            assert forwarder.wait_drained(10.0), f"not drained: {spool.stats()}"
+            missing = collector.wait_for_all(set(ok), 10.0)
+        finally:
+            forwarder.stop()
+            client.disconnect()
+            client.loop_stop()
+            collector.close()
+        st, fs = spool.stats(), forwarder.stats()
+        spool.close()
+    finally:
+        broker.stop()
+    assert not missing and denied not in collector.received()
+    assert st.dropped["broker_rejected"] == 1 and fs.rejected == 1 and st.depth == 0
 
 
 _CHILD = textwrap.dedent("""
