@@ -69,6 +69,7 @@ def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]
         "alarm_level": num(v.alarm_level),
         "baseline": num(v.baseline),
         "latched": bool(v.latched),
+        "reason": getattr(v, "reason", ""),
     }
     if quantity is not None:
         out["quantity"] = quantity
