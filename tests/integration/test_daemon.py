@@ -163,6 +163,14 @@ def test_sighup_with_a_broken_config_keeps_running(mosquitto_broker, tmp_path, d
         assert wait_until(lambda: len(messages(listener, f"{root}/availability",
                                                lambda m: m.payload == b"online")) > n_online, 10)
         assert d.alive()
+        # an acquisition change reopens the source, and analysis goes on with the new interval
+        d.config_path.write_text(good.replace("update_interval_s = 0.5", "update_interval_s = 0.6"))
+        d.signal(signal.SIGHUP)
+        assert d.wait_log(r"configuration reloaded \(changed: acquisition, mqtt\)", 10), d.describe()
+        assert wait_until(lambda: d.log().count("source started") == 2, 10), d.describe()
+        n = len(messages(listener, f"{root}/machine/ef3/point/de-h/state"))
+        assert wait_until(lambda: len(messages(listener, f"{root}/machine/ef3/point/de-h/state")) > n, 20), d.describe()
+        assert d.alive()
     finally:
         listener.close()
     assert d.stop() == 0

@@ -285,3 +285,93 @@ def test_once_runs_one_update_and_exits_zero(tmp_path):
     records = [json.loads(ln) for ln in done.stderr.splitlines()]
     assert any(r["message"] == "first update done; ready" for r in records)
     assert records[-1]["message"] == "rotorwatch stopped" and records[-1]["updates"] == 1
+
+
+# --------------------------------------------------------------------------------------- speed sources
+def test_speed_from_the_mqtt_topic_and_its_expiry(mosquitto_broker, tmp_path, daemons):
+    p = prefix()
+    root = f"{p}/{AGENT}"
+    speed_topic = f"{p}/plc/ef3/speed"
+    cfg = daemon_config(mosquitto_broker, prefix=p)
+    cfg["machines"][0]["speed"] = {"mode": "mqtt", "rpm": 1482, "mqtt_topic": speed_topic, "mqtt_max_age_s": 3.0}
+    with MqttListener(mosquitto_broker, topics=[f"{root}/#"]) as listener:
+        d = DaemonProcess(write_setup(tmp_path, cfg))
+        daemons.append(d)
+        topic = f"{root}/machine/ef3/state"
+        first = wait_message(listener, topic, timeout_s=30)
+        assert first is not None, d.describe()
+        assert as_json(first)["rpm_source"] == "nominal" and as_json(first)["rpm"] == 1482.0
+        listener.client.publish(speed_topic, json.dumps({"rpm": 1450.5}), qos=1)
+        got = wait_message(listener, topic, json_pred(rpm_source="mqtt"), 15)
+        assert got is not None, d.describe()
+        assert as_json(got)["rpm"] == 1450.5
+        listener.client.publish(speed_topic, b"not a speed", qos=1)  # ignored, logged once
+        assert d.wait_log(r"ignored speed reading", 10)
+        # no fresh reading for mqtt_max_age_s: back to the nominal speed
+        n = len(listener.messages)
+        back = wait_until(lambda: [m for m in list(listener.messages)[n:] if m.topic == topic
+                                   and as_json(m)["rpm_source"] == "nominal"], 20)
+        assert back, d.describe()
+        assert d.stop() == 0
+
+
+def test_speed_from_a_tach_channel(mosquitto_broker, tmp_path, daemons):
+    p = prefix()
+    root = f"{p}/{AGENT}"
+    cfg = daemon_config(mosquitto_broker, prefix=p)
+    cfg["acquisition"]["channels"] = 3
+    cfg["machines"][0]["speed"] = {"mode": "tach", "rpm": 1482, "tach_channel": 2, "pulses_per_rev": 1,
+                                   "tach_threshold_v": 0.5}
+    scenario = {"scenario": {"name": "test: slower drive", "config": "rotorwatch.toml", "duration_days": 1.0, "seed": 5},
+                "healthy": {"speed_rpm": 1320.0, "speed_drift_pct": 0.0}}
+    with MqttListener(mosquitto_broker, topics=[f"{root}/#"]) as listener:
+        d = DaemonProcess(write_setup(tmp_path, cfg, scenario))
+        daemons.append(d)
+        got = wait_message(listener, f"{root}/machine/ef3/state", json_pred(rpm_source="tach"), 30)
+        assert got is not None, d.describe()
+        # the simulated drive runs at 1320 r/min; the nominal 1482 would mean the tach was not read
+        assert abs(as_json(got)["rpm"] - 1320.0) < 1.0, as_json(got)
+        assert d.stop() == 0
+
+
+# --------------------------------------------------------------------------------------- status page
+def test_status_page_served_by_the_daemon_with_its_actions(tmp_path, daemons):
+    import urllib.error
+    import urllib.request
+
+    token = "status-page-test-token-0123456789"
+    (tmp_path / "status-token").write_text(token + "\n")
+    cfg = daemon_config(None, prefix="x", speedup=2000.0)
+    cfg["status_page"] = {"bind": "127.0.0.1", "port": 0, "token_file": "status-token"}
+    d = DaemonProcess(write_setup(tmp_path, cfg))
+    daemons.append(d)
+    m = d.wait_log(r"status page listening url=(http://127\.0\.0\.1:\d+/)", 20)
+    assert m, d.describe()
+    base = m.group(1)
+
+    def get(path):
+        with urllib.request.urlopen(base + path, timeout=5) as r:
+            return json.loads(r.read())
+
+    assert wait_until(lambda: get("api/overview")["machines"][0]["state"] != "no_data", 30), d.describe()
+    view = get("api/overview")
+    assert view["machines"][0]["id"] == "ef3" and set(view["actions"]) == {"acknowledge", "snapshot"}
+    assert get("healthz")["status"] == "ok"
+
+    def post(path, auth):
+        req = urllib.request.Request(base + path, data=b"{}", method="POST",
+                                     headers={"Content-Type": "application/json", **({"Authorization": f"Bearer {auth}"} if auth else {})})
+        try:
+            with urllib.request.urlopen(req, timeout=15) as r:
+                return r.status, json.loads(r.read())
+        except urllib.error.HTTPError as e:
+            return e.code, json.loads(e.read() or b"{}")
+
+    assert post("api/acknowledge/ef3", None)[0] == 401
+    status, body = post("api/snapshot/ef3", token)
+    assert status == 200 and body["ok"] and "snapshot" in body["detail"], body
+    assert list((tmp_path / "state" / "snapshots" / "ef3").glob("*.npz"))
+    status, body = post("api/acknowledge/ef3", token)
+    assert status == 200 and "latched" in body["detail"], body  # "nothing latched to clear" or "cleared ..."
+    assert post("api/acknowledge/nope", token)[0] == 404
+    assert d.stop() == 0
