@@ -239,9 +239,22 @@ def decide(cands: list[Candidate], shaft_hz: float, df_hz: float, defects: tuple
     return findings
 
 
+def assess(ses: np.ndarray, df_hz: float, shaft_hz: float,
+           defects: tuple[DefectPlan, ...]) -> tuple[list[Finding], dict[str, float]]:
+    """Findings of one update (empty when nothing stands out clearly) and the prominence of every
+    defect's fundamental (peak / floor, the better BSF series), keyed ``"BPFO:<bearing>"``, whether it
+    passed or not: a trendable measure of how close each defect is to a finding."""
+    if shaft_hz <= 0 or not defects:
+        return [], {}
+    cands = candidates(ses, df_hz, shaft_hz, defects)
+    # 0.0: no line at all (no local maximum) within the defect's window
+    prominence: dict[str, float] = {f"{d.name.upper()}:{d.bearing_id}": 0.0 for d in defects}
+    for c in cands:
+        key = f"{c.name}:{c.bearing}"
+        prominence[key] = max(prominence.get(key, 0.0), float(c.fundamental.ratio))
+    return decide(cands, shaft_hz, df_hz, defects, ses.size * df_hz), prominence
+
+
 def find_defects(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[DefectPlan, ...]) -> list[Finding]:
     """Findings of one update (empty when nothing stands out clearly)."""
-    if shaft_hz <= 0 or not defects:
-        return []
-    top_hz = ses.size * df_hz
-    return decide(candidates(ses, df_hz, shaft_hz, defects), shaft_hz, df_hz, defects, top_hz)
+    return assess(ses, df_hz, shaft_hz, defects)[0]

@@ -27,7 +27,7 @@ import numpy as np
 from rotorwatch.analysis import bands as band_mod
 from rotorwatch.analysis import severity
 from rotorwatch.analysis.envelope import BlockSpectrum, EnvelopeKernel
-from rotorwatch.analysis.findings import find_defects
+from rotorwatch.analysis.findings import assess
 from rotorwatch.analysis.indicators import waveform
 from rotorwatch.analysis.plan import AnalysisPlan, build_plan
 from rotorwatch.analysis.result import PointResult, Spectrum
@@ -107,7 +107,7 @@ class PointAnalyzer:
         env = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion)
         band_values = band_mod.band_values(p, shaft_hz, accel_psd, vel_psd, env.envelope_psd, env.df_hz)
         running = rpm_used > p.speed.stopped_rpm
-        findings = find_defects(env.squared_rms, env.df_hz, shaft_hz, p.defects) if running else []
+        findings, prominence = assess(env.squared_rms, env.df_hz, shaft_hz, p.defects) if running else ([], {})
 
         spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
         if keep_spectra:
@@ -130,5 +130,6 @@ class PointAnalyzer:
             envelope_band_hz=env.band_hz,
             findings=findings,
             envelope_kurtosis=None if np.isnan(env.kurtosis) else float(env.kurtosis),
+            defect_prominence=prominence,
             **spectra,
         )

@@ -62,3 +62,5 @@ class PointResult:
     velocity: Spectrum | None = None
     envelope: Spectrum | None = None
     envelope_kurtosis: float | None = None  # spectral kurtosis of the demodulation band (when chosen by it)
+    # peak / local floor of each defect's fundamental in the squared-envelope spectrum, "BPFO:<bearing>"
+    defect_prominence: dict[str, float] = field(default_factory=dict)

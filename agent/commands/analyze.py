@@ -295,6 +295,7 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         "findings": [{"name": f.name, "frequency_hz": f.frequency_hz, "strength": f.strength, "bearing": f.bearing,
                       "found_hz": f.found_hz, "harmonics": f.harmonics_found, "series": f.series,
                       "sidebands": f.sidebands_found} for f in result.findings],
+        "defect_prominence": dict(result.defect_prominence),
         "envelope_peaks": peaks,
     }
 
