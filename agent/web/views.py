@@ -20,18 +20,9 @@ from typing import Iterable, Sequence
 import numpy as np
 
 from rotorwatch import kinematics
+from rotorwatch.analysis import severity
 from rotorwatch.analysis.result import PointResult, Spectrum
 from rotorwatch.settings.models import Machine
-
-# ISO 20816-3 zone boundaries A/B, B/C, C/D for broadband housing velocity (mm/s RMS, 10-1000 Hz), by
-# machine group and support. Source: ISO 10816-3:2009 Tables A.1/A.2, believed unchanged in ISO 20816-3
-# Annex A (from memory, unconfirmed; see shared references.md section 1).
-ISO_BOUNDARIES_MM_S: dict[tuple[int, str], tuple[float, float, float]] = {
-    (1, "rigid"): (2.3, 4.5, 7.1),
-    (1, "flexible"): (3.5, 7.1, 11.0),
-    (2, "rigid"): (1.4, 2.8, 4.5),
-    (2, "flexible"): (2.3, 4.5, 7.1),
-}
 
 #: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
 MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3}
@@ -233,8 +224,8 @@ def iso_view(machine: Machine) -> dict:
     return {
         "group": machine.iso_group,
         "support": machine.support,
-        "boundaries_mm_s": list(ISO_BOUNDARIES_MM_S[(machine.iso_group, machine.support)]),
-        "zones": ["A", "B", "C", "D"],
+        "boundaries_mm_s": list(severity.boundaries(machine.iso_group, machine.support)),
+        "zones": list(severity.ZONES),
     }
 
 
