@@ -60,7 +60,7 @@ def _value_text(v: float | None) -> str:
     return "-" if v is None else f"{v:.6g}"
 
 
-def _table(headers: list[str], rows: list[list[str]], right: set[int]) -> str:
+def render_table(headers: list[str], rows: list[list[str]], right: set[int]) -> str:
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(headers)]
 
     def line(cells: list[str]) -> str:
@@ -101,7 +101,7 @@ def _print_rows(rows: list[TrendRow], fmt: str) -> None:
         return
     body = [[format_time_utc(r.time_s), r.machine, r.point or "-", r.name, _value_text(r.value), r.unit, r.state]
             for r in rows]
-    print(_table(["time (UTC)", "machine", "point", "value", "reading", "unit", "state"], body, right={4}))
+    print(render_table(["time (UTC)", "machine", "point", "value", "reading", "unit", "state"], body, right={4}))
 
 
 def _print_series(store: TrendStore, args: argparse.Namespace) -> int:
@@ -117,5 +117,5 @@ def _print_series(store: TrendStore, args: argparse.Namespace) -> int:
         return 0
     body = [[s.machine, s.point or "-", s.name, s.unit, str(s.rows), format_time_utc(s.first_s), format_time_utc(s.last_s)]
             for s in found]
-    print(_table(["machine", "point", "value", "unit", "rows", "first (UTC)", "last (UTC)"], body, right={4}))
+    print(render_table(["machine", "point", "value", "unit", "rows", "first (UTC)", "last (UTC)"], body, right={4}))
     return 0

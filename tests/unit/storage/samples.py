@@ -27,13 +27,13 @@ def spectra(fs_hz: float = 12800.0, n_lines: int = 2048, shaft_hz: float = 24.5)
 
 
 def point_result(point_id: str, t: float, fs_hz: float = 12800.0, with_spectra: bool = False,
-                 rpm: float = 1470.0) -> PointResult:
+                 rpm: float = 1470.0, overall_mm_s: float = 2.2) -> PointResult:
     acc = vel = env = None
     if with_spectra:
         acc, vel, env = spectra(fs_hz, shaft_hz=rpm / 60.0)
     return PointResult(
         machine_id="ahu-3", point_id=point_id, time_s=t, fs_hz=fs_hz, n_samples=int(4 * fs_hz), rpm=rpm,
-        rpm_source="fixed", overall_velocity_mm_s=2.2, iso_zone="A",
+        rpm_source="fixed", overall_velocity_mm_s=overall_mm_s, iso_zone="A",
         bands={"shaft_1x": 1.8, "bearing_env": 0.05},
         waveform=Waveform(peak_m_s2=3.1, rms_m_s2=0.9, crest_factor=3.44, kurtosis=3.1, mean_m_s2=0.001),
         envelope_band_hz=(2000.0, 4000.0), acceleration=acc, velocity=vel, envelope=env,
@@ -41,7 +41,7 @@ def point_result(point_id: str, t: float, fs_hz: float = 12800.0, with_spectra: 
 
 
 def update(t: float, overall: float = 2.2, state: str = "normal", points=("de", "nde"),
-           with_spectra: bool = False, events: list[AlarmEvent] | None = None) -> MachineUpdate:
+           with_spectra: bool = False, events: list[AlarmEvent] | None = None, rpm: float = 1470.0) -> MachineUpdate:
     pts = {}
     for pid in points:
         values = {
@@ -50,8 +50,9 @@ def update(t: float, overall: float = 2.2, state: str = "normal", points=("de", 
             "bearing_env": value("bearing_env", float("nan"), "m/s^2", "learning", None, None, None),
         }
         pts[pid] = PointUpdate(point_id=pid, state=state, reason="", health=SensorHealth(ok=True),
-                               result=point_result(pid, t, with_spectra=with_spectra), values=values)
-    return MachineUpdate(machine_id="ahu-3", time_s=t, rpm=1470.0, rpm_source="fixed", state=state, reason="",
+                               result=point_result(pid, t, with_spectra=with_spectra, overall_mm_s=overall, rpm=rpm),
+                               values=values)
+    return MachineUpdate(machine_id="ahu-3", time_s=t, rpm=rpm, rpm_source="fixed", state=state, reason="",
                          points=pts, events=list(events or []))
 
 

@@ -1,0 +1,95 @@
+"""When to take an evidence snapshot: on state transitions and once a day.
+
+:class:`SnapshotPolicy` looks at each :class:`~rotorwatch.alarms.records.MachineUpdate` and answers
+``(reason, detail)`` or ``None``:
+
+- ``transition``: an event of the update moves a value, point or machine into one of
+  ``on_transition_to`` (``warning``, ``alarm``, ``sensor_fault``), at most once per ``min_interval_s``
+  per machine (an alarm that flaps does not fill the disk; the quota still bounds it);
+- ``schedule``: the daily slot ``daily_at_utc`` has passed and no scheduled snapshot of the machine
+  was taken since (see :class:`DailySchedule`).
+
+The policy remembers what it answered (it assumes the caller saves the snapshot) and, when given the
+store, starts from the newest snapshots on disk, so a restart neither repeats nor skips the day's one.
+Requests from an operator (``command``) need no policy: save with ``reason="command"``.
+"""
+
+from __future__ import annotations
+
+import time
+from datetime import datetime, timedelta, timezone
+from typing import Any, Callable
+
+from rotorwatch.alarms.records import MachineUpdate
+
+DAY_S = 86400.0
+
+
+class DailySchedule:
+    """A time of day in UTC (``HH:MM``) that is due once per day.
+
+    ``due(now_s, last_s)`` is true when the most recent slot at or before ``now_s`` is later than
+    ``last_s`` (the previous snapshot) and no more than ``grace_s`` ago: a box that was off at the
+    slot takes it when it comes back within the grace, a box started in the afternoon waits for
+    the next day rather than taking one at once.
+    """
+
+    def __init__(self, at_utc: str, grace_s: float = 6 * 3600.0) -> None:
+        try:
+            hh, mm = (int(x) for x in at_utc.split(":"))
+            if not (0 <= hh <= 23 and 0 <= mm <= 59):
+                raise ValueError
+        except ValueError:
+            raise ValueError(f"daily time {at_utc!r}: must be HH:MM (00:00 to 23:59, UTC)") from None
+        self.at_utc = at_utc
+        self.offset_s = hh * 3600 + mm * 60
+        self.grace_s = float(grace_s)
+
+    def slot_at_or_before(self, now_s: float) -> float:
+        """POSIX time of the latest slot that is not after ``now_s``."""
+        day = datetime.fromtimestamp(now_s, tz=timezone.utc).replace(hour=0, minute=0, second=0, microsecond=0)
+        slot = day.timestamp() + self.offset_s
+        return slot if slot <= now_s else (day - timedelta(days=1)).timestamp() + self.offset_s
+
+    def due(self, now_s: float, last_s: float | None) -> bool:
+        slot = self.slot_at_or_before(now_s)
+        if now_s - slot > self.grace_s:
+            return False
+        return last_s is None or last_s < slot
+
+
+class SnapshotPolicy:
+    """Decide per update whether to snapshot (``settings``: a
+    :class:`~rotorwatch.storage.settings.SnapshotSettings`; ``store``: a
+    :class:`~rotorwatch.storage.snapshots.SnapshotStore` to resume from, optional)."""
+
+    def __init__(self, settings: Any, store: Any = None, *, clock: Callable[[], float] = time.time) -> None:
+        self.states = tuple(settings.on_transition_to)
+        self.min_interval_s = float(settings.min_interval_s)
+        self.schedule = DailySchedule(settings.daily_at_utc) if settings.daily_at_utc else None
+        self._store = store
+        self._clock = clock
+        self._last: dict[tuple[str, str], float | None] = {}
+
+    def _last_time(self, machine_id: str, reason: str) -> float | None:
+        key = (machine_id, reason)
+        if key not in self._last:
+            self._last[key] = self._store.last_time(machine_id, reason) if self._store is not None else None
+        return self._last[key]
+
+    def decide(self, update: MachineUpdate, now_s: float | None = None) -> tuple[str, str] | None:
+        """``(reason, detail)`` when a snapshot of this update should be saved, else None."""
+        now = self._clock() if now_s is None else float(now_s)
+        mid = update.machine_id
+        entering = [e for e in update.events if e.new_state in self.states and e.new_state != e.old_state]
+        if entering:
+            last = self._last_time(mid, "transition")
+            if last is None or now - last >= self.min_interval_s:
+                self._last[(mid, "transition")] = now
+                detail = "; ".join(
+                    f"{e.point_id or 'machine'}/{e.value_name} {e.old_state}->{e.new_state}" for e in entering)
+                return "transition", detail
+        if self.schedule is not None and self.schedule.due(now, self._last_time(mid, "schedule")):
+            self._last[(mid, "schedule")] = now
+            return "schedule", f"daily at {self.schedule.at_utc} UTC"
+        return None
