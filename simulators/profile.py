@@ -116,34 +116,47 @@ class Profile:
     def value(self, t_s):
         """Severity at ``t_s`` (scalar or array of seconds)."""
         t = np.asarray(t_s, dtype=float)
-        idx = np.searchsorted(self._starts, t, side="right")
         out = np.empty_like(t)
-        for i in np.unique(idx):
+        for i, m in self._piece_masks(t):
             p = self._pieces[i]
-            m = idx == i
+            tm = t if m is None else t[m]
             if p.kind == "const":
-                out[m] = p.v_a
-                continue
-            x = (t[m] - p.start_s) / (p.end_s - p.start_s)
-            if p.kind == "linear":
-                out[m] = p.v_a + (p.v_b - p.v_a) * x
+                v = p.v_a
             else:
-                out[m] = p.v_a + (p.v_b - p.v_a) * np.expm1(EXP_GROWTH * x) / _EXPM1_K
+                x = (tm - p.start_s) / (p.end_s - p.start_s)
+                if p.kind == "linear":
+                    v = p.v_a + (p.v_b - p.v_a) * x
+                else:
+                    v = p.v_a + (p.v_b - p.v_a) * np.expm1(EXP_GROWTH * x) / _EXPM1_K
+            if m is None:
+                out[...] = v
+            else:
+                out[m] = v
         return float(out) if out.ndim == 0 else out
 
     def integral(self, t_s):
         """``int_0^t value(tau) dtau`` (scalar or array of seconds)."""
         t = np.asarray(t_s, dtype=float)
-        idx = np.searchsorted(self._starts, t, side="right")
         out = np.empty_like(t)
-        for i in np.unique(idx):
+        for i, m in self._piece_masks(t):
             p = self._pieces[i]
-            m = idx == i
-            if i == 0:
-                out[m] = p.v_a * t[m]
+            tm = t if m is None else t[m]
+            v = p.v_a * tm if i == 0 else p.integral_at_start + self._area(p, tm)
+            if m is None:
+                out[...] = v
             else:
-                out[m] = p.integral_at_start + self._area(p, t[m])
+                out[m] = v
         return float(out) if out.ndim == 0 else out
+
+    def _piece_masks(self, t: np.ndarray):
+        """(piece index, mask or None for 'all of t') for the pieces that ``t`` touches."""
+        if t.size == 0:
+            return []
+        lo, hi = np.searchsorted(self._starts, [np.min(t), np.max(t)], side="right")
+        if lo == hi:  # the common case: a block of samples inside one piece
+            return [(int(lo), None)]
+        idx = np.searchsorted(self._starts, t, side="right")
+        return [(i, idx == i) for i in range(int(lo), int(hi) + 1)]
 
     def is_constant(self, t0_s: float, t1_s: float) -> bool:
         """True when the value cannot change anywhere in [t0_s, t1_s]."""
