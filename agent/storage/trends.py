@@ -117,7 +117,7 @@ class TrendStore:
     ``read_only=True`` opens an existing store for the ``trend`` command (no pruning, no writes).
     """
 
-    def __init__(self, path: str | Path, *, retention_days: float = 180.0, max_rows: int = 5_000_000,
+    def __init__(self, path: str | Path, *, retention_days: float = 90.0, max_rows: int = 4_000_000,
                  min_interval_s: float = 0.0, prune_interval_s: float = 3600.0,
                  clock: Callable[[], float] = time.time, read_only: bool = False) -> None:
         if not retention_days > 0 or max_rows < 1 or min_interval_s < 0 or not prune_interval_s > 0:
