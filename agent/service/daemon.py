@@ -336,6 +336,8 @@ class Daemon:
             self._reload_requested.clear()
             self._reload("SIGHUP")
         self._serve_requests()
+        if self.link is not None:
+            self.link.tick()
         self._wake.wait(0.2)
         self._wake.clear()
         if self._stop.is_set():

@@ -28,6 +28,8 @@ from typing import Callable
 
 import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.reasoncodes import ReasonCode
 
 from rotorwatch.errors import RotorwatchError
 from rotorwatch.service.logs import RepeatLimiter, fields
@@ -112,6 +114,7 @@ class MqttLink:
         self._extra_topics = list(extra_topics or [])
         self._lock = threading.Lock()
         self._retained: dict[str, bytes] = {}
+        self._dirty: set[str] = set()  # retained topics whose newest payload paho has not taken yet
         self._pending: set[int] = set()
         self._early_acks: set[int] = set()
         self._limiter = RepeatLimiter(300.0)
@@ -192,11 +195,17 @@ class MqttLink:
         if c is None:
             return
         self._stopping = True
+        delivered = False
         if self.connected:
-            self.publish(self.topics.availability, availability_payload(False), retain=True)
-            self.flush(flush_timeout_s)
+            self.tick()
+            queued = self.publish(self.topics.availability, availability_payload(False), retain=True)
+            delivered = self.flush(flush_timeout_s) and queued
         try:
-            c.disconnect()
+            if not delivered and self.settings.protocol == "5":
+                # "offline" did not make it: MQTT 5 reason 0x04 asks the broker to publish the will
+                c.disconnect(reasoncode=ReasonCode(PacketTypes.DISCONNECT, "Disconnect with will message"))
+            else:
+                c.disconnect()
         finally:
             c.loop_stop()
             self._client = None
@@ -206,14 +215,28 @@ class MqttLink:
 
     # -- publishing ------------------------------------------------------------------------------
     def publish(self, topic: str, payload: bytes, retain: bool = False) -> bool:
-        """Hand one message to paho; False (and a counted failure) if it was refused."""
-        c = self._client
+        """Hand one message to paho; False (and a counted failure) if it was refused.
+
+        A retained message that paho refuses (its offline queue is full) is kept and handed over again
+        by :meth:`tick` once there is room, so the broker always ends up with the newest state.
+        """
         if retain:
             with self._lock:
                 if payload:
                     self._retained[topic] = payload
                 else:  # an empty retained message clears the topic
                     self._retained.pop(topic, None)
+        ok = self._send(topic, payload, retain)
+        if retain:
+            with self._lock:
+                if ok:
+                    self._dirty.discard(topic)
+                else:
+                    self._dirty.add(topic)
+        return ok
+
+    def _send(self, topic: str, payload: bytes, retain: bool) -> bool:
+        c = self._client
         if c is None:
             self.stats.inc("mqtt_publish_failures")
             return False
@@ -226,7 +249,8 @@ class MqttLink:
             self.stats.inc("mqtt_publish_failures")
             ok, held = self._limiter.allow(f"publish:{int(rc)}")
             if ok:
-                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc), repeats=held or None))
+                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc),
+                                                                 repeats=held or None))
             return False
         with self._lock:
             if info.mid in self._early_acks:
@@ -234,6 +258,19 @@ class MqttLink:
             else:
                 self._pending.add(info.mid)
         return True
+
+    def tick(self) -> None:
+        """Called from the analysis loop: re-send retained states paho refused earlier (bounded)."""
+        if not self.connected:
+            return
+        with self._lock:
+            todo = [(t, self._retained.get(t, b"")) for t in sorted(self._dirty)][:50]
+        for topic, payload in todo:
+            if not self._send(topic, payload, True):
+                break  # still no room: try again next time
+            with self._lock:
+                if self._retained.get(topic, b"") == payload:
+                    self._dirty.discard(topic)
 
     def flush(self, timeout_s: float) -> bool:
         """Wait until every message handed to paho was acknowledged (QoS 1) or sent (QoS 0)."""
@@ -276,15 +313,14 @@ class MqttLink:
                  extra=fields(host=self.settings.host, port=self.settings.port))
         with self._lock:
             extra = list(self._extra_topics)
-            retained = dict(self._retained)
+            if not first:
+                # after a reconnect, re-send the current retained states (the broker may have lost them);
+                # on the first connect paho itself sends what was queued while connecting
+                self._dirty.update(self._retained)
         client.subscribe([(self.topics.command, self.settings.qos)] + [(t, self.settings.qos) for t in extra])
         if not self._stopping:
             self.publish(self.topics.availability, availability_payload(True), retain=True)
-            # after a reconnect, re-send the current retained states (the broker may have lost them);
-            # on the first connect paho itself sends what was queued while connecting
-            for topic, payload in (retained.items() if not first else ()):
-                if topic != self.topics.availability:
-                    self.publish(topic, payload, retain=True)
+            self.tick()
 
     def _handle_connect_fail(self, client, userdata) -> None:
         self.stats.inc("mqtt_connect_failures")

@@ -375,3 +375,51 @@ def test_status_page_served_by_the_daemon_with_its_actions(tmp_path, daemons):
     assert status == 200 and "latched" in body["detail"], body  # "nothing latched to clear" or "cleared ..."
     assert post("api/acknowledge/nope", token)[0] == 404
     assert d.stop() == 0
+
+
+# --------------------------------------------------------------------------------------- broker outage
+def test_broker_outage_reconnects_and_counts_refused_publishes(make_mosquitto_broker, tmp_path, daemons):
+    broker = make_mosquitto_broker()
+    p = prefix()
+    root = f"{p}/{AGENT}"
+    # a tiny offline queue, so the outage overflows it and the refused publishes are counted
+    cfg = daemon_config(broker, prefix=p, mqtt={"max_queued_messages": 3, "reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
+    d = DaemonProcess(write_setup(tmp_path, cfg))
+    daemons.append(d)
+    with MqttListener(broker, topics=[f"{root}/#"]) as listener:
+        assert wait_message(listener, f"{root}/machine/ef3/state", timeout_s=30), d.describe()
+    broker.stop()
+    assert d.wait_log(r"mqtt connection lost", 10), d.describe()
+    assert wait_until(lambda: counter(d.scrape(), "rotorwatch_mqtt_publish_failures_total") > 0, 20), d.describe()
+    assert counter(d.scrape(), "rotorwatch_mqtt_connected") == 0
+    broker.start()
+    with MqttListener(broker, topics=[f"{root}/#"]) as listener:
+        assert wait_until(lambda: counter(d.scrape(), "rotorwatch_mqtt_reconnects_total") >= 1, 20), d.describe()
+        assert wait_message(listener, f"{root}/availability", lambda m: m.payload == b"online", 10)
+        assert wait_message(listener, f"{root}/machine/ef3/point/de-h/state", timeout_s=10)
+    assert counter(d.scrape(), "rotorwatch_mqtt_connected") == 1
+    assert d.stop() == 0
+
+
+# --------------------------------------------------------------------------------------- HTTPS metrics
+def test_metrics_over_https(tmp_path, daemons):
+    import ssl
+    import urllib.request
+
+    from components import make_test_pki
+
+    pki = make_test_pki(tmp_path / "pki")
+    cfg = daemon_config(None, prefix="x")
+    cfg["metrics"] = {"bind": "127.0.0.1", "port": 0, "tls_cert_file": str(pki.server_cert),
+                      "tls_key_file": str(pki.server_key)}
+    d = DaemonProcess(write_setup(tmp_path, cfg))
+    daemons.append(d)
+    assert d.wait_log(r"metrics endpoint listening .*scheme=https", 20), d.describe()
+    port = d.metrics_port()
+    ctx = ssl.create_default_context(cafile=str(pki.ca_cert))
+    with urllib.request.urlopen(f"https://127.0.0.1:{port}/metrics", context=ctx, timeout=5) as r:
+        text = r.read().decode()
+    assert "rotorwatch_build_info" in text
+    with pytest.raises(Exception):  # plain HTTP against the TLS port fails
+        urllib.request.urlopen(f"http://127.0.0.1:{port}/metrics", timeout=5).read()
+    assert d.stop() == 0
