@@ -68,8 +68,10 @@ class BlockSpectrum:
     df_hz: float
 
     def amplitude(self, n_bins: int) -> np.ndarray:
-        """|X| of the first ``n_bins`` bins (relative scale: for tone searches)."""
-        return np.abs(self.spec[:n_bins])
+        """|X| of the first ``n_bins`` bins as if Hann-windowed (relative scale: for tone searches)."""
+        from rotorwatch.analysis.speed import hann_smooth  # noqa: PLC0415
+
+        return hann_smooth(self.spec[: n_bins + 1].astype(complex))[:n_bins]
 
 
 @dataclass(frozen=True)
@@ -131,7 +133,7 @@ class EnvelopeKernel:
         self.plan = plan
         self.fs_hz = float(fs_hz)
         self._block_cache: dict[int, tuple[int, int, np.ndarray]] = {}
-        self._welch_cache: dict[tuple[int, int], WelchKernel] = {}
+        self._welch_cache: dict[tuple[int, float], WelchKernel] = {}
         self._taper_cache: dict[int, np.ndarray] = {}
 
     # ------------------------------------------------------------------------------------ set-ups
@@ -156,8 +158,8 @@ class EnvelopeKernel:
             self._taper_cache[n_bins] = w
         return w
 
-    def _welch(self, n_per_seg: int, m: int, fs_c: float) -> WelchKernel:
-        key = (n_per_seg, m)
+    def _welch(self, n_per_seg: int, fs_c: float) -> WelchKernel:
+        key = (n_per_seg, fs_c)
         k = self._welch_cache.get(key)
         if k is None:
             n_overlap = min(int(round(n_per_seg * self.plan.overlap_frac)), n_per_seg - 1)
@@ -237,27 +239,35 @@ class EnvelopeKernel:
         _, sk, cyc, k_lo, k_w = best
         return BandChoice((k_lo * df, (k_lo + k_w) * df), sk, cyc)
 
-    def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan")) -> EnvelopeOutput:
-        """Envelope and squared-envelope spectra of the block in ``band_hz``."""
-        plan, df, n = self.plan, bs.df_hz, bs.n_samples
+    def band_signal(self, bs: BlockSpectrum, band_hz: tuple[float, float]) -> tuple[np.ndarray, float, tuple[float, float]]:
+        """Analytic signal of the band, shifted down by its low edge, at the reduced rate: (z, fs_c, band).
+
+        |z| is the envelope in m/s^2. The tapered ends of the block are already cut off; z[0] is the
+        sample at time ``n_trim / fs`` of the block.
+        """
+        plan, df = self.plan, bs.df_hz
         k_lo = max(int(math.ceil(band_hz[0] / df)), 1)
         k_hi = min(int(math.floor(band_hz[1] / df)) + 1, bs.spec.size)
         k_w = k_hi - k_lo
         if k_w < 4:
             raise InputError(f"envelope band {band_hz[0]:g}..{band_hz[1]:g} Hz holds fewer than 4 lines at this block length")
         m = scipy.fft.next_fast_len(k_w + int(math.ceil(plan.fmax_hz / df)) + 2)
-        fs_c = m * df
         shifted = np.zeros(m, dtype=bs.spec.dtype)
         shifted[:k_w] = bs.spec[k_lo:k_hi] * self._band_taper(k_w)
         z = scipy.fft.ifft(shifted, overwrite_x=True)
-        n_valid = int(n * m / bs.n_fft)
+        z *= 2.0 / bs.n_fft * m  # ifft's 1/m, the one-sided doubling and the rfft's n_fft
+        n_valid = int(bs.n_samples * m / bs.n_fft)
         cut = int(math.ceil(bs.n_trim * m / bs.n_fft))
-        z = z[cut: n_valid - cut]
+        return z[cut: n_valid - cut], m * df, (float(k_lo * df), float(k_hi * df))
+
+    def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan")) -> EnvelopeOutput:
+        """Envelope and squared-envelope spectra of the block in ``band_hz``."""
+        plan, n = self.plan, bs.n_samples
+        z, fs_c, band = self.band_signal(bs, band_hz)
         both = np.empty((2, z.size))
         sq = both[1]
         np.multiply(z.real, z.real, out=sq, dtype=np.float64)
         sq += np.square(z.imag, dtype=np.float64)
-        sq *= (2.0 / bs.n_fft * m) ** 2  # ifft's 1/m, the one-sided doubling and the rfft's n_fft
         np.sqrt(sq, out=both[0])
         n_per_seg = int(math.ceil(fs_c / plan.df_hz - 1e-9))
         if n_per_seg > z.size:
@@ -266,12 +276,12 @@ class EnvelopeKernel:
                 f"{plan.fmax_hz:g} Hz need {1.0 / plan.df_hz:.3g} s after the {EDGE_TAPER_FRACTION:.0%} tapered ends "
                 f"(usable {z.size / fs_c:.3g} s)"
             )
-        welch = self._welch(n_per_seg, m, fs_c)
+        welch = self._welch(n_per_seg, fs_c)
         psd = welch.psd(both)
         n_keep = int(np.searchsorted(welch.freqs_hz, plan.fmax_hz, side="right"))
         rms = welch.line_rms(psd[:, :n_keep])
         return EnvelopeOutput(
-            band_hz=(float(k_lo * df), float(k_hi * df)),
+            band_hz=band,
             kurtosis=kurtosis,
             freqs_hz=welch.freqs_hz[:n_keep],
             df_hz=welch.df_hz,
