@@ -57,8 +57,9 @@ class Feeder:
 def page(tmp_path_factory):
     root = tmp_path_factory.mktemp("status-page")
     feeder = Feeder(root / "state")
-    # healthy: every 3 h over the 72 h learning period and a little beyond, then two quiet days
-    feeder.feed(list(np.arange(0.0, 3.2, 0.125)) + [8.0, 20.0])
+    # healthy: every 3 h over the 72 h learning period and a little beyond, then quiet days before the
+    # spall starts (day 8 in the scenario)
+    feeder.feed(list(np.arange(0.0, 3.2, 0.125)) + [5.0, 7.5])
     server = StatusServer(feeder.board, "127.0.0.1", 0, poll_interval_s=1.0).start()
     browser = Chrome(root / "chrome", window=(1366, 900))
     try:
