@@ -200,7 +200,7 @@ class ScenarioRenderer:
     def _grid(self, t_s: float, duration_s: float, fs_hz: float) -> tuple[int, int]:
         if not (math.isfinite(fs_hz) and fs_hz > 0):
             raise InputError(f"fs_hz = {fs_hz}: must be a positive sample rate")
-        if fs_hz <= 2.2 * self.kernel.natural_hz:
+        if self._trains and fs_hz <= 2.2 * self.kernel.natural_hz:
             raise InputError(
                 f"fs_hz = {fs_hz:g}: too low for the housing resonance at {self.kernel.natural_hz:g} Hz "
                 f"(need more than {2.2 * self.kernel.natural_hz:g} Hz)"

@@ -13,14 +13,11 @@ from __future__ import annotations
 
 import argparse
 import json
-import logging
 from pathlib import Path
 
 import numpy as np
 
 from rotorwatch.errors import InputError
-
-log = logging.getLogger(__name__)
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
