@@ -79,11 +79,14 @@ class Forwarder:
 
     ``in_flight_window``: records published and not yet acknowledged, at most.
     ``backlog_rate_per_s``: the bound on the backlog lane. ``live_reserve``: window slots the backlog
-    leaves to live records. ``clock``: monotonic seconds (injected for tests).
+    leaves to live records. ``on_republish(old_mid, new_mid)``: called (in paho's thread) when
+    ``on_connect`` publishes again a message of another publisher of the same client that paho held
+    offline, so that publisher can follow its message id. ``clock``: monotonic seconds (for tests).
     """
 
     def __init__(self, spool: Spool, client: mqtt.Client, *, in_flight_window: int = 20,
                  backlog_rate_per_s: float = 200.0, live_reserve: int = 4,
+                 on_republish: Callable[[int, int], None] | None = None,
                  clock: Callable[[], float] = time.monotonic) -> None:
         if in_flight_window < 1:
             raise ValueError(f"in_flight_window = {in_flight_window}: must be at least 1")
@@ -98,6 +101,7 @@ class Forwarder:
         self.backlog_rate_per_s = float(backlog_rate_per_s)
         self._burst = max(1.0, min(float(self.backlog_window), self.backlog_rate_per_s * 0.25))
         self._clock = clock
+        self._on_republish = on_republish
         self._events: queue.SimpleQueue = queue.SimpleQueue()
         self._map_lock = threading.Lock()  # guards _mid_to_seq; never held across client.publish()
         self._mid_to_seq: dict[int, tuple[int, str]] = {}  # mid -> (seq, lane)
@@ -167,13 +171,19 @@ class Forwarder:
     def install(self) -> None:
         """Set the client's on_connect/on_disconnect/on_publish to the forwarder's hooks.
 
-        Callbacks already set are kept and called after the forwarder's own.
+        Callbacks already set are kept and called after the forwarder's own; the previous
+        ``on_publish`` is called only for message ids that are not the forwarder's.
         """
         for name in ("on_connect", "on_disconnect", "on_publish"):
             mine = getattr(self, name)
             previous = getattr(self.client, name)
             if previous is None:
                 setattr(self.client, name, mine)
+            elif name == "on_publish":
+                def chained_publish(*args: Any, _mine=mine, _previous=previous) -> None:
+                    if not _mine(*args):
+                        _previous(*args)
+                setattr(self.client, name, chained_publish)
             else:
                 def chained(*args: Any, _mine=mine, _previous=previous) -> None:
                     _mine(*args)
@@ -191,8 +201,10 @@ class Forwarder:
             ours = set(self._mid_to_seq)
         for msg in dropped:
             if msg.mid not in ours:  # someone else's message on this client: keep it
-                client.publish(msg.topic, msg.payload, qos=msg.qos, retain=msg.retain,
-                               properties=msg.properties)
+                info = client.publish(msg.topic, msg.payload, qos=msg.qos, retain=msg.retain,
+                                      properties=msg.properties)
+                if self._on_republish is not None:
+                    self._on_republish(msg.mid, info.mid)
         self._gen += 1
         self._events.put(("connect", self._gen))
 
@@ -203,9 +215,16 @@ class Forwarder:
         self._events.put(("disconnect", self._gen))
 
     def on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason_code: Any,
-                   properties: Any = None) -> None:
-        """VERSION2 ``on_publish`` hook (runs under paho's message lock: only queues)."""
+                   properties: Any = None) -> bool:
+        """VERSION2 ``on_publish`` hook (runs under paho's message lock: only queues).
+
+        Returns True when ``mid`` is one of the forwarder's records, so a chaining caller can skip
+        its own bookkeeping for it. (A PUBACK that beats the drain thread's note of the mid, which
+        paho's locking makes all but impossible, reads as False; the forwarder still counts it.)
+        """
         self._events.put(("ack", mid, reason_code))
+        with self._map_lock:
+            return mid in self._mid_to_seq
 
     def _on_append(self, seq: int) -> None:
         self._events.put(("wake",))

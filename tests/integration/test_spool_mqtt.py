@@ -50,6 +50,7 @@ class Collector:
 
     def __init__(self, host: str, port: int, prefix: str) -> None:
         self.seqs: list[int] = []
+        self.others: list[tuple[str, bytes]] = []
         self.sessions_present: list[bool] = []
         self._lock = threading.Lock()
         self._subscribed = threading.Event()
@@ -72,7 +73,12 @@ class Collector:
             client.subscribe(f"{self.prefix}/#", qos=1)
 
     def _on_message(self, client, userdata, msg) -> None:
-        seq = json.loads(msg.payload)["seq"]
+        try:
+            seq = json.loads(msg.payload)["seq"]
+        except (ValueError, KeyError, TypeError):  # not a spooled record (another publisher's message)
+            with self._lock:
+                self.others.append((msg.topic, bytes(msg.payload)))
+            return
         with self._lock:
             self.seqs.append(seq)
 
@@ -314,6 +320,62 @@ def test_a_record_the_broker_refuses_is_counted_and_does_not_block(tmp_path):
         broker.stop()
     assert not missing and denied not in collector.received()
     assert st.dropped["broker_rejected"] == 1 and fs.rejected == 1 and st.depth == 0
+
+
+def test_a_shared_client_keeps_the_other_publishers_messages(make_mosquitto_broker, tmp_path):
+    """The daemon's own publisher shares the client: its callbacks still run (chained by install()),
+    its message queued by paho while offline survives the forwarder's on_connect (published again,
+    new mid reported through on_republish), and it never sees the forwarder's PUBACKs."""
+    broker = make_mosquitto_broker()
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    collector = Collector(broker.host, broker.port, prefix)
+    spool = Spool(tmp_path / "spool.sqlite")
+    client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
+    own_mids: set[int] = set()
+    own_acks: list[int] = []
+    connects: list[bool] = []
+    client.on_connect = lambda c, u, f, rc, p: connects.append(True)
+    client.on_publish = lambda c, u, mid, rc, p: own_acks.append(mid)
+    republished: list[tuple[int, int]] = []
+    forwarder = Forwarder(spool, client, on_republish=lambda old, new: (republished.append((old, new)),
+                                                                        own_mids.add(new)))
+    forwarder.install()
+    client.connect(broker.host, broker.port, keepalive=5)
+    client.loop_start()
+    forwarder.start()
+    try:
+        for i in range(30):
+            spool.append("metrics", _topic(prefix, "metrics"), {"i": i})
+        assert forwarder.wait_drained(10.0)
+        broker.stop()
+        deadline = time.monotonic() + 10
+        while client.is_connected() and time.monotonic() < deadline:
+            time.sleep(0.02)
+        info = client.publish(f"{prefix}/note", b"queued while offline", qos=1)
+        assert info.rc == mqtt.MQTT_ERR_NO_CONN  # paho holds it in memory (shared recipes section 2)
+        own_mids.add(info.mid)
+        for i in range(30, 40):
+            spool.append("event", _topic(prefix, "event"), {"i": i})
+        broker.start()
+        assert forwarder.wait_drained(15.0), f"not drained: {spool.stats()} {forwarder.stats()}"
+        missing = collector.wait_for_all(set(range(1, 41)), 10.0)
+        wait_deadline = time.monotonic() + 10
+        while not collector.others and time.monotonic() < wait_deadline:
+            time.sleep(0.02)
+        ack_deadline = time.monotonic() + 5
+        while not (set(own_acks) & own_mids) and time.monotonic() < ack_deadline:
+            time.sleep(0.02)
+    finally:
+        forwarder.stop()
+        client.disconnect()
+        client.loop_stop()
+        collector.close()
+        spool.close()
+    assert not missing
+    assert len(connects) >= 2  # the previous on_connect ran on both connects
+    assert collector.others == [(f"{prefix}/note", b"queued while offline")]
+    assert republished and republished[0][0] == info.mid
+    assert set(own_acks) <= own_mids and set(own_acks) & own_mids  # only its own PUBACKs, and its note's
 
 
 _CHILD = textwrap.dedent("""

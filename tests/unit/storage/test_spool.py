@@ -16,6 +16,10 @@ from rotorwatch.storage import StorageError
 from rotorwatch.storage.spool import RECORD_OVERHEAD_BYTES, Spool, encode_payload
 
 
+#: for tests that append hundreds of records: durability is not what they check, fsyncs only slow them
+FAST = {"durability": "process_crash"}
+
+
 class FakeClock:
     def __init__(self, t0: float = 1_767_225_600.0) -> None:
         self.t = t0
@@ -156,7 +160,7 @@ def _fill(spool: Spool, n_rounds: int) -> dict[str, list[int]]:
 
 def test_full_policy_drops_superseded_states_then_thins_metrics_and_keeps_events(tmp_path):
     path = tmp_path / "s.sqlite"
-    with Spool(path, max_bytes=1 << 30, max_records=200) as spool:
+    with Spool(path, max_bytes=1 << 30, max_records=200, **FAST) as spool:
         seqs = _fill(spool, 300)  # 300 metrics + 600 states + 30 events = 930 appends into 200 rows
         st = spool.stats()
         kinds = spool.counts_by_kind()
@@ -179,7 +183,7 @@ def test_full_policy_drops_superseded_states_then_thins_metrics_and_keeps_events
 
 
 def test_full_of_events_drops_oldest_events_and_counts_them(tmp_path):
-    with Spool(tmp_path / "s.sqlite", max_bytes=1 << 30, max_records=100) as spool:
+    with Spool(tmp_path / "s.sqlite", max_bytes=1 << 30, max_records=100, **FAST) as spool:
         spool.append("state", "s/m1/state", {"s": "normal"}, retain=True)
         ev = [spool.append("event", "s/m1/events", {"i": i}) for i in range(250)]
         st = spool.stats()
@@ -192,7 +196,7 @@ def test_full_of_events_drops_oldest_events_and_counts_them(tmp_path):
 def test_byte_bound_and_oversize(tmp_path):
     payload = {"pad": "y" * 1000}
     size = len(encode_payload(payload, 1, 1.0)) + len("t/m") + RECORD_OVERHEAD_BYTES
-    with Spool(tmp_path / "s.sqlite", max_bytes=20 * size, max_records=10_000) as spool:
+    with Spool(tmp_path / "s.sqlite", max_bytes=20 * size, max_records=10_000, **FAST) as spool:
         for _ in range(100):
             spool.append("metrics", "t/m", payload)
         assert spool.stats().stored_bytes <= 20 * size
@@ -203,7 +207,7 @@ def test_byte_bound_and_oversize(tmp_path):
 
 
 def test_in_flight_records_are_never_dropped(tmp_path):
-    with Spool(tmp_path / "s.sqlite", max_bytes=1 << 30, max_records=50) as spool:
+    with Spool(tmp_path / "s.sqlite", max_bytes=1 << 30, max_records=50, **FAST) as spool:
         first = [spool.append("metrics", "t/m", {"i": i}) for i in range(10)]
         for s in first:
             spool.mark_in_flight(s, s)
@@ -217,7 +221,7 @@ def test_in_flight_records_are_never_dropped(tmp_path):
 
 def test_drop_counters_survive_reopen(tmp_path):
     path = tmp_path / "s.sqlite"
-    with Spool(path, max_bytes=1 << 30, max_records=100) as spool:
+    with Spool(path, max_bytes=1 << 30, max_records=100, **FAST) as spool:
         for i in range(300):
             spool.append("event", "t/e", {"i": i})
         before = spool.stats().dropped
