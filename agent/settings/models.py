@@ -414,7 +414,7 @@ class Config(Model):
             problems.append(f"machine ids must be unique, repeated: {', '.join(dupes)}")
         used: dict[int, str] = {}
         nyquist = self.acquisition.sample_rate_hz / 2.0
-        for m in self.machines:
+        for i, m in enumerate(self.machines):
             channels = [(p.sensor.channel, f"{m.id}/{p.id}") for p in m.points]
             if m.speed.mode == "tach":
                 channels.append((m.speed.tach_channel, f"{m.id} tach"))  # type: ignore[arg-type]
@@ -426,22 +426,20 @@ class Config(Model):
                     problems.append(
                         f"{who} uses input channel {ch} but acquisition.channels = {self.acquisition.channels}"
                     )
-            for b in m.bands:
+            at = f"({nyquist:g} Hz at {self.acquisition.sample_rate_hz:g} Hz sampling)"
+            for j, b in enumerate(m.bands):
                 if b.high_hz is not None and b.high_hz >= nyquist:
-                    problems.append(
-                        f"machine {m.id!r} band {b.name!r} high_hz = {b.high_hz:g}: must be below Nyquist "
-                        f"({nyquist:g} Hz at {self.acquisition.sample_rate_hz:g} Hz sampling)"
-                    )
+                    problems.append(f"machines[{i}].bands[{j}].high_hz = {b.high_hz:g}: must be below Nyquist {at}")
             if m.overall.high_hz >= nyquist:
-                problems.append(f"machine {m.id!r} overall.high_hz = {m.overall.high_hz:g}: must be below Nyquist ({nyquist:g} Hz)")
+                problems.append(f"machines[{i}].overall.high_hz = {m.overall.high_hz:g}: must be below Nyquist {at}")
             env = m.analysis.envelope.band_hz
             if env is not None and env[1] >= nyquist:
                 problems.append(
-                    f"machine {m.id!r} analysis.envelope.band_hz upper edge {env[1]:g}: must be below Nyquist ({nyquist:g} Hz)"
+                    f"machines[{i}].analysis.envelope.band_hz = [{env[0]:g}, {env[1]:g}]: the upper edge must be below Nyquist {at}"
                 )
             fmax = m.analysis.fmax_hz
             if fmax is not None and fmax > nyquist:
-                problems.append(f"machine {m.id!r} analysis.fmax_hz = {fmax:g}: must not exceed Nyquist ({nyquist:g} Hz)")
+                problems.append(f"machines[{i}].analysis.fmax_hz = {fmax:g}: must not exceed Nyquist {at}")
         if problems:
             raise ValueError("; ".join(problems))
         return self
