@@ -1,0 +1,11 @@
+"""The built-in status page and hub discovery.
+
+- :mod:`rotorwatch.web.board`: :class:`StatusBoard`, the latest update of every machine (thread-safe),
+  with the JSON views the page reads;
+- :mod:`rotorwatch.web.views`: pure functions turning analysis records into those views (downsampling,
+  defect-frequency markers, band regions);
+- :mod:`rotorwatch.web.server`: :class:`StatusServer`, the read-only HTTP server (stdlib) with its
+  token-gated acknowledge/snapshot actions;
+- :mod:`rotorwatch.web.discovery`: MQTT discovery configs for building-automation hubs;
+- ``static/``: the page itself (HTML, CSS, plain JS drawing on canvas; no CDN, no build step).
+"""
