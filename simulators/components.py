@@ -110,7 +110,7 @@ class ImpactKernel:
 
     def rows(self, tau0_s: np.ndarray, fs_hz: float, amplitudes: np.ndarray | None = None) -> np.ndarray:
         """``amplitudes[k] * kernel(tau0[k] + i / fs)`` for i < n_samples(fs), one row per impact
-        (``0 <= tau0 < 1 / fs``), without a trigonometric or exponential call per sample.
+        (``0 < tau0 <= 1 / fs``), without a trigonometric or exponential call per sample.
 
         With tau = tau0 + u each term ``exp(-s tau) [P sin(w tau) - Q cos(w tau)]`` (P = s^2 - w^2,
         Q = 2 s w) splits into per-impact constants times the fixed rows ``exp(-s u) cos(w u)`` and

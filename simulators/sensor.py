@@ -72,9 +72,10 @@ class SensorChain:
         if self.floor_v > 0:
             v += self.floor_v * white_noise(self.seed, self._floor_key, n0, n)
         np.clip(v, -self.sensor.input_range_v, self.sensor.input_range_v, out=v)
-        for i, (f, s) in enumerate((f, s) for f, s in active if f.fault == "dropouts"):
-            for a, b in self._dropout_runs(f, n0, n, fs_hz):
-                v[a:b] = 0.0
+        for f, _ in active:
+            if f.fault == "dropouts":
+                for a, b in self._dropout_runs(f, n0, n, fs_hz):
+                    v[a:b] = 0.0
         return v
 
     def _dropout_runs(self, span: FaultSpan, n0: int, n: int, fs_hz: float):

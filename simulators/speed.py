@@ -48,6 +48,8 @@ class SpeedModel:
 
     def drift(self, t_s):
         t = np.asarray(t_s, dtype=float)
+        if not self._amp.any():
+            return np.zeros_like(t)
         return sum(a * np.sin(w * t + p) for a, w, p in zip(self._amp, self._omega, self._psi))
 
     def shaft_hz(self, t_s):
@@ -60,6 +62,8 @@ class SpeedModel:
     def turns(self, t_s):
         """Shaft revolutions from t = 0 to ``t_s`` (exact integral of :meth:`shaft_hz`)."""
         t = np.asarray(t_s, dtype=float)
+        if not self._amp.any():
+            return self.rpm_profile.integral(t) / 60.0
         drift_int = sum(a / w * (math.cos(p) - np.cos(w * t + p)) for a, w, p in zip(self._amp, self._omega, self._psi))
         return self.rpm_profile.integral(t) / 60.0 + self.nominal_hz * drift_int
 
