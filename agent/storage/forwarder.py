@@ -125,7 +125,6 @@ class Forwarder:
                 client.max_inflight_messages = self.window
         except RuntimeError:  # already connected: paho then queues the excess, still in order
             pass
-        spool.add_listener(self._on_append)
 
     @classmethod
     def from_settings(cls, spool: Spool, client: mqtt.Client, settings: Any, **kwargs: Any) -> "Forwarder":
@@ -139,6 +138,7 @@ class Forwarder:
         if self._thread is not None:
             return self
         self._stop.clear()
+        self.spool.add_listener(self._on_append)
         if self.client.is_connected() and self._hook_connects == 0:  # connected before the hooks were set
             self._gen += 1
             self._events.put(("connect", self._gen))
@@ -149,6 +149,7 @@ class Forwarder:
     def stop(self, timeout_s: float = 5.0) -> None:
         """Stop the drain thread (bounded). Records in flight stay in the spool and go again later."""
         self._stop.set()
+        self.spool.remove_listener(self._on_append)
         self._events.put(("wake",))
         if self._thread is not None:
             self._thread.join(timeout_s)

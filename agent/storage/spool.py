@@ -31,10 +31,12 @@ the spool is back under 95 % of both bounds, each step counted in :meth:`stats` 
 2. ``metrics_thinned``: every other metrics record of the oldest half of the metrics, repeated, so
    old metrics history gets coarser (halving its time resolution per pass) before any is lost whole;
 3. ``metrics_oldest``: the oldest metrics records;
-4. ``event_oldest``: the oldest events (logged as a warning: alarm history is being lost);
+4. ``event_oldest``: the oldest events (a warning at most once a minute with the running total:
+   alarm history is being lost);
 5. ``state_oldest``: the oldest remaining states (only when the spool holds nothing else).
 
-Records in flight are never dropped. A record larger than ``max_bytes`` on its own is not stored
+Records in flight are never dropped (so the bounds may be passed by the records in flight, at most
+the forwarder's window). A record larger than ``max_bytes`` on its own is not stored
 (``oversize``); its seq is still consumed. Records the broker refuses or paho cannot send are
 deleted through :meth:`reject` (``broker_rejected``, ``unsendable``).
 """
@@ -191,6 +193,7 @@ class Spool:
         self._lock = threading.RLock()
         self._in_flight: dict[int, int] = {}  # seq -> mid
         self._listeners: list[Callable[[int], None]] = []
+        self._event_warned_s = float("-inf")
         self._lock_fd = self._take_file_lock()
         try:
             self._db = self._open()
@@ -297,7 +300,12 @@ class Spool:
 
     def add_listener(self, callback: Callable[[int], None]) -> None:
         """Call ``callback(seq)`` after each append (outside the spool's lock; keep it quick)."""
-        self._listeners.append(callback)
+        if callback not in self._listeners:
+            self._listeners.append(callback)
+
+    def remove_listener(self, callback: Callable[[int], None]) -> None:
+        if callback in self._listeners:
+            self._listeners.remove(callback)
 
     # -- writing ------------------------------------------------------------------------------
     def append(self, kind: str, topic: str, payload: Mapping[str, Any] | bytes, retain: bool = False,
@@ -335,7 +343,7 @@ class Spool:
             if size <= self.max_bytes:
                 self._count += 1
                 self._bytes += size
-        for callback in self._listeners:
+        for callback in list(self._listeners):
             callback(seq)
         return seq
 
@@ -397,8 +405,10 @@ class Spool:
         if not enough():
             n = take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'event' ORDER BY seq").fetchall(),
                      "event_oldest")
-            if n:
-                log.warning("spool full of events: dropped the oldest n=%d dropped_events_total=%d "
+            now = time.monotonic()
+            if n and now - self._event_warned_s >= 60.0:  # loud, but once a minute, with the running total
+                self._event_warned_s = now
+                log.warning("spool full of events: dropping the oldest n=%d dropped_events_total=%d "
                             "(raise storage.spool bounds or restore the broker link)",
                             n, self._dropped["event_oldest"])
         if not enough():
