@@ -20,9 +20,10 @@ The envelope spectrum (m/s^2 RMS per line of |z|) is what bands and evidence rea
 spectrum (SES) is what the bearing findings read.
 
 Band search (a kurtogram-like grid, after Antoni's fast kurtogram, MSSP 21 (2007) 108-124): candidate
-bands are 50 %-overlapping, of widths (2/3)^j times half the Nyquist frequency down to the narrowest width
-that still holds the envelope span, all above ``auto_min_hz``; each width is one batched inverse FFT of
-critically-sampled band signals c(t). Two measures are computed for every candidate:
+bands lie side by side, of widths (2/3)^j times half the Nyquist frequency down to the narrowest width
+that still holds the envelope span, all above ``auto_min_hz`` (successive widths put the band edges in
+different places, so a resonance cut by an edge at one width is whole at another); each width is one
+batched inverse FFT of critically-sampled band signals c(t). Two measures are computed for every candidate:
 
 - spectral kurtosis SK = <|c|^4> / <|c|^2>^2 - 2 (Antoni, "The spectral kurtosis: a useful tool for
   characterising non-stationary signals", MSSP 20 (2006) 282-307): 0 for stationary Gaussian noise, -1
@@ -52,6 +53,7 @@ from rotorwatch.errors import InputError
 
 BAND_EDGE_TAPER_FRACTION = 0.05  # of the band's bins, raised-cosine at each band edge
 WIDTH_STEP = 2.0 / 3.0  # ratio of successive candidate band widths in the search
+SEARCH_STEP = 1.0  # candidate band starts, in band widths (1: adjacent bands; 0.5: half-overlapping)
 CYCLIC_OVERSAMPLING = 4.0  # the search's squared envelopes are averaged down to 4 x the envelope span
 SHAFT_ORDER_GUARD_LINES = 2  # lines this close to an integer shaft order are left out of the cyclic measure
 CRITERIA = ("cyclic", "kurtosis")
@@ -183,8 +185,8 @@ class EnvelopeKernel:
         """Cyclic content of each row of squared envelopes ``p`` sampled at ``rate_hz``."""
         plan = self.plan
         q = max(int(rate_hz / (CYCLIC_OVERSAMPLING * plan.fmax_hz)), 1)
-        n_q = p.shape[-1] // q
-        pd = p[:, : n_q * q].reshape(p.shape[0], n_q, q).mean(axis=-1)
+        n_q = scipy.fft.prev_fast_len(p.shape[-1] // q, real=True)  # awkward lengths cost several times more
+        pd = p[:, : n_q * q].reshape(p.shape[0], n_q, q).mean(axis=-1, dtype=np.float32)
         pd -= pd.mean(axis=-1, keepdims=True)
         spec = scipy.fft.rfft(pd, axis=-1)
         power = spec.real**2
@@ -212,8 +214,8 @@ class EnvelopeKernel:
         best: tuple[float, float, float, int, int] | None = None  # (score, sk, cyclic, k_lo, k_w)
         width = min(0.25 * self.fs_hz, (k_max - k_min) * df)
         while width >= plan.min_bandwidth_hz * (1 - 1e-9):
-            k_w = max(int(width / df), 8)
-            starts = np.arange(k_min, k_max - k_w + 1, max(k_w // 2, 1))
+            k_w = scipy.fft.prev_fast_len(max(int(width / df), 8))
+            starts = np.arange(k_min, k_max - k_w + 1, max(int(k_w * SEARCH_STEP), 1))
             width *= WIDTH_STEP
             if not starts.size:
                 continue
@@ -270,6 +272,8 @@ class EnvelopeKernel:
         sq += np.square(z.imag, dtype=np.float64)
         np.sqrt(sq, out=both[0])
         n_per_seg = int(math.ceil(fs_c / plan.df_hz - 1e-9))
+        if scipy.fft.next_fast_len(n_per_seg, real=True) <= z.size:
+            n_per_seg = scipy.fft.next_fast_len(n_per_seg, real=True)  # a little finer, much faster
         if n_per_seg > z.size:
             raise InputError(
                 f"block of {n / self.fs_hz:.3g} s is too short for the envelope spectrum: {plan.lines} lines over "

@@ -89,7 +89,11 @@ class SesReader:
     def floor(self, hz: float, half_width_hz: float) -> float:
         lo = max(int((hz - half_width_hz) / self.df), 1)
         hi = min(int((hz + half_width_hz) / self.df) + 1, self.n)
-        return float(np.median(self.a[lo:hi])) if hi > lo else 0.0
+        if hi <= lo:
+            return 0.0
+        seg = self.a[lo:hi]
+        mid = seg.size // 2  # the upper median: np.partition is several times cheaper than np.median here
+        return float(np.partition(seg, mid)[mid])
 
     def peak(self, lo_hz: float, hi_hz: float, floor_half_width_hz: float) -> LineCheck | None:
         """Highest local maximum within [lo_hz, hi_hz], or None when the window has none."""

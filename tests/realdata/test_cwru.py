@@ -77,21 +77,17 @@ def test_first_finding_matches_the_label(path, mode, shared_datasets, capsys):
         assert doc["rpm"] == pytest.approx(rpm, rel=3e-3)  # stored rpm, hand-recorded (dataset README)
 
 
-def _most_prominent(doc: dict) -> float:
-    return max(doc["defect_prominence"].values())
-
-
-def test_ball_fault_reads_abnormal_next_to_the_normal_baseline(shared_datasets, capsys):
-    # dataset README: the ball record shows BSF/BPFO/BPFI lines at 11-17 x the floor in a 2-5 kHz band,
-    # the normal baseline only 2-3 x
+@pytest.mark.parametrize("extra", [(), ("--envelope-band", "2000,5000")], ids=["searched", "2-5kHz"])
+def test_ball_fault_reads_abnormal_next_to_the_normal_baseline(extra, shared_datasets, capsys):
+    # dataset README: in the ball record the lines at BPFO, BPFI, BSF (and 2xBPFO, 1x) are all about
+    # equally raised, with no clean BSF series; the normal baseline shows 2-3 x at those lines. So: every
+    # defect line of the ball record must stand higher over its floor than any defect line of the
+    # normal record, with the rig configuration's searched band and with the README's 2-5 kHz band.
     ball = next(p for p in FILES if _label(p)[0] == "ball")
     normal = next(p for p in FILES if _label(p)[0] == "normal")
-    for extra in ((), ("--envelope-band", "2000,5000")):
-        b, n = _configured(capsys, ball, *extra), _configured(capsys, normal, *extra)
-        assert _most_prominent(b) > 2 * _most_prominent(n), (extra, b["defect_prominence"], n["defect_prominence"])
-    b = _quick(capsys, ball, "--envelope-band", "2000,5000")
-    n = _quick(capsys, normal, "--envelope-band", "2000,5000")
-    assert _most_prominent(b) > 2 * _most_prominent(n)
+    b, n = _configured(capsys, ball, *extra), _configured(capsys, normal, *extra)
+    print("ball", b["defect_prominence"], "normal", n["defect_prominence"])
+    assert min(b["defect_prominence"].values()) > max(n["defect_prominence"].values())
 
 
 def test_check_table_matches_the_dataset_readme(shared_datasets, capsys):
