@@ -57,7 +57,7 @@ class LaneSplit:
 
     connected_at_s: float  # monotonic clock of the forwarder
     backlog_through_seq: int
-    backlog_depth: int  # stored records at that moment
+    backlog_depth: int  # stored records at that moment (-1: could not be read)
 
 
 @dataclass(frozen=True)
@@ -114,6 +114,7 @@ class Forwarder:
         self._tokens = 0.0
         self._tokens_at = clock()
         self._retained_sent: dict[str, int] = {}
+        self._ack_buffer: list[int] = []  # seqs acknowledged by the broker, not yet deleted
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._idle = threading.Condition()
@@ -265,8 +266,7 @@ class Forwarder:
                 events.append(self._events.get_nowait())
             except queue.Empty:
                 break
-        acks: list[int] = []
-        for ev in events:
+        for ev in events:  # every event is handled even when the disk fails on one of them
             kind = ev[0]
             if kind == "ack":
                 with self._map_lock:
@@ -274,22 +274,32 @@ class Forwarder:
                 if entry is None:
                     continue  # another publisher's message, or one from before a reconnect
                 if getattr(ev[2], "is_failure", False):
-                    self.spool.reject(entry[0], "broker_rejected")
                     self._n["rejected"] += 1
                     log.warning("broker refused a record seq=%d reason=%s (deleted, counted as broker_rejected)",
                                 entry[0], ev[2])
+                    try:
+                        self.spool.reject(entry[0], "broker_rejected")
+                    except StorageError as e:  # the row stays; it goes again after the next reconnect
+                        log.error("forwarder: %s", e)
                 else:
-                    acks.append(entry[0])
+                    self._ack_buffer.append(entry[0])
             elif kind in ("connect", "disconnect"):
-                if acks:  # acknowledgements that came before the link changed still count
-                    self._n["acked"] += self.spool.ack_many(acks)
-                    acks = []
+                try:  # acknowledgements that came before the link changed still count
+                    self._flush_acks()
+                except StorageError as e:
+                    log.error("forwarder: %s (acknowledgements kept for the next try)", e)
                 self._link_changed(kind == "connect")
                 self._seen_gen = max(self._seen_gen, ev[1])
-        if acks:
-            self._n["acked"] += self.spool.ack_many(acks)
-            with self._idle:
-                self._idle.notify_all()
+        self._flush_acks()
+
+    def _flush_acks(self) -> None:
+        """Commit the buffered acknowledgements in one transaction (kept for a retry if it fails)."""
+        if not self._ack_buffer:
+            return
+        self._n["acked"] += self.spool.ack_many(self._ack_buffer)
+        self._ack_buffer = []
+        with self._idle:
+            self._idle.notify_all()
 
     def _link_changed(self, connected: bool) -> None:
         with self._map_lock:
@@ -304,13 +314,17 @@ class Forwarder:
             return
         self._connected = True
         self._n["connects"] += 1
-        st = self.spool.stats()
-        self._backlog_through = st.last_seq
-        self._backlog_active = st.depth > 0
+        last_seq = self.spool.last_seq
+        try:
+            depth = self.spool.stats().depth
+        except StorageError:
+            depth = -1  # unknown: treat as a backlog, the lane finds out
+        self._backlog_through = last_seq
+        self._backlog_active = depth != 0
         self._tokens, self._tokens_at = self._burst, self._clock()
-        self.lane_splits.append(LaneSplit(self._clock(), st.last_seq, st.depth))
+        self.lane_splits.append(LaneSplit(self._clock(), last_seq, depth))
         log.info("forwarder: link up, backlog of %d records through seq=%d at <= %.0f/s, live from seq=%d",
-                 st.depth, st.last_seq, self.backlog_rate_per_s, st.last_seq + 1)
+                 depth, last_seq, self.backlog_rate_per_s, last_seq + 1)
 
     def _lane_in_flight(self, lane: str) -> int:
         with self._map_lock:
