@@ -1,4 +1,5 @@
-"""The monitoring daemon: capture -> ring buffers -> rolling analysis -> MQTT, Prometheus, status page.
+"""The monitoring daemon: capture -> ring buffers -> rolling analysis -> MQTT, Prometheus, status page,
+trend store and evidence snapshots.
 
 Threads and who owns what:
 
@@ -38,6 +39,7 @@ from rotorwatch.errors import ConfigError, RotorwatchError
 from rotorwatch.service import payloads
 from rotorwatch.service.capture import Capture
 from rotorwatch.service.commands import Command, CommandRejected, parse_command
+from rotorwatch.service.evidence import Evidence
 from rotorwatch.service.logs import RepeatLimiter, fields
 from rotorwatch.service.metrics import MetricsServer, UpdateCollector, make_registry
 from rotorwatch.service.mqtt import MqttLink
@@ -45,7 +47,6 @@ from rotorwatch.service.notify import Notifier
 from rotorwatch.service.publisher import UpdatePublisher
 from rotorwatch.service.ring import Ring
 from rotorwatch.service.selfstats import SelfStats
-from rotorwatch.service.snapshot import write_snapshot
 from rotorwatch.service.speed import SpeedBoard
 from rotorwatch.settings.loading import load_config
 from rotorwatch.settings.models import Config, Machine
@@ -70,7 +71,8 @@ class RunOptions:
 def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) -> Any:
     from rotorwatch.pipeline import MachinePipeline
 
-    return MachinePipeline(config, machine, state_dir=state_dir)
+    # spectra are kept for the status page and the evidence snapshots
+    return MachinePipeline(config, machine, state_dir=state_dir, keep_spectra=True)
 
 
 def default_source_factory(config: Config, config_dir: Path) -> Any:
@@ -102,6 +104,7 @@ class MachineRuntime:
     channels: dict[str, int]  # point -> input channel
     tach_channel: int | None
     last_update: MachineUpdate | None = None
+    last_blocks: dict[str, np.ndarray] | None = None  # the windows of the last analysed update (volts)
 
 
 @dataclass
@@ -144,6 +147,7 @@ class Daemon:
         self.status_server = None
         self.speeds: SpeedBoard | None = None
         self.state_dir: Path | None = None
+        self.evidence: Evidence | None = None
         self.rounds = 0
         self._next_due: float | None = None
         self._run_id: int | None = None
@@ -177,6 +181,7 @@ class Daemon:
         self.speeds = SpeedBoard(config)
         self.collector = UpdateCollector(config, self.stats)
         self.runtimes = self._build_runtimes(config)  # ConfigError from the pipelines: exit non-zero
+        self.evidence = Evidence(config, self.state_dir)  # StorageError (one line) if the stores cannot open
         log.info("rotorwatch starting", extra=fields(
             version=__version__, config=str(self.config_path), agent=config.site.agent_id,
             machines=",".join(self.runtimes), source=config.acquisition.source, state_dir=str(self.state_dir)))
@@ -316,6 +321,8 @@ class Daemon:
                     self.publisher.publish_update(rt.last_update, metrics=False)
         for rt in self.runtimes.values():
             self._close_pipeline(rt)
+        if self.evidence is not None:
+            self.evidence.close()
         self._stop_sinks()
         self.notifier.close()
         log.info("rotorwatch stopped", extra=fields(updates=self.rounds))
@@ -439,6 +446,10 @@ class Daemon:
 
     def _deliver(self, rt: MachineRuntime, update: MachineUpdate, blocks: dict[str, np.ndarray] | None) -> None:
         rt.last_update = update
+        if blocks is not None:
+            rt.last_blocks = blocks
+        if self.evidence is not None:
+            self.evidence.on_update(update, blocks, rt.machine)
         if update.events:
             self.stats.inc("alarm_events", len(update.events), machine=update.machine_id)
         if self.collector is not None:
@@ -512,6 +523,8 @@ class Daemon:
             assert self.speeds is not None and self.collector is not None
             self.speeds.set_config(new)
             self.collector.set_config(new)
+            if self.evidence is not None:
+                self.evidence.set_config(new)
             if "acquisition" in changed or layout_changed:
                 self._stop_capture()
                 self._start_capture(new)
@@ -590,7 +603,14 @@ class Daemon:
         try:
             if cmd is None:
                 cmd = parse_command(req.raw or b"", self.config)
-            ok, message, detail = self._run_command(cmd)
+            ok, message, detail = self._run_command(cmd, req.origin)
+        except RotorwatchError as e:  # the command was fine but could not be carried out
+            self.stats.inc("commands", result="failed")
+            log.warning(f"command {cmd.name} failed: {e}", extra=fields(origin=req.origin))  # type: ignore[union-attr]
+            body = payloads.command_result_payload(agent, now, cmd.name, False, str(e), cmd.request_id)  # type: ignore[union-attr]
+            if self.publisher is not None and req.origin == "mqtt":
+                self.publisher.publish_command_result(body)
+            return body
         except CommandRejected as e:
             self.stats.inc("commands", result="rejected")
             ok, held = self._limiter.allow(f"rejected:{e}")
@@ -608,7 +628,7 @@ class Daemon:
             self.publisher.publish_command_result(body)
         return body
 
-    def _run_command(self, cmd: Command) -> tuple[bool, str, dict]:
+    def _run_command(self, cmd: Command, origin: str = "mqtt") -> tuple[bool, str, dict]:
         if cmd.name == "reload":
             ok, message = self._reload("command")
             return ok, message, {}
@@ -629,14 +649,18 @@ class Daemon:
             return True, message, {"machine": rt.machine.id, "cleared": cleared}
         if cmd.name == "snapshot":
             targets = [cmd.machine] if cmd.machine is not None else list(self.runtimes)
-            paths = []
+            saved = []
             for mid in targets:
                 rt = self.runtimes[mid]
-                blocks, end_s = self._windows(rt)
-                path = write_snapshot(self.state_dir, self.config.site.agent_id, mid,  # type: ignore[arg-type,union-attr]
-                                      self.config.acquisition.sample_rate_hz, end_s, blocks or {}, rt.last_update)  # type: ignore[union-attr]
-                paths.append(str(path))
-            return True, f"wrote {len(paths)} snapshot(s)", {"paths": paths}
+                if rt.last_update is None or rt.last_blocks is None or self.evidence is None:
+                    raise RotorwatchError(f"snapshot of machine {mid!r}: no analysed update yet (the first window is still filling)")
+                info = self.evidence.save(rt.last_update, rt.last_blocks, rt.machine, "command",
+                                          f"requested through {origin}")
+                if info is None:
+                    raise RotorwatchError(f"snapshot of machine {mid!r} could not be saved (see the log)")
+                saved.append(info)
+            return True, f"saved {len(saved)} snapshot(s)", {"snapshots": [i.id for i in saved],
+                                                               "paths": [str(i.path) for i in saved]}
         raise CommandRejected(f"unknown command {cmd.name!r}", cmd.request_id, cmd.name)
 
     # -- status page callbacks (HTTP thread): queue to the loop and wait, bounded ----------------

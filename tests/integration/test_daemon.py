@@ -12,6 +12,7 @@ import json
 import signal
 import time
 import uuid
+from pathlib import Path
 
 import pytest
 
@@ -119,6 +120,13 @@ def test_states_events_metrics_and_clean_stop(mosquitto_broker, promtool, tmp_pa
     finally:
         after.close()
     assert "Traceback" not in d.log()
+    # evidence on disk: the alarm transition took a snapshot, and every update went into the trends
+    assert list((tmp_path / "state" / "snapshots").glob("*-ef3-transition/snapshot.json"))
+    from rotorwatch.storage.trends import TrendStore
+
+    with TrendStore(tmp_path / "state" / "trends.sqlite", read_only=True) as trends:
+        rows = trends.query(machine="ef3", point="de-h", value="de-outer-race")
+    assert rows and max(r.value for r in rows if r.value is not None) > 2.0  # above the alarm level
 
 
 def test_kill9_leaves_the_last_will(mosquitto_broker, tmp_path, daemons):
@@ -205,13 +213,15 @@ def test_malformed_commands_are_rejected_and_the_daemon_carries_on(mosquitto_bro
         listener.client.publish(f"{root}/command", json.dumps({"command": "snapshot", "machine": "ef3", "id": "s1"}), qos=1)
         res = wait_message(listener, f"{root}/command/result", json_pred(id="s1"), 10)
         assert res is not None and as_json(res)["ok"], res and as_json(res)
-        path = as_json(res)["paths"][0]
-        assert path.endswith(".npz")
-        import numpy as np
+        body = as_json(res)
+        folder = Path(body["paths"][0])
+        folder = folder if folder.is_absolute() else tmp_path / folder
+        sidecar = json.loads((folder / "snapshot.json").read_text())
+        assert sidecar["machine"] == "ef3" and sidecar["reason"] == "command"
+        import soundfile
 
-        with np.load(tmp_path / path if not path.startswith("/") else path) as f:
-            assert f["volts_de-h"].shape == (51200,)  # window_s 1.0 at 51200 Hz
-            assert json.loads(str(f["meta"]))["machine"] == "ef3"
+        wave, fs = soundfile.read(folder / "de-h.wav", dtype="float32")
+        assert fs == 51200 and wave.shape == (51200,)  # window_s 1.0 at 51200 Hz, in m/s^2
     finally:
         listener.close()
     assert d.stop() == 0

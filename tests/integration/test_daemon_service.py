@@ -370,7 +370,7 @@ def test_status_page_served_by_the_daemon_with_its_actions(tmp_path, daemons):
     assert post("api/acknowledge/ef3", None)[0] == 401
     status, body = post("api/snapshot/ef3", token)
     assert status == 200 and body["ok"] and "snapshot" in body["detail"], body
-    assert list((tmp_path / "state" / "snapshots" / "ef3").glob("*.npz"))
+    assert list((tmp_path / "state" / "snapshots").glob("*-ef3-command/snapshot.json"))
     status, body = post("api/acknowledge/ef3", token)
     assert status == 200 and "latched" in body["detail"], body  # "nothing latched to clear" or "cleared ..."
     assert post("api/acknowledge/nope", token)[0] == 404

@@ -1,0 +1,90 @@
+"""What the daemon keeps on disk per update: trend rows and evidence snapshots (rotorwatch.storage).
+
+- every update goes into the trend store (``<state_dir>/trends.sqlite``, read by ``rotorwatch trend``);
+- a snapshot (``<state_dir>/snapshots/<id>/``: calibrated waveforms, spectra, a JSON sidecar) is
+  saved when :class:`~rotorwatch.storage.snapshot_policy.SnapshotPolicy` says so (a transition into
+  warning/alarm/sensor fault, the daily slot) and on request (the ``snapshot`` command, the status
+  page's button), under the store's disk quota.
+
+Storage failures (a full disk, a broken file) never stop monitoring: they are logged, rate-limited,
+and the update goes on to the publishers. Called from the analysis loop only.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import numpy as np
+
+from rotorwatch.alarms.records import MachineUpdate
+from rotorwatch.errors import RotorwatchError
+from rotorwatch.service.logs import RepeatLimiter, fields
+from rotorwatch.settings.models import Config, Machine
+
+log = logging.getLogger(__name__)
+
+
+def calibrated(blocks_v: dict[str, np.ndarray], machine: Machine) -> dict[str, np.ndarray]:
+    """Volts at the input -> acceleration in m/s^2, per point (the sensor's sensitivity)."""
+    out = {}
+    for pid, block in blocks_v.items():
+        try:
+            point = machine.point(pid)
+        except KeyError:
+            continue
+        out[pid] = (np.asarray(block, dtype=np.float64) / point.sensor.volts_per_m_s2).astype(np.float32)
+    return out
+
+
+class Evidence:
+    def __init__(self, config: Config, state_dir: Path):
+        from rotorwatch.storage.snapshot_policy import SnapshotPolicy
+        from rotorwatch.storage.snapshots import SnapshotStore, config_fingerprint
+        from rotorwatch.storage.trends import TrendStore
+
+        self.config = config
+        self._fingerprint = config_fingerprint(config)
+        self._limiter = RepeatLimiter(300.0)
+        self.trends = TrendStore.in_state_dir(state_dir, config.storage.trends)
+        self.snapshots = SnapshotStore.in_state_dir(state_dir, config.storage.snapshots)
+        self.policy = SnapshotPolicy(config.storage.snapshots, self.snapshots)
+
+    def set_config(self, config: Config) -> None:
+        from rotorwatch.storage.snapshots import config_fingerprint
+
+        self.config = config
+        self._fingerprint = config_fingerprint(config)
+
+    def _failed(self, what: str, e: Exception) -> None:
+        ok, held = self._limiter.allow(what)
+        if ok:
+            log.error(f"{what} failed: {e}", extra=fields(repeats=held or None))
+
+    def on_update(self, update: MachineUpdate, blocks_v: dict[str, np.ndarray] | None, machine: Machine) -> None:
+        try:
+            self.trends.record(update)
+        except (RotorwatchError, OSError) as e:
+            self._failed("trend store write", e)
+        if blocks_v is None:
+            return
+        decision = self.policy.decide(update)
+        if decision is not None:
+            reason, detail = decision
+            self.save(update, blocks_v, machine, reason, detail)
+
+    def save(self, update: MachineUpdate, blocks_v: dict[str, np.ndarray], machine: Machine, reason: str,
+             detail: str):
+        """Save one snapshot; returns its SnapshotInfo, or None after a (logged) failure."""
+        try:
+            return self.snapshots.save(update, calibrated(blocks_v, machine), reason=reason, machine=machine,
+                                       config_hash=self._fingerprint, detail=detail)
+        except (RotorwatchError, OSError, ValueError) as e:
+            self._failed("snapshot save", e)
+            return None
+
+    def close(self) -> None:
+        try:
+            self.trends.close()
+        except Exception as e:  # noqa: BLE001 - closing must not stop shutdown
+            log.warning("error closing the trend store", extra=fields(error=str(e)))
