@@ -529,13 +529,15 @@ class Daemon:
                 self._stop_capture()
                 self._start_capture(new)
             if "mqtt" in changed or "site" in changed:
-                if self.link is not None:
+                if self.link is not None and self.publisher is not None:
+                    self.publisher.clear_discovery(old, new)
                     self.link.stop()
                 self.link = self.publisher = None
                 if new.mqtt is not None:
                     self._start_mqtt(new)
             elif self.link is not None and self.publisher is not None:
                 self.link.set_extra_topics(self.speeds.topics)
+                self.publisher.clear_discovery(old, new)
                 self.publisher.set_config(new)
                 self.publisher.publish_info()
             if "metrics" in changed:

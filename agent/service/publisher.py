@@ -37,6 +37,32 @@ class UpdatePublisher:
     def publish_info(self) -> None:
         info = payloads.hello_payload(self.agent_id, self.config.site.name, [m.id for m in self.config.machines])
         self.link.publish(self.topics.info, payloads.encode(info), retain=True)
+        self.publish_discovery()
+
+    def publish_discovery(self) -> int:
+        """Retained discovery configs for automation hubs, when ``[mqtt] discovery_prefix`` is set."""
+        s = self.link.settings
+        if not s.discovery_prefix:
+            return 0
+        from rotorwatch.web.discovery import discovery_messages
+
+        messages = discovery_messages(self.config, s.topic_prefix, s.discovery_prefix)
+        for topic, payload in messages:
+            self.link.publish(topic, payload, retain=True)
+        return len(messages)
+
+    def clear_discovery(self, old: Config, new: Config) -> None:
+        """After a reload: empty retained messages for discovery configs of ``old`` that ``new`` lacks."""
+        if old.mqtt is None or not old.mqtt.discovery_prefix:
+            return
+        from rotorwatch.web.discovery import discovery_messages
+
+        keep: set[str] = set()
+        if new.mqtt is not None and new.mqtt.discovery_prefix:
+            keep = {t for t, _ in discovery_messages(new, new.mqtt.topic_prefix, new.mqtt.discovery_prefix)}
+        for topic, _ in discovery_messages(old, old.mqtt.topic_prefix, old.mqtt.discovery_prefix):
+            if topic not in keep:
+                self.link.publish(topic, b"", retain=True)
 
     def publish_update(self, update: MachineUpdate, metrics: bool = True) -> None:
         machine = self._machines.get(update.machine_id)

@@ -48,6 +48,10 @@ class MqttSettings(_Model):
     ca_file: str | None = Field(None, min_length=1, description="CA certificate(s) the broker's certificate must chain to")
     client_cert_file: str | None = Field(None, min_length=1)
     client_key_file: str | None = Field(None, min_length=1)
+    discovery_prefix: str | None = Field(
+        None, pattern=r"^[A-Za-z0-9_.-]+(/[A-Za-z0-9_.-]+)*$",
+        description="publish retained discovery configs for automation hubs under this prefix "
+                    "(the open convention's usual one is 'homeassistant'); absent: off")
 
     @model_validator(mode="after")
     def _consistent(self) -> "MqttSettings":

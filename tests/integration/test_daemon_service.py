@@ -423,3 +423,25 @@ def test_metrics_over_https(tmp_path, daemons):
     with pytest.raises(Exception):  # plain HTTP against the TLS port fails
         urllib.request.urlopen(f"http://127.0.0.1:{port}/metrics", timeout=5).read()
     assert d.stop() == 0
+
+
+# --------------------------------------------------------------------------------------- discovery
+def test_discovery_configs_when_asked_for_and_cleared_when_switched_off(mosquitto_broker, tmp_path, daemons):
+    p = prefix()
+    disc = f"{p}-disc"
+    cfg = daemon_config(mosquitto_broker, prefix=p, mqtt={"discovery_prefix": disc})
+    with MqttListener(mosquitto_broker, topics=[f"{disc}/#"]) as listener:
+        d = DaemonProcess(write_setup(tmp_path, cfg))
+        daemons.append(d)
+        assert wait_until(lambda: len(messages(listener)) >= 5, 20), d.describe()
+        configs = {m.topic: as_json(m) for m in messages(listener) if m.payload}
+        # every entity reads one of the agent's own state topics (deploy/mqtt-topics.md)
+        assert all(body["state_topic"].startswith(f"{p}/{AGENT}/machine/ef3/") for body in configs.values()), configs
+        n = len(listener.messages)
+        del cfg["mqtt"]["discovery_prefix"]
+        d.config_path.write_text(write_setup(tmp_path, cfg).read_text())
+        d.signal(signal.SIGHUP)
+        assert d.wait_log(r"configuration reloaded", 10), d.describe()
+        cleared = wait_until(lambda: {m.topic for m in list(listener.messages)[n:] if m.payload == b""} >= set(configs), 10)
+        assert cleared, d.describe()
+    assert d.stop() == 0
