@@ -28,6 +28,7 @@ import ipaddress
 import json
 import logging
 import socket
+import sys
 import threading
 from http import HTTPStatus
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
@@ -106,6 +107,14 @@ class _Server(ThreadingHTTPServer):
         with self._conns_lock:
             self._conns.discard(request)
         super().shutdown_request(request)
+
+    def handle_error(self, request, client_address) -> None:
+        """A client that went away (or a connection ended by stop()) is routine: log it, never print it."""
+        exc = sys.exc_info()[1]
+        if isinstance(exc, (ConnectionError, TimeoutError, OSError)):
+            log.debug("status page: connection from %s ended: %s", client_address[0], exc)
+        else:
+            log.exception("status page: error handling a request from %s", client_address[0])
 
     def close_connections(self) -> None:
         with self._conns_lock:
