@@ -148,6 +148,7 @@ class Daemon:
         self.speeds: SpeedBoard | None = None
         self.state_dir: Path | None = None
         self.evidence: Evidence | None = None
+        self.spool = None  # rotorwatch.storage.spool.Spool when [mqtt] delivery = "spool"
         self.rounds = 0
         self._next_due: float | None = None
         self._run_id: int | None = None
@@ -182,6 +183,7 @@ class Daemon:
         self.collector = UpdateCollector(config, self.stats)
         self.runtimes = self._build_runtimes(config)  # ConfigError from the pipelines: exit non-zero
         self.evidence = Evidence(config, self.state_dir)  # StorageError (one line) if the stores cannot open
+        self._open_spool(config)
         log.info("rotorwatch starting", extra=fields(
             version=__version__, config=str(self.config_path), agent=config.site.agent_id,
             machines=",".join(self.runtimes), source=config.acquisition.source, state_dir=str(self.state_dir)))
@@ -254,11 +256,19 @@ class Daemon:
         if config.status_page is not None:
             self._start_status_page(config)
 
+    def _open_spool(self, config: Config) -> None:
+        if config.mqtt is not None and config.mqtt.delivery == "spool" and self.spool is None:
+            from rotorwatch.storage.spool import Spool
+
+            self.spool = Spool.in_state_dir(self.state_dir, config.storage.spool)  # type: ignore[arg-type]
+
     def _start_mqtt(self, config: Config) -> None:
         assert config.mqtt is not None and self.speeds is not None
+        self._open_spool(config)
+        spool = self.spool if config.mqtt.delivery == "spool" else None
         link = MqttLink(config.mqtt, config.site.agent_id, self.config_dir, self.stats,
                         on_command=self._queue_mqtt_command, on_message=self.speeds.offer,
-                        extra_topics=self.speeds.topics)
+                        extra_topics=self.speeds.topics, spool=spool, forwarding=config.storage.forwarding)
         link.start()  # raises a one-line RotorwatchError for unusable TLS/password files
         self.link = link
         self.publisher = UpdatePublisher(link, config)
@@ -324,6 +334,9 @@ class Daemon:
         if self.evidence is not None:
             self.evidence.close()
         self._stop_sinks()
+        if self.spool is not None:
+            self.spool.close()
+            self.spool = None
         self.notifier.close()
         log.info("rotorwatch stopped", extra=fields(updates=self.rounds))
 
@@ -345,6 +358,7 @@ class Daemon:
         self._serve_requests()
         if self.link is not None:
             self.link.tick()
+        self._spool_stats()
         self._wake.wait(0.2)
         self._wake.clear()
         if self._stop.is_set():
@@ -361,6 +375,22 @@ class Daemon:
                 self.notifier.ready(f"running without input: {status.state}: {status.reason}")
             return
         self._maybe_update(cap)
+
+    def _spool_stats(self) -> None:
+        if self.spool is None:
+            return
+        now = time.monotonic()
+        if now - getattr(self, "_spool_stats_at", 0.0) < 1.0:
+            return
+        self._spool_stats_at = now
+        try:
+            st = self.spool.stats()
+        except RotorwatchError:
+            return
+        self.stats.set("spool_records", st.depth)
+        self.stats.set("spool_bytes", st.stored_bytes)
+        for reason, n in st.dropped.items():
+            self.stats.mirror_counter("spool_dropped_records", n, reason=reason)
 
     def _maybe_update(self, cap: Capture) -> None:
         assert self.config is not None

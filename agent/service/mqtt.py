@@ -33,7 +33,7 @@ from paho.mqtt.reasoncodes import ReasonCode
 
 from rotorwatch.errors import RotorwatchError
 from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.service.payloads import availability_payload
+from rotorwatch.service.payloads import availability_payload, encode
 from rotorwatch.service.selfstats import SelfStats
 from rotorwatch.settings.service import MqttSettings
 
@@ -103,7 +103,7 @@ class MqttLink:
     def __init__(self, settings: MqttSettings, agent_id: str, base_dir: Path, stats: SelfStats,
                  on_command: Callable[[bytes], None] | None = None,
                  on_message: Callable[[str, bytes], None] | None = None,
-                 extra_topics: list[str] | None = None):
+                 extra_topics: list[str] | None = None, spool=None, forwarding=None):
         self.settings = settings
         self.agent_id = agent_id
         self.base_dir = base_dir
@@ -123,6 +123,9 @@ class MqttLink:
         self._stopping = False
         self._client: mqtt.Client | None = None
         self.last_failure: str | None = None
+        self.spool = spool  # a rotorwatch.storage.spool.Spool, owned by the caller, or None
+        self._forwarding = forwarding
+        self.forwarder = None
 
     # -- life cycle ------------------------------------------------------------------------------
     def _path(self, name: str | None) -> str | None:
@@ -156,6 +159,13 @@ class MqttLink:
         c.on_disconnect = self._handle_disconnect
         c.on_publish = self._handle_publish
         c.on_message = self._handle_message
+        if self.spool is not None:
+            from rotorwatch.storage.forwarder import Forwarder
+
+            # its hooks run first and chain to ours; its on_publish takes only its own message ids
+            self.forwarder = Forwarder.from_settings(self.spool, c, self._forwarding) if self._forwarding is not None \
+                else Forwarder(self.spool, c)
+            self.forwarder.install()
         return c
 
     def start(self) -> None:
@@ -165,6 +175,8 @@ class MqttLink:
         clean = {"clean_start": True} if s.protocol == "5" else {}
         self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
         self._client.loop_start()
+        if self.forwarder is not None:
+            self.forwarder.start()
         log.info("mqtt connecting in the background", extra=fields(
             host=s.host, port=s.port, tls=s.tls, user=s.username or "-", root=self.topics.root))
 
@@ -198,8 +210,13 @@ class MqttLink:
         delivered = False
         if self.connected:
             self.tick()
+            if self.forwarder is not None:  # what is in the spool waits there for the next start if not sent
+                self.forwarder.wait_drained(flush_timeout_s)
             queued = self.publish(self.topics.availability, availability_payload(False), retain=True)
             delivered = self.flush(flush_timeout_s) and queued
+        if self.forwarder is not None:
+            self.forwarder.stop()
+            self.forwarder = None
         try:
             if not delivered and self.settings.protocol == "5":
                 # "offline" did not make it: MQTT 5 reason 0x04 asks the broker to publish the will
@@ -234,6 +251,21 @@ class MqttLink:
                 else:
                     self._dirty.add(topic)
         return ok
+
+    def publish_record(self, kind: str, topic: str, body: dict, retain: bool = False) -> bool:
+        """A state, metrics record or event: into the durable spool when there is one (the forwarder
+        sends it and deletes it on the broker's acknowledgement), else straight to paho."""
+        if self.spool is not None:
+            try:
+                self.spool.append(kind, topic, body, retain=retain, qos=self.settings.qos)
+                self.stats.inc("mqtt_messages_published")
+                return True
+            except (RotorwatchError, OSError, ValueError) as e:
+                self.stats.inc("mqtt_publish_failures")
+                ok, held = self._limiter.allow("spool-append")
+                if ok:
+                    log.error(f"publish spool write failed, sending directly: {e}", extra=fields(repeats=held or None))
+        return self.publish(topic, encode(body), retain=retain)
 
     def _send(self, topic: str, payload: bytes, retain: bool) -> bool:
         c = self._client

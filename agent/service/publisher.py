@@ -5,6 +5,10 @@
 - point **metrics** (not retained): every ``metrics_interval_s``;
 - **events** (not retained): every transition in the update, as it happens.
 
+States, metrics and events go through :meth:`MqttLink.publish_record`: with the durable spool
+(``[mqtt] delivery = "spool"``, the default) they get a ``seq`` and ``ts`` and survive outages and
+restarts; availability, info, discovery and command results are sent directly.
+
 Called from the analysis loop only. Payloads come from :mod:`rotorwatch.service.payloads`.
 """
 
@@ -77,7 +81,7 @@ class UpdatePublisher:
         if refresh or self._signature.get(m_topic) != m_sig:
             self._signature[m_topic] = m_sig
             body = payloads.machine_state_payload(update, self.agent_id, machine)
-            self.link.publish(m_topic, payloads.encode(body), retain=True)
+            self.link.publish_record("state", m_topic, body, retain=True)
 
         for pid, pu in update.points.items():
             p_topic = self.topics.point_state(update.machine_id, pid)
@@ -86,21 +90,21 @@ class UpdatePublisher:
             if refresh or self._signature.get(p_topic) != p_sig:
                 self._signature[p_topic] = p_sig
                 body = payloads.point_state_payload(update, pu, self.agent_id, machine)
-                self.link.publish(p_topic, payloads.encode(body), retain=True)
+                self.link.publish_record("state", p_topic, body, retain=True)
             if refresh and metrics:
                 mbody = payloads.point_metrics_payload(update, pu, self.agent_id, machine)
                 if mbody is not None:
-                    self.link.publish(self.topics.point_metrics(update.machine_id, pid), payloads.encode(mbody))
+                    self.link.publish_record("metrics", self.topics.point_metrics(update.machine_id, pid), mbody)
 
         self.publish_events(update.events)
 
     def publish_events(self, events: list[AlarmEvent]) -> None:
         for e in events:
-            self.link.publish(self.topics.events, payloads.encode(payloads.event_payload(e, self.agent_id)))
+            self.link.publish_record("event", self.topics.events, payloads.event_payload(e, self.agent_id))
 
     def publish_agent_event(self, kind: str, message: str, time_s: float, **detail: Any) -> None:
         body = payloads.agent_event_payload(kind, message, self.agent_id, time_s, **detail)
-        self.link.publish(self.topics.events, payloads.encode(body))
+        self.link.publish_record("event", self.topics.events, body)
 
     def publish_command_result(self, body: dict[str, Any]) -> None:
         self.link.publish(self.topics.command_result, payloads.encode(body))

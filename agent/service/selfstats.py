@@ -27,6 +27,7 @@ COUNTERS = {
     "commands": "commands received on the command topic, by result",
     "config_reloads": "configuration reloads, by result",
     "alarm_events": "state transition events emitted, per machine",
+    "spool_dropped_records": "records the publish spool dropped to stay within its bounds, by reason (since the spool file was created)",
 }
 
 #: gauge name -> help
@@ -35,6 +36,8 @@ GAUGES = {
     "source_up": "1 while the input source is open and delivering samples",
     "update_duration_seconds": "wall time of the latest analysis update, per machine",
     "last_update_timestamp_seconds": "time of the latest analysis update (source clock), per machine",
+    "spool_records": "records waiting in the publish spool for the broker's acknowledgement",
+    "spool_bytes": "bytes held in the publish spool (topics and payloads)",
 }
 
 
@@ -54,6 +57,14 @@ class SelfStats:
         key = self._key(name, labels)
         with self._lock:
             self._counters[key] = self._counters.get(key, 0.0) + amount
+
+    def mirror_counter(self, name: str, value: float, **labels: str) -> None:
+        """Set a counter to a total kept elsewhere (the spool's own drop counts)."""
+        if name not in COUNTERS:
+            raise KeyError(f"unknown counter {name!r}")
+        key = self._key(name, labels)
+        with self._lock:
+            self._counters[key] = max(self._counters.get(key, 0.0), float(value))
 
     def set(self, name: str, value: float, **labels: str) -> None:
         if name not in GAUGES:

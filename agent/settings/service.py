@@ -27,7 +27,9 @@ class MqttSettings(_Model):
     Topics live under ``<topic_prefix>/<site.agent_id>/`` (see deploy/mqtt-topics.md). ``qos`` is used
     for every publish and subscription. The connection runs in the background: a missing broker never
     blocks start-up; reconnect attempts back off from ``reconnect_min_s`` to ``reconnect_max_s``.
-    While the broker is away, up to ``max_queued_messages`` QoS 1 messages wait in memory (0: no limit).
+    ``delivery = "spool"`` (default) keeps states, metrics and events in the durable spool
+    (``[storage.spool]``) until the broker acknowledges them; with ``"memory"`` up to
+    ``max_queued_messages`` QoS 1 messages wait in paho's memory while the broker is away (0: no limit).
     """
 
     host: str = Field("127.0.0.1", min_length=1)
@@ -41,6 +43,10 @@ class MqttSettings(_Model):
     reconnect_min_s: float = Field(1.0, gt=0, le=3600, allow_inf_nan=False)
     reconnect_max_s: float = Field(60.0, gt=0, le=3600, allow_inf_nan=False)
     max_queued_messages: int = Field(1000, ge=0, le=1_000_000)
+    delivery: Literal["spool", "memory"] = Field(
+        "spool", description="spool: states, metrics and events go through the durable publish spool in the "
+                             "state folder (they survive outages and restarts, with seq numbers); "
+                             "memory: only paho's in-memory queue")
     username: str | None = Field(None, min_length=1)
     password_file: str | None = Field(None, min_length=1)
     password_env: str | None = Field(None, pattern=r"^[A-Za-z_][A-Za-z0-9_]*$")

@@ -22,6 +22,7 @@ from .daemon_support import (
     DaemonProcess,
     as_json,
     daemon_config,
+    fast_fault_scenario,
     json_pred,
     messages,
     wait_message,
@@ -382,8 +383,9 @@ def test_broker_outage_reconnects_and_counts_refused_publishes(make_mosquitto_br
     broker = make_mosquitto_broker()
     p = prefix()
     root = f"{p}/{AGENT}"
-    # a tiny offline queue, so the outage overflows it and the refused publishes are counted
-    cfg = daemon_config(broker, prefix=p, mqtt={"max_queued_messages": 3, "reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
+    # memory delivery with a tiny offline queue, so the outage overflows it and the refused publishes are counted
+    cfg = daemon_config(broker, prefix=p, mqtt={"delivery": "memory", "max_queued_messages": 3,
+                                                "reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
     d = DaemonProcess(write_setup(tmp_path, cfg))
     daemons.append(d)
     with MqttListener(broker, topics=[f"{root}/#"]) as listener:
@@ -444,4 +446,29 @@ def test_discovery_configs_when_asked_for_and_cleared_when_switched_off(mosquitt
         assert d.wait_log(r"configuration reloaded", 10), d.describe()
         cleared = wait_until(lambda: {m.topic for m in list(listener.messages)[n:] if m.payload == b""} >= set(configs), 10)
         assert cleared, d.describe()
+    assert d.stop() == 0
+
+
+def test_events_during_an_outage_wait_in_the_spool_and_arrive_after(make_mosquitto_broker, tmp_path, daemons):
+    broker = make_mosquitto_broker()
+    p = prefix()
+    root = f"{p}/{AGENT}"
+    cfg = daemon_config(broker, prefix=p, mqtt={"reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
+    # the defect steps in at day 0.05: several updates after start, while the broker is away
+    d = DaemonProcess(write_setup(tmp_path, cfg, fast_fault_scenario(appear_day=0.05)))
+    daemons.append(d)
+    with MqttListener(broker, topics=[f"{root}/#"]) as listener:
+        first = wait_message(listener, f"{root}/machine/ef3/state", timeout_s=30)
+        assert first is not None, d.describe()
+        assert as_json(first)["seq"] >= 1  # spooled records carry their sequence number
+        assert not messages(listener, f"{root}/events", json_pred(new_state="alarm"))
+    broker.stop()
+    assert d.wait_log(r"value=de-outer-race learning -> alarm", 40), d.describe()
+    assert wait_until(lambda: counter(d.scrape(), "rotorwatch_spool_records") > 0, 10), d.describe()
+    broker.start()
+    with MqttListener(broker, topics=[f"{root}/#"]) as listener:
+        ev = wait_message(listener, f"{root}/events", json_pred(value_name="de-outer-race", new_state="alarm"), 20)
+        assert ev is not None, d.describe()
+        assert as_json(ev)["seq"] > as_json(first)["seq"]
+    assert counter(d.scrape(), "rotorwatch_mqtt_publish_failures_total") == 0
     assert d.stop() == 0
