@@ -17,7 +17,9 @@ the ISO 20816 zone letters ``A`` to ``D`` (optionally written ``zone C``) for ``
 
 Meaning, over the updates inside the window:
 
-- ``reaches S``: at least one update is in S;   ``is S``: every update is in S;
+- ``reaches S``: the subject enters S inside the window (it was in another state at the update before,
+  or S is its state at the first update); a state entered earlier and still held does not count;
+- ``is S``: every update is in S;
 - ``stays below S`` / ``never S``: no update is in S;   ``ends S``: the last update is in S;
 - ``A reaches S before B reaches T``: A reaches S, and earlier than B reaches T (or B never does).
 
@@ -339,6 +341,18 @@ def first_reaching(samples: list[Sample], subject: Subject, state: str) -> Sampl
     return next((s for s in samples if matches(_state_of(s, subject), state, subject)), None)
 
 
+def entering(samples: list[Sample], subject: Subject, state: str) -> list[Sample]:
+    """The updates at which the subject enters ``state`` (or is in it at the first update)."""
+    out = []
+    before = False
+    for s in samples:
+        now = matches(_state_of(s, subject), state, subject)
+        if now and not before:
+            out.append(s)
+        before = now
+    return out
+
+
 def _worst_seen(samples: list[Sample], subject: Subject) -> str:
     seen = [st for st in (_state_of(s, subject) for s in samples) if st is not None]
     if not seen:
@@ -370,11 +384,13 @@ def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
     subj, want = exp.subject, exp.state
     hits = [s for s in inside if matches(_state_of(s, subj), want, subj)]
     if exp.verb == "reaches":
-        if hits:
-            return Verdict(exp, True, f"first {want} at {_at(hits[0], subj)}")
-        outside = first_reaching(samples, subj, want)
-        extra = f"; it did at {_at(outside, subj)}, outside the window" if outside is not None else ""
-        return Verdict(exp, False, f"never {want} in the window (worst: {_worst_seen(inside, subj)}){extra}")
+        entries = entering(samples, subj, want)
+        inside_entries = [s for s in entries if exp.window.contains(s.elapsed_s)]
+        if inside_entries:
+            return Verdict(exp, True, f"entered {want} at {_at(inside_entries[0], subj)}")
+        if entries:
+            return Verdict(exp, False, f"entered {want} at {_at(entries[0], subj)}, outside the window")
+        return Verdict(exp, False, f"never {want} (worst: {_worst_seen(samples, subj)})")
     if exp.verb == "is":
         misses = [s for s in inside if s not in hits]
         if not misses:

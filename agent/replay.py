@@ -41,14 +41,55 @@ class Frame:
 
 
 # ------------------------------------------------------------------------------------------ scenarios
-def scenario_frames(renderer, fs_hz: float, window_s: float, times_s: np.ndarray | None = None) -> Iterator[Frame]:
-    """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence."""
+_worker_renderer = None  # a ScenarioRenderer in each render worker process
+
+
+def _init_worker(scenario) -> None:
+    global _worker_renderer
+    from rotorwatch.simulators.render import ScenarioRenderer
+
+    _worker_renderer = ScenarioRenderer(scenario)
+
+
+def _render(t_s: float, window_s: float, fs_hz: float) -> dict[str, np.ndarray]:
+    return _worker_renderer.snapshot(t_s, window_s, fs_hz)  # type: ignore[union-attr]
+
+
+def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None, workers: int = 1) -> Iterator[Frame]:
+    """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence.
+
+    With ``workers`` > 1 the snapshots are drawn in that many worker processes, ahead of the analysis
+    (at most two per worker in flight). A snapshot is a pure function of the scenario and its time, so
+    the frames are the same as drawn in this process.
+    """
     machine: Machine = renderer.machine
     outside_speed = machine.speed.mode in ("tach", "mqtt")
-    for t in renderer.times() if times_s is None else times_s:
-        t = float(t)
-        blocks = renderer.snapshot(t, window_s, fs_hz)
-        yield Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None)
+    times = [float(t) for t in (renderer.times() if times_s is None else times_s)]
+
+    def frame(t: float, blocks: dict[str, np.ndarray]) -> Frame:
+        return Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None)
+
+    if workers <= 1 or len(times) < 2:
+        for t in times:
+            yield frame(t, renderer.snapshot(t, window_s, fs_hz))
+        return
+    import multiprocessing
+    from collections import deque
+
+    ctx = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
+    with ctx.Pool(workers, initializer=_init_worker, initargs=(renderer.scenario,)) as pool:
+        pending: deque = deque()
+        it = iter(times)
+        for t in it:
+            pending.append((t, pool.apply_async(_render, (t, window_s, fs_hz))))
+            if len(pending) >= 2 * workers:
+                break
+        while pending:
+            t, job = pending.popleft()
+            nxt = next(it, None)
+            if nxt is not None:
+                pending.append((nxt, pool.apply_async(_render, (nxt, window_s, fs_hz))))
+            yield frame(t, job.get())
 
 
 # ----------------------------------------------------------------------------------------- recordings

@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import json
+import os
 import sys
 import tempfile
 import time
@@ -46,6 +47,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--state-dir", metavar="DIR", help="where baselines go (default: a fresh temporary directory)")
     p.add_argument("--start", default=DEFAULT_START, metavar="DATE",
                    help=f"date and time (UTC) the replay starts at, ISO 8601 (default {DEFAULT_START})")
+    p.add_argument("--workers", type=int, default=min(4, os.cpu_count() or 1), metavar="N",
+                   help="scenario: processes drawing the snapshots ahead of the analysis (default: CPUs, at most 4; 1: none)")
     p.add_argument("--learning-updates", type=int, metavar="N",
                    help="learn baselines from the first N updates instead of the configured learning period")
 
@@ -111,13 +114,15 @@ def run(args: argparse.Namespace) -> int:
     start = _start_unix_s(args.start)
     if args.learning_updates is not None and args.learning_updates < 1:
         raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
+    if args.workers < 1:
+        raise InputError(f"--workers = {args.workers}: must be at least 1")
     scenario = renderer = None
     if args.scenario:
         scenario, renderer = _open_scenario(args)
         config, machine = scenario.config, scenario.machine
         fs_hz = config.acquisition.sample_rate_hz
         window_s = machine.analysis.window_s
-        frames = scenario_frames(renderer, fs_hz, window_s)
+        frames = scenario_frames(renderer, fs_hz, window_s, workers=args.workers)
         total = len(renderer.times())
         source = f"scenario {scenario.name!r} ({args.scenario}), config {scenario.config_path}"
         cadence = f"every {scenario.spec.scenario.cadence_s / 3600:g} h"
@@ -165,6 +170,7 @@ def run(args: argparse.Namespace) -> int:
             print("\r" + " " * 40 + "\r", end="", file=sys.stderr, flush=True)
         pipeline.close()
     finally:
+        frames.close()  # stops render workers early on an error
         if tmp is not None:
             tmp.cleanup()
     n = len(log.samples)

@@ -57,7 +57,10 @@ def check(text: str) -> bool:
     ("outer on p1 reaches warning before zone on p1 reaches C", True),
     ("zone on p1 reaches B before outer on p1 reaches warning", False),
     ("point p2 never sensor_fault", True),
-    ("machine reaches alarm after day 16", True),
+    ("machine reaches alarm after day 16", False),  # entered at day 15 and held: not reached after day 16
+    ("machine reaches alarm after day 14", True),
+    ("outer on p1 reaches warning between day 11 and day 20", True),  # entered again at 15 after the fault
+    ("outer on p1 reaches warning between day 11 and day 11.5", False),  # no entry inside
     ("machine reaches normal after hour 121", False),  # after day 5.04
 ])
 def test_expectations_against_a_history(text, ok):
@@ -66,7 +69,7 @@ def test_expectations_against_a_history(text, ok):
 
 def test_verdict_details_say_when():
     v = evaluate(parse("outer on p1 reaches alarm between day 10 and day 20", M), HISTORY)
-    assert v.detail == "first alarm at day 15.00 (0.3 m/s^2)"
+    assert v.detail == "entered alarm at day 15.00 (0.3 m/s^2)"
     v = evaluate(parse("outer on p1 reaches alarm before day 3", M), HISTORY)
     assert "outside the window" in v.detail and "day 15.00" in v.detail
 
