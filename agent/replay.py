@@ -382,7 +382,9 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
                 reached.add(key)
                 firsts.append((t, e, kind))
     for t, e, kind in firsts[:max_lines]:
-        detail = e.reason if e.new_state == kind else f"{e.reason} (straight to alarm)"
+        detail = e.reason[len(e.value_name) + 1:] if e.reason.startswith(f"{e.value_name} ") else e.reason
+        if e.new_state != kind:
+            detail += " (straight to alarm)"
         lines.append(f"  {_when(t, t0)}  {e.point_id:<6} {e.value_name:<16} {kind:<7}  {detail}")
     if len(firsts) > max_lines:
         lines.append(f"  ... {len(firsts) - max_lines} more")

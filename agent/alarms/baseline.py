@@ -119,6 +119,7 @@ class BaselineStore:
         self.entries: dict[str, Entry] = {}
         self._hashes: dict[str, str] = {}
         self._dirty = False
+        self._urgent = False  # a baseline was learned or reset: save at the next checkpoint
         self._saved_at_s: float | None = None
         self.path: Path | None = None
         if state_dir is not None:
@@ -171,7 +172,8 @@ class BaselineStore:
         """Feed one value of a running machine with a healthy sensor.
 
         Returns the baseline when this value completed the learning, else None. Values of entries
-        already learned, and non-finite values, are ignored.
+        already learned, and non-finite values, are ignored. Call :meth:`checkpoint` after each update
+        to write what was learned to disk.
         """
         e = self._entry(point_id, value_name)
         if e.status == "learned" or not math.isfinite(x):
@@ -196,7 +198,7 @@ class BaselineStore:
                 "baseline learned machine=%s key=%s median=%.6g mad=%.6g n=%d hours=%.2f",
                 self.machine.id, self.key(point_id, value_name), e.median, e.mad, e.n_seen, hours,
             )
-            self.save()
+            self._urgent = True
             return e.baseline
         return None
 
@@ -224,17 +226,18 @@ class BaselineStore:
 
     # ------------------------------------------------------------------------------------ persistence
     def checkpoint(self, time_s: float) -> None:
-        """Save learning progress now and then (every ``checkpoint_s`` of update time)."""
+        """Save after an update: at once when a baseline was learned, else learning progress every
+        ``checkpoint_s`` of update time."""
         if not self._dirty:
             return
-        if self._saved_at_s is None or time_s - self._saved_at_s >= self.checkpoint_s:
+        if self._urgent or self._saved_at_s is None or time_s - self._saved_at_s >= self.checkpoint_s:
             self.save()
             self._saved_at_s = time_s
 
     def save(self) -> None:
         """Write the baselines atomically. A failed write is logged; the baselines stay in memory."""
         if self.path is None:
-            self._dirty = False
+            self._dirty = self._urgent = False
             return
         doc = {
             "format": FORMAT,
@@ -251,7 +254,7 @@ class BaselineStore:
                 os.fsync(f.fileno())
             os.replace(tmp, self.path)
             tmp = None
-            self._dirty = False
+            self._dirty = self._urgent = False
         except (OSError, ValueError) as e:
             log.error("cannot save baselines path=%s error=%s", self.path, e)
         finally:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 
 import numpy as np
 import pytest
@@ -55,6 +56,7 @@ def test_baselines_survive_a_restart(tmp_path):
     store = BaselineStore(m, tmp_path)
     for t, x in enumerate([0.1, 0.12, 0.11]):
         store.add("p1", "outer", x, t)
+    store.checkpoint(2)  # after the update: a learned baseline is written at once
     again = BaselineStore(m, tmp_path)
     b = again.baseline("p1", "outer")
     assert b is not None and b.median == pytest.approx(0.11)
@@ -64,17 +66,39 @@ def test_baselines_survive_a_restart(tmp_path):
 
 def test_learning_progress_is_checkpointed(tmp_path):
     m = machine(learning_hours=10, min_learning_updates=3)
-    store = BaselineStore(m, tmp_path, checkpoint_s=0.0)
+    store = BaselineStore(m, tmp_path, checkpoint_s=600.0)
     store.add("p1", "overall", 1.0, 0.0)
-    store.checkpoint(0.0)
-    again = BaselineStore(m, tmp_path)
-    assert again.progress("p1", "overall")[0] == 1
+    store.checkpoint(0.0)  # first checkpoint writes
+    store.add("p1", "overall", 1.0, 300.0)
+    store.checkpoint(300.0)  # 300 s later: not yet
+    assert BaselineStore(m, tmp_path).progress("p1", "overall")[0] == 1
+    store.add("p1", "overall", 1.0, 600.0)
+    store.checkpoint(600.0)
+    assert BaselineStore(m, tmp_path).progress("p1", "overall")[0] == 3
+
+
+def test_one_write_per_update_when_many_values_learn(tmp_path, monkeypatch):
+    store = BaselineStore(machine(learning_hours=0, min_learning_updates=1), tmp_path)
+    writes = []
+    real_replace = os.replace
+
+    def counting_replace(src, dst):
+        writes.append(dst)
+        real_replace(src, dst)
+
+    monkeypatch.setattr("rotorwatch.alarms.baseline.os.replace", counting_replace)
+    for p in ("p1", "p2"):
+        for v in ("overall", "outer"):
+            store.add(p, v, 1.0, 0)
+    store.checkpoint(0)
+    assert len(writes) == 1
 
 
 def test_changed_band_definition_relearns_but_changed_levels_do_not(tmp_path):
     m = machine(learning_hours=0, min_learning_updates=1)
     store = BaselineStore(m, tmp_path)
     store.add("p1", "outer", 0.1, 0)
+    store.checkpoint(0)
     assert store.is_learned("p1", "outer")
     new_levels = machine(learning_hours=0, min_learning_updates=1, band_levels={"relative_warning": 3.0})
     assert BaselineStore(new_levels, tmp_path).is_learned("p1", "outer")
@@ -83,6 +107,7 @@ def test_changed_band_definition_relearns_but_changed_levels_do_not(tmp_path):
     assert not BaselineStore(moved, tmp_path).is_learned("p1", "outer")
     assert BaselineStore(moved, tmp_path).is_learned("p1", "overall") is False  # never learned
     store.add("p1", "overall", 1.0, 0)
+    store.checkpoint(0)
     assert BaselineStore(moved, tmp_path).is_learned("p1", "overall")  # overall untouched by the band
 
 
@@ -92,6 +117,7 @@ def test_relearn_resets_the_chosen_values(tmp_path):
     for p in ("p1", "p2"):
         for v in ("overall", "outer"):
             store.add(p, v, 1.0, 0)
+    store.checkpoint(0)
     assert store.relearn("p1", "outer") == ["p1/outer"]
     again = BaselineStore(m, tmp_path)
     assert not again.is_learned("p1", "outer")
@@ -112,6 +138,7 @@ def test_corrupt_file_is_moved_aside_not_lost(tmp_path):
 def test_write_is_atomic_no_temporary_left(tmp_path):
     store = BaselineStore(machine(learning_hours=0, min_learning_updates=1), tmp_path)
     store.add("p1", "overall", 1.0, 0)
+    store.checkpoint(0)
     names = sorted(p.name for p in (tmp_path / "baselines").iterdir())
     assert names == ["fan1.json"]
 
