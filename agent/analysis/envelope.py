@@ -165,7 +165,7 @@ class EnvelopeKernel:
         k = self._welch_cache.get(key)
         if k is None:
             n_overlap = min(int(round(n_per_seg * self.plan.overlap_frac)), n_per_seg - 1)
-            k = WelchKernel(hann(n_per_seg), n_overlap, fs_c)
+            k = WelchKernel(hann(n_per_seg), n_overlap, fs_c, dtype=np.float32)
             if len(self._welch_cache) > 32:
                 self._welch_cache.clear()
             self._welch_cache[key] = k
@@ -176,7 +176,7 @@ class EnvelopeKernel:
         """rfft of the block (mean removed) with its ends tapered."""
         n = x0.size
         n_fft, n_trim, ramp = self._block_setup(n)
-        xt = x0.astype(np.float32)  # single precision: see spectrum.py
+        xt = np.array(x0, dtype=np.float32)  # a copy, in single precision (see spectrum.py)
         xt[:n_trim] *= ramp
         xt[n - n_trim:] *= ramp[::-1]
         return BlockSpectrum(scipy.fft.rfft(xt, n_fft), n, n_fft, n_trim, self.fs_hz / n_fft)
@@ -266,10 +266,10 @@ class EnvelopeKernel:
         """Envelope and squared-envelope spectra of the block in ``band_hz``."""
         plan, n = self.plan, bs.n_samples
         z, fs_c, band = self.band_signal(bs, band_hz)
-        both = np.empty((2, z.size))
+        both = np.empty((2, z.size), dtype=np.float32)  # single precision, like the other transforms
         sq = both[1]
-        np.multiply(z.real, z.real, out=sq, dtype=np.float64)
-        sq += np.square(z.imag, dtype=np.float64)
+        np.multiply(z.real, z.real, out=sq)
+        sq += np.square(z.imag)
         np.sqrt(sq, out=both[0])
         n_per_seg = int(math.ceil(fs_c / plan.df_hz - 1e-9))
         if scipy.fft.next_fast_len(n_per_seg, real=True) <= z.size:

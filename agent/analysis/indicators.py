@@ -20,17 +20,18 @@ import numpy as np
 from rotorwatch.analysis.result import Waveform
 
 
-def waveform(block_m_s2: np.ndarray) -> tuple[Waveform, np.ndarray]:
-    """Indicators of a block (m/s^2) and the block with its mean removed (reused by the spectra)."""
+def waveform(block_m_s2: np.ndarray, dtype: type = np.float64) -> tuple[Waveform, np.ndarray]:
+    """Indicators of a block (m/s^2) and the block with its mean removed, in ``dtype`` (the analyzer asks
+    for float32, which its transforms use; the moments are accumulated in double precision either way)."""
     x = np.asarray(block_m_s2, dtype=float)
     n = x.size
     mean = float(x.sum() / n)
-    x0 = x - mean
+    x0 = np.subtract(x, mean, dtype=dtype)
     peak = float(max(x0.max(), -x0.min()))
     sq = x0 * x0
-    m2 = float(sq.sum() / n)
+    m2 = float(sq.sum(dtype=np.float64) / n)
     sq *= sq  # in place; (BLAS dot products are avoided: threaded start-up costs more than they save here)
-    m4 = float(sq.sum() / n)
+    m4 = float(sq.sum(dtype=np.float64) / n)
     rms = math.sqrt(m2)
     if m2 > 0.0:
         crest = peak / rms

@@ -90,7 +90,7 @@ class PointAnalyzer:
                 keep_spectra: bool = False, rpm_source: str | None = None) -> PointResult:
         p = self.plan
         x = self._check_block(block_m_s2)
-        wave, x0 = waveform(x)
+        wave, x0 = waveform(x, dtype=np.float32)  # the transforms run in single precision (spectrum.py)
 
         accel_psd = self._welch.psd(x0)
         if p.ac_power_gain is not None:

@@ -77,12 +77,14 @@ class WelchKernel:
                 f"samples ({self.n_per_seg / self.fs_hz:.3g} s at {self.fs_hz:g} Hz)"
             )
         segs = sliding_window_view(x, self.n_per_seg, axis=-1)[..., :: self.hop, :][..., :n_seg, :]
-        spec = scipy.fft.rfft(segs * self._window, axis=-1)
+        spec = scipy.fft.rfft(segs * self._window, axis=-1, overwrite_x=True)
         means = segs.mean(axis=-1, dtype=np.float64)
         spec[..., self._mean_bins] -= (means[..., None] * self._mean_dft).astype(spec.dtype)
-        power = spec.real**2
-        power += spec.imag**2
-        return power.sum(axis=-2, dtype=np.float64) * (self._scale / n_seg)
+        # sum over segments of |X|^2 without temporaries: the complex array seen as (re, im) pairs
+        pairs = spec.view(spec.real.dtype)
+        sums = np.einsum("...ij,...ij->...j", pairs, pairs).astype(np.float64)
+        power = sums[..., 0::2] + sums[..., 1::2]
+        return power * (self._scale / n_seg)
 
     def line_rms(self, psd: np.ndarray) -> np.ndarray:
         """RMS of each line: sqrt(PSD * df * ENBW); a tone centred on a line reads its RMS there."""

@@ -149,7 +149,7 @@ def test_fast_analysis_agrees_with_the_scipy_reference():
     assert fast.bands["hf"] == pytest.approx(ref.bands["hf"], rel=1e-4)
     assert fast.bands["v1x"] == pytest.approx(ref.bands["v1x"], rel=1e-4)
     assert fast.bands["or"] == pytest.approx(ref.bands["or"], rel=0.05)  # ideal vs Butterworth band-pass
-    assert fast.waveform.kurtosis == pytest.approx(ref.waveform.kurtosis, rel=1e-9)
+    assert fast.waveform.kurtosis == pytest.approx(ref.waveform.kurtosis, rel=1e-6)  # float32 samples
     assert [f.name for f in fast.findings] == [f.name for f in ref.findings] == ["BPFO"]
     assert fast.findings[0].found_hz == pytest.approx(ref.findings[0].found_hz, abs=0.1)
 
