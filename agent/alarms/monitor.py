@@ -280,9 +280,15 @@ class MachineMonitor:
     # -------------------------------------------------------------------------------------- operator
     def acknowledge(self, point_id: str | None = None, value: str | None = None, time_s: float | None = None) -> list[AlarmEvent]:
         """Acknowledge alarms (all, one point's, or one value's). A latched alarm whose value has cleared
-        drops now; the returned events include any point and machine transitions this causes."""
+        drops now; the returned events include any point and machine transitions this causes.
+
+        Raises ``KeyError`` with the unknown point id or value name."""
         if point_id is not None and point_id not in self.slots:
             raise KeyError(point_id)
+        if value is not None and not any(
+            value in slots for pid, slots in self.slots.items() if point_id is None or pid == point_id
+        ):
+            raise KeyError(value)
         t = time_s if time_s is not None else (self.last_time_s if self.last_time_s is not None else time.time())
         events = []
         for pid, slots in self.slots.items():

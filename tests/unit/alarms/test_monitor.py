@@ -147,6 +147,15 @@ def test_latching_alarm_needs_acknowledge(tmp_path):
     assert step(mon, 8000.0).state == "normal"
 
 
+def test_acknowledge_unknown_names_raise_key_error(tmp_path):
+    mon = learned_monitor(tmp_path)
+    with pytest.raises(KeyError, match="p9"):
+        mon.acknowledge("p9")
+    with pytest.raises(KeyError, match="inner"):
+        mon.acknowledge("p1", "inner")
+    assert mon.acknowledge("p1", "outer") == []  # nothing latched: nothing changes
+
+
 def test_baseline_persists_across_a_new_monitor(tmp_path):
     learned_monitor(tmp_path).close()
     again = MachineMonitor(machine(), tmp_path)
