@@ -15,6 +15,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     bounded.add_argument("--once", action="store_true", help="stop after the first update round")
     bounded.add_argument("--max-updates", type=int, metavar="N", help="stop after N update rounds")
     p.add_argument("--duration", type=float, metavar="S", help="stop after S seconds (wall clock)")
+    p.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a config value, e.g. --set mqtt.port=1884 (repeatable; kept on reload)")
     p.add_argument("--log-format", choices=("text", "json"), default="text",
                    help="log lines on stderr: 'level component message key=value' or one JSON object")
     p.add_argument("--log-level", choices=("DEBUG", "INFO", "WARNING", "ERROR"), default="INFO")
@@ -33,5 +35,6 @@ def run(args: argparse.Namespace) -> int:
         state_dir=args.state_dir,
         max_updates=1 if args.once else args.max_updates,
         duration_s=args.duration,
+        overrides=tuple(args.overrides),
     )
     return Daemon(args.config, options).run()

@@ -62,6 +62,7 @@ class RunOptions:
     state_dir: str | None = None
     max_updates: int | None = None  # stop after this many update rounds (tests, --once)
     duration_s: float | None = None  # stop after this many wall seconds (tests)
+    overrides: tuple[str, ...] = ()  # --set section.key=value, applied at start and on every reload
     stop_timeout_s: float = 5.0
     # READY=1 goes out after the first good update; if the input stays away this long after start,
     # it goes out anyway (the daemon is up and reporting the fault), so systemd does not kill it.
@@ -176,7 +177,7 @@ class Daemon:
     def run(self) -> int:
         """Run until stopped; returns the exit status. Bad configuration raises ConfigError."""
         self._install_signals()
-        config = load_config(self.config_path)
+        config = load_config(self.config_path, self.options.overrides)
         self.config = config
         self.state_dir = self._state_dir(config)
         self.speeds = SpeedBoard(config)
@@ -527,7 +528,7 @@ class Daemon:
         assert self.config is not None
         self.notifier.reloading()
         try:
-            new = load_config(self.config_path)
+            new = load_config(self.config_path, self.options.overrides)
             runtimes = self._build_runtimes(new, keep=self.runtimes)
         except ConfigError as e:
             msg = "; ".join(e.problems)

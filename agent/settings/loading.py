@@ -79,6 +79,40 @@ def validate(model: type[M], data: dict[str, Any], source: str) -> M:
         raise ConfigError(validation_problems(source, e)) from None
 
 
-def load_config(path: str | Path) -> Config:
-    """Load and validate a machine configuration file."""
-    return validate(Config, read_toml(path), str(path))
+def apply_overrides(data: dict[str, Any], overrides: list[str] | tuple[str, ...], source: str) -> dict[str, Any]:
+    """Apply ``section.key=value`` overrides (``--set`` on the command line) to parsed TOML data.
+
+    The value is read as a TOML value (``port=1884``, ``bind="0.0.0.0"``, ``loop=true``); anything that
+    does not parse as one is taken as a plain string. Tables on the path are created when missing.
+    """
+    problems = []
+    for item in overrides:
+        key, sep, raw = item.partition("=")
+        parts = [k.strip() for k in key.split(".")]
+        if not sep or not all(parts):
+            problems.append(f"--set {item!r}: expected section.key=value, e.g. mqtt.port=1884")
+            continue
+        try:
+            value = tomllib.loads(f"v = {raw}")["v"]
+        except tomllib.TOMLDecodeError:
+            value = raw
+        node = data
+        for part in parts[:-1]:
+            child = node.setdefault(part, {})
+            if not isinstance(child, dict):
+                problems.append(f"--set {item!r}: {part} is not a table in {source}")
+                break
+            node = child
+        else:
+            node[parts[-1]] = value
+    if problems:
+        raise ConfigError(problems)
+    return data
+
+
+def load_config(path: str | Path, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """Load and validate a machine configuration file, with optional ``--set`` overrides."""
+    data = read_toml(path)
+    if overrides:
+        data = apply_overrides(data, overrides, str(path))
+    return validate(Config, data, str(path))
