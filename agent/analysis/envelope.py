@@ -79,8 +79,8 @@ class BlockSpectrum:
 @dataclass(frozen=True)
 class BandChoice:
     band_hz: tuple[float, float]
-    kurtosis: float
-    cyclic: float
+    kurtosis: float  # spectral kurtosis of the band
+    score: float  # the criterion's value (cyclic content or SK)
 
 
 @dataclass(frozen=True)
@@ -211,7 +211,7 @@ class EnvelopeKernel:
         plan, df = self.plan, bs.df_hz
         k_min = int(math.ceil(plan.auto_min_hz / df))
         k_max = min(int(plan.auto_max_hz / df), bs.spec.size - 1)
-        best: tuple[float, float, float, int, int] | None = None  # (score, sk, cyclic, k_lo, k_w)
+        best: tuple[float, float, int, int] | None = None  # (score, sk, k_lo, k_w)
         width = min(0.25 * self.fs_hz, (k_max - k_min) * df)
         while width >= plan.min_bandwidth_hz * (1 - 1e-9):
             k_w = scipy.fft.prev_fast_len(max(int(width / df), 8))
@@ -227,19 +227,23 @@ class EnvelopeKernel:
             c = c[:, cut: n_valid - cut]
             p = c.real**2
             p += c.imag**2
-            sk = _sk_of_power(p)
-            cyc = self._cyclic(p, k_w * df, shaft_hz) if criterion == "cyclic" else sk
-            score = cyc if criterion == "cyclic" else sk
-            i = int(np.argmax(score))
+            if criterion == "cyclic":
+                score = self._cyclic(p, k_w * df, shaft_hz)
+                i = int(np.argmax(score))
+                sk_i = float(_sk_of_power(p[i]))  # reported for the chosen band only
+            else:
+                score = _sk_of_power(p)
+                i = int(np.argmax(score))
+                sk_i = float(score[i])
             if best is None or score[i] > best[0]:
-                best = (float(score[i]), float(sk[i]), float(cyc[i]), int(starts[i]), k_w)
+                best = (float(score[i]), sk_i, int(starts[i]), k_w)
         if best is None:
             raise InputError(
                 f"no envelope band of at least {plan.min_bandwidth_hz:g} Hz fits between auto_min_hz = "
                 f"{plan.auto_min_hz:g} Hz and {plan.auto_max_hz:g} Hz"
             )
-        _, sk, cyc, k_lo, k_w = best
-        return BandChoice((k_lo * df, (k_lo + k_w) * df), sk, cyc)
+        score, sk, k_lo, k_w = best
+        return BandChoice((k_lo * df, (k_lo + k_w) * df), sk, score)
 
     def band_signal(self, bs: BlockSpectrum, band_hz: tuple[float, float]) -> tuple[np.ndarray, float, tuple[float, float]]:
         """Analytic signal of the band, shifted down by its low edge, at the reduced rate: (z, fs_c, band).
