@@ -2,7 +2,8 @@
 
 Input: a WAV file (read with soundfile; calibrated float samples in g, or m/s^2 with ``--unit m/s2``;
 ``--channel`` picks the channel) or a numpy ``.npz`` archive with ``signal`` (acceleration in g) and
-``fs`` (Hz). The whole recording is analysed as one block.
+``fs`` (Hz). The recording is analysed as one block, up to ``--max-seconds`` (default 120 s) from its
+start.
 
 The machine comes either from a configuration (``--config C --point P``, ``--machine M`` when the file
 describes more than one machine) or from the command line (quick mode): ``--rpm``, one ``--bearing`` per
@@ -32,6 +33,7 @@ from rotorwatch.errors import ConfigError, InputError
 from rotorwatch.settings.models import G_N
 
 MIN_RATE_HZ = 1000.0
+MAX_SECONDS = 120.0  # one block: longer recordings are cut, to bound memory (about 40 bytes per sample)
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -49,6 +51,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--unit", choices=("g", "m/s2"), default="g", help="unit of WAV samples (default g; .npz is always g)")
     p.add_argument("--channel", type=int, default=0, help="WAV channel, 0-based (default 0)")
     p.add_argument("--format", choices=("text", "json"), default="text", help="output format (default text)")
+    p.add_argument("--max-seconds", type=float, default=MAX_SECONDS,
+                   help=f"analyse at most this many seconds from the start (default {MAX_SECONDS:g})")
 
 
 # ------------------------------------------------------------------------------------------- reading
@@ -305,8 +309,9 @@ def format_text(r: dict[str, Any]) -> str:
     lo, hi = r["envelope_band_hz"]
     how = "searched" if r["envelope_band_searched"] else "fixed"
     sk = f", spectral kurtosis {r['envelope_kurtosis']:.2f}" if r["envelope_kurtosis"] is not None else ""
+    cut = f" (first {r['duration_s']:.2f} s of {r['file_duration_s']:.2f} s)" if r["file_duration_s"] > r["duration_s"] else ""
     lines = [
-        f"{r['file']}: {r['duration_s']:.2f} s at {r['fs_hz']:g} Hz ({r['n_samples']} samples), "
+        f"{r['file']}: {r['duration_s']:.2f} s at {r['fs_hz']:g} Hz ({r['n_samples']} samples){cut}, "
         f"machine {r['machine']} point {r['point']}",
         f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz",
         f"  overall velocity  {r['overall_velocity_mm_s']:.3f} mm/s RMS ({r['overall_band_hz'][0]:g}-{r['overall_band_hz'][1]:g} Hz): "
@@ -348,13 +353,18 @@ def run(args: argparse.Namespace) -> int:
         point = machine.points[0]
     if args.rpm is not None and not (math.isfinite(args.rpm) and args.rpm > 0):
         raise InputError(f"--rpm {args.rpm:g}: must be a speed above 0")
+    if not (math.isfinite(args.max_seconds) and args.max_seconds > 0):
+        raise InputError(f"--max-seconds {args.max_seconds:g}: must be a positive number of seconds")
     x, fs = read_recording(args.file, args.unit, args.channel)
+    n_file = x.size
+    x = x[: int(args.max_seconds * fs)]
     try:
         analyzer = PointAnalyzer(machine, point, fs)
         result = analyzer.analyze(x, rpm=args.rpm, keep_spectra=True)
     except InputError as e:
         raise InputError(f"{args.file}: {e}") from None
     report = build_report(args.file, machine, point, result, fs, x.size)
+    report["file_duration_s"] = n_file / fs
     if args.format == "json":
         json.dump(report, sys.stdout, indent=2, allow_nan=False, default=_json_default)
         sys.stdout.write("\n")

@@ -130,3 +130,12 @@ def test_bearing_specs():
     assert mixed["element_diameter"] == pytest.approx(6.35) and mixed["pitch_diameter"] == 40.0
     assert parse_bearing("bpfo=3.5848,bpfi=5.4152,bsf=2.3566,ftf=0.39828", 3) == {
         "id": "b3", "bpfo": 3.5848, "bpfi": 5.4152, "bsf": 2.3566, "ftf": 0.39828}
+
+
+def test_long_recordings_are_cut_to_max_seconds(tmp_path, capsys):
+    f = tmp_path / "long.npz"
+    np.savez(f, signal=_faulty(seconds=10.0), fs=25600.0)
+    rc, out, _ = _run(capsys, f, "--rpm", 1500, "--max-seconds", 6, "--format", "json")
+    doc = json.loads(out)
+    assert rc == 0 and doc["n_samples"] == 6 * 25600 and doc["file_duration_s"] == pytest.approx(10.0)
+    assert "must be a positive" in _error(capsys, f, "--rpm", 1500, "--max-seconds", 0)
