@@ -96,16 +96,18 @@ class SesReader:
         return float(np.partition(seg, mid)[mid])
 
     def peak(self, lo_hz: float, hi_hz: float, floor_half_width_hz: float) -> LineCheck | None:
-        """Highest local maximum within [lo_hz, hi_hz], or None when the window has none."""
+        """Highest local maximum within [lo_hz, hi_hz], or None when the window holds none."""
         lo = max(int(math.ceil(lo_hz / self.df)), 1)
         hi = min(int(math.floor(hi_hz / self.df)), self.n - 2)
         if hi < lo:
             lo = hi = min(max(int(round(0.5 * (lo_hz + hi_hz) / self.df)), 1), self.n - 2)
-        seg = self.a[lo: hi + 1]
-        i = lo + int(np.argmax(seg))
-        y0, y1, y2 = self.a[i - 1], self.a[i], self.a[i + 1]
-        if y1 < y0 or y1 < y2:  # rising out of the window: another line's skirt
+        seg = self.a[lo - 1: hi + 2]
+        mid = seg[1:-1]
+        local = (mid >= seg[:-2]) & (mid >= seg[2:])  # a bin rising out of the window is another line's skirt
+        if not local.any():
             return None
+        i = lo + int(np.argmax(np.where(local, mid, -np.inf)))
+        y0, y1, y2 = self.a[i - 1], self.a[i], self.a[i + 1]
         den = y0 - 2 * y1 + y2
         shift = 0.5 * (y0 - y2) / den if den < 0 else 0.0
         hz = (i + shift) * self.df

@@ -7,7 +7,8 @@ and sampling rate) and never changes afterwards; each update only reads it. It h
   (``fs / n_per_seg <= fmax_hz / lines``, rounded up to a power of two), overlap, Hann window;
 - the velocity integration weights (1/(2 pi f))^2 with the low cut-off, and the overall band's bins;
 - each configured band, with its bins when its edges are fixed in Hz;
-- the envelope set-up (fixed demodulation band or spectral-kurtosis search, span, lines);
+- the envelope set-up (fixed demodulation band or band search, span, lines: the configured count, capped
+  so that two half-overlapping envelope segments fit one update window);
 - the bearing defects to look for, with their tolerance and harmonic count;
 - the speed settings (source, nominal, search range, stop threshold).
 
@@ -39,6 +40,7 @@ HANN_LOBE_MARGIN_BINS = 1.5
 AC_CORRECTION_MAX = 10.0
 # The envelope analysis tapers this fraction of the block at each end and drops it afterwards.
 EDGE_TAPER_FRACTION = 0.02
+MIN_ENVELOPE_LINES = 100
 
 
 @dataclass(frozen=True)
@@ -67,8 +69,9 @@ class EnvelopePlan:
     auto_min_hz: float
     auto_max_hz: float  # top of the search range (just below Nyquist)
     fmax_hz: float  # envelope-spectrum span
-    lines: int
-    df_hz: float  # asked resolution of the envelope spectrum, fmax_hz / lines
+    lines: int  # lines used: the configured count, fewer when the update window cannot hold them
+    lines_asked: int
+    df_hz: float  # resolution of the envelope spectrum, fmax_hz / lines
     overlap_frac: float
     min_bandwidth_hz: float  # narrowest demodulation band the search considers
 
@@ -191,7 +194,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     an = machine.analysis
     fmax = an.fmax_hz if an.fmax_hz is not None else fs_hz / 2.56
     if fmax > nyquist:
-        raise _too_fast(f"machine {machine.id!r} analysis.fmax_hz", fmax, fs_hz)
+        raise _too_fast("analysis.fmax_hz", fmax, fs_hz)
     n_per_seg = _segment_length(fs_hz, fmax, an.lines)
     n_overlap = min(int(round(n_per_seg * an.overlap_pct / 100.0)), n_per_seg - 1)
     freqs = np.fft.rfftfreq(n_per_seg, 1.0 / fs_hz)
@@ -210,7 +213,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
 
     ov = machine.overall
     if ov.high_hz >= nyquist:
-        raise _too_fast(f"machine {machine.id!r} overall.high_hz", ov.high_hz, fs_hz)
+        raise _too_fast("overall.high_hz", ov.high_hz, fs_hz)
     speed = _speed(machine)
     slow_hz = (speed.min_rpm or speed.nominal_rpm) / 60.0
     fast_hz = highest_rpm(speed) / 60.0
@@ -222,7 +225,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         edges_fast = _band_edges_at(machine, band, fast_hz)
         top = max(hi for _, hi in edges_fast)
         if band.quantity != "envelope" and top >= nyquist:
-            raise _too_fast(f"machine {machine.id!r} band {band.name!r}", top, fs_hz)
+            raise _too_fast(f"band {band.name!r}", top, fs_hz)
         if band.quantity == "velocity":
             low = min(lo for lo, _ in _band_edges_at(machine, band, slow_hz))
             cutoff = min(cutoff, 0.8 * low)
@@ -239,22 +242,35 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     env_cfg = an.envelope
     env_fmax = env_cfg.fmax_hz if env_cfg.fmax_hz is not None else _envelope_span_hz(machine, point, defects, fast_hz)
     if env_cfg.band_hz is not None and env_cfg.band_hz[1] >= nyquist:
-        raise _too_fast(f"machine {machine.id!r} analysis.envelope.band_hz", env_cfg.band_hz[1], fs_hz)
+        raise _too_fast("analysis.envelope.band_hz", env_cfg.band_hz[1], fs_hz)
     auto_max = 0.98 * nyquist
     min_bw = max(env_fmax, 20.0 * df)
     if env_cfg.band_hz is None and env_cfg.auto_min_hz + min_bw > auto_max:
         raise InputError(
-            f"sample rate {fs_hz:g} Hz is too low for the envelope band search of machine {machine.id!r}: "
+            f"sample rate {fs_hz:g} Hz is too low for the envelope band search: "
             f"it starts at auto_min_hz = {env_cfg.auto_min_hz:g} Hz and needs at least {min_bw:g} Hz of "
             f"bandwidth below {auto_max:g} Hz"
+        )
+    # The envelope span follows the speed, so its resolution fmax/lines could ask for segments longer
+    # than an update: the lines are capped so that two half-overlapping segments fit the window's
+    # untapered part (the same averaging the spectrum gets at least).
+    overlap = an.overlap_pct / 100.0
+    usable_s = an.window_s * (1.0 - 2.0 * EDGE_TAPER_FRACTION)
+    env_lines = min(env_cfg.lines, int(env_fmax * usable_s / (2.0 - overlap)))
+    if env_lines < MIN_ENVELOPE_LINES:
+        need_s = MIN_ENVELOPE_LINES / env_fmax * (2.0 - overlap) / (1.0 - 2.0 * EDGE_TAPER_FRACTION)
+        raise InputError(
+            f"a window of {an.window_s:.3g} s (analysis.window_s) is too short for an envelope spectrum of "
+            f"{MIN_ENVELOPE_LINES} lines to {env_fmax:g} Hz: it needs at least {need_s:.3g} s"
         )
     envelope = EnvelopePlan(
         band_hz=tuple(env_cfg.band_hz) if env_cfg.band_hz is not None else None,  # type: ignore[arg-type]
         auto_min_hz=env_cfg.auto_min_hz,
         auto_max_hz=auto_max,
         fmax_hz=float(env_fmax),
-        lines=env_cfg.lines,
-        df_hz=float(env_fmax) / env_cfg.lines,
+        lines=env_lines,
+        lines_asked=env_cfg.lines,
+        df_hz=float(env_fmax) / env_lines,
         overlap_frac=an.overlap_pct / 100.0,
         min_bandwidth_hz=min_bw,
     )

@@ -358,6 +358,8 @@ def run(args: argparse.Namespace) -> int:
     x, fs = read_recording(args.file, args.unit, args.channel)
     n_file = x.size
     x = x[: int(args.max_seconds * fs)]
+    # the recording is one update: its length is the window (envelope lines are sized to fit it)
+    machine = machine.model_copy(update={"analysis": machine.analysis.model_copy(update={"window_s": x.size / fs})})
     try:
         analyzer = PointAnalyzer(machine, point, fs)
         result = analyzer.analyze(x, rpm=args.rpm, keep_spectra=True)

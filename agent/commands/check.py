@@ -35,7 +35,7 @@ def _plan_problems(path: str, cfg: Config) -> list[str]:
             try:
                 plan = build_plan(m, p, fs)
             except InputError as e:
-                problems.append(f"{path}: machines[{i}].points[{j}] ({m.id}/{p.id}) at acquisition.sample_rate_hz = {fs:g}: {e}")
+                problems.append(f"{path}: machines[{i}] ({m.id}), point {p.id!r} at {fs:g} Hz sampling: {e}")
                 continue
             need_s = plan.min_samples / fs
             if m.analysis.window_s < need_s:
@@ -93,7 +93,9 @@ def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool
         out.write(f"    spectrum: {plan.lines} lines to {plan.fmax_hz:g} Hz at {fs_hz:g} Hz sampling "
                   f"(segments of {plan.n_per_seg} samples, {plan.df_hz:.4g} Hz resolution); needs blocks of "
                   f"at least {plan.min_samples / fs_hz:.3g} s, window {m.analysis.window_s:g} s\n")
-        out.write(f"    envelope: band {band}, {env.lines} lines to {env.fmax_hz:g} Hz\n")
+        capped = f" (of {env.lines_asked} asked: limited by window_s)" if env.lines < env.lines_asked else ""
+        out.write(f"    envelope: band {band}, {env.lines} lines{capped} to {env.fmax_hz:g} Hz "
+                  f"({env.df_hz:.3g} Hz resolution)\n")
         bands = m.bands_for(p.id)
         if not bands:
             out.write("    no bands\n")

@@ -71,8 +71,10 @@ BAD = [
      ["machines[0].analysis.envelope", "low edge must be below the high edge"]),
     ("negative-speed", ("rpm = 1480", "rpm = -5"), ["machines[0].speed.rpm = -5", "greater than 0"]),
     ("channel-out-of-range", ("channel = 0,", "channel = 5,"), ["fan/p1 uses input channel 5", "acquisition.channels = 2"]),
-    ("window-too-short", ("window_s = 4.0", "window_s = 1.0"),
-     ["machines[0].analysis.window_s = 1", "shorter than", "lines"]),
+    ("window-too-short", ("window_s = 4.0", "window_s = 0.2"),
+     ["machines[0] (fan), point 'p1'", "window of 0.2 s (analysis.window_s) is too short", "lines"]),
+    ("spectrum-longer-than-window", ("lines = 3200", "lines = 102400"),
+     ["machines[0].analysis.window_s = 4", "shorter than", "102400 lines"]),
     ("toml-syntax", ("id = \"fan\"", "id = fan\""), ["TOML syntax"]),
 ]
 
