@@ -27,7 +27,7 @@ import numpy as np
 from rotorwatch import kinematics
 from rotorwatch.analysis.spectrum import hann
 from rotorwatch.errors import InputError
-from rotorwatch.settings.models import Band, Machine, Point
+from rotorwatch.settings.models import Band, Machine, Point  # noqa: F401 (Band: BandPlan field type)
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
 DEFECT_NAMES = ("bpfo", "bpfi", "bsf", "ftf")
@@ -182,10 +182,6 @@ def _envelope_span_hz(machine: Machine, point: Point, defects: tuple[DefectPlan,
     return 50.0 * math.ceil(top / 50.0)
 
 
-def _band_edges_at(machine: Machine, band: Band, shaft_hz: float) -> list[tuple[float, float]]:
-    return kinematics.band_edges_hz(machine, band, shaft_hz)
-
-
 def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     """Turn the settings of ``point`` on ``machine`` into an :class:`AnalysisPlan` at ``fs_hz``."""
     if not (fs_hz > 0 and math.isfinite(fs_hz)):
@@ -222,12 +218,12 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     cutoff = ov.low_hz
     bands = []
     for band in machine.bands_for(point.id):
-        edges_fast = _band_edges_at(machine, band, fast_hz)
+        edges_fast = kinematics.band_edges_hz(machine, band, fast_hz)
         top = max(hi for _, hi in edges_fast)
         if band.quantity != "envelope" and top >= nyquist:
             raise _too_fast(f"band {band.name!r}", top, fs_hz)
         if band.quantity == "velocity":
-            low = min(lo for lo, _ in _band_edges_at(machine, band, slow_hz))
+            low = min(lo for lo, _ in kinematics.band_edges_hz(machine, band, slow_hz))
             cutoff = min(cutoff, 0.8 * low)
         fixed = tuple(edges_fast) if band.low_hz is not None else None
         bands.append(BandPlan(band, band.quantity, fixed))

@@ -4,8 +4,9 @@
     result = analyzer.analyze(block_m_s2, time_s=t)      # per update
 
 Per update: waveform indicators; Welch acceleration PSD (Hann); velocity by integration and the overall
-velocity RMS with its ISO 20816-3 zone; the running speed; band values (orders follow that speed);
-envelope and squared-envelope spectra; bearing findings. The block is calibrated acceleration in m/s^2
+velocity RMS with its ISO 20816-3 zone; one FFT of the whole block, shared by the running-speed estimate
+(fine resolution) and the envelope; band values (orders follow the speed used); envelope and
+squared-envelope spectra; bearing findings and each defect's line prominence. The block is calibrated acceleration in m/s^2
 (the caller divides volts by the sensor's sensitivity).
 
 Speed used when ``rpm`` is not given: ``fixed`` -> the configured rpm; ``estimated`` -> the harmonic-sum
@@ -98,7 +99,6 @@ class PointAnalyzer:
         vel_psd = velocity_psd(p, accel_psd)
         overall = overall_velocity_mm_s(p, vel_psd)
         zone = severity.zone(overall, p.iso_group, p.support)
-        accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
 
         bs = self._envelope.block_spectrum(x0)
         rpm_used, source = self._speed(bs, rpm, rpm_source)
@@ -112,6 +112,7 @@ class PointAnalyzer:
         spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
         if keep_spectra:
             freqs = p.freqs_hz[: p.n_keep]
+            accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
             spectra["acceleration"] = Spectrum(freqs, accel_rms, "m/s^2")
             spectra["velocity"] = Spectrum(freqs, velocity_line_rms(p, accel_rms), "mm/s")
             spectra["envelope"] = Spectrum(env.freqs_hz, env.envelope_rms, "m/s^2")

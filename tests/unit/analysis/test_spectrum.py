@@ -120,3 +120,21 @@ def test_analyzer_acceleration_spectrum_scaling():
     assert acc.freqs_hz[np.argmax(acc.amplitude)] == pytest.approx(f0)
     assert acc.amplitude.max() == pytest.approx(1.0, abs=2e-5)
     assert acc.freqs_hz[-1] <= 10000.0 and acc.freqs_hz.size == 3201  # 3200 lines + DC
+
+
+def test_ac_coupling_correction_restores_a_first_order_high_pass():
+    # reference: a first-order Butterworth high-pass at the corner (scipy.signal.butter + sosfilt); its
+    # |H|^2 = f^2 / (f^2 + fc^2) is what the plan's correction undoes
+    fs, fc = 25600.0, 5.0
+    m = machine(analysis={"fmax_hz": 10000})
+    m = m.model_copy(update={"points": [m.points[0].model_copy(update={"sensor": m.points[0].sensor.model_copy(
+        update={"ac_coupling_corner_hz": fc})})]})
+    a = PointAnalyzer(m, m.points[0], fs)
+    f0 = 2 * a.plan.df_hz  # 6.25 Hz, on a line just above the corner: the high-pass passes 78 % of it
+    t = np.arange(int(8 * fs)) / fs
+    x = np.sqrt(2) * np.sin(2 * np.pi * f0 * t)
+    sos = scipy.signal.butter(1, fc, btype="highpass", fs=fs, output="sos")
+    y = scipy.signal.sosfilt(sos, x)[int(2 * fs):]  # drop the filter's start-up
+    r = a.analyze(y, keep_spectra=True)
+    peak = r.acceleration.amplitude[np.argmin(np.abs(r.acceleration.freqs_hz - f0))]
+    assert peak == pytest.approx(1.0, rel=0.01)
