@@ -1,6 +1,7 @@
 """Bearing findings: which defect lines stand out in the squared-envelope spectrum (SES).
 
-The decision rule, for each defect (BPFO, BPFI, BSF, FTF) of the point's bearing(s) at the speed used:
+The decision rule, for each defect (BPFO, BPFI, BSF, FTF) of each bearing of the machine (the point's
+own bearing first: a sensor also hears its neighbour) at the speed used:
 
 1. Expected rate f0 = defect order x shaft frequency. For BSF two series are tried, BSF and 2 x BSF (a
    spalled element strikes both races once per spin, so its impact rate is 2 x BSF; Randall & Antoni
@@ -22,12 +23,14 @@ The decision rule, for each defect (BPFO, BPFI, BSF, FTF) of the point's bearing
    the support condition cuts it further.
 7. strength = root-sum-square of the prominences of the fundamental and of the harmonics that count as
    support.
-8. Findings are accepted strongest first, re-evaluating the rest after each: an accepted finding
+8. Findings are accepted strongest first (when defects of several bearings, or of several kinds,
+   claim the same line, the one whose kinematic frequency it matches most closely takes it; ties go to
+   the point's own bearing), re-evaluating the rest after each: an accepted finding
    explains its harmonics h x f1 and the lines of its modulation family, each within 2 lines:
    BPFO: h x f1 + k x 1x + j x FTF (|k|, |j| <= 2: load zone and cage) and the cage-rate lines j x f1 / n
    (BPFO = n x FTF; uneven elements repeat once per cage turn); BPFI: h x f1 + k x 1x (|k| <= 5, the
    rotating defect's sideband family) and the lines j x f1 / n (ring-to-cage rate); BSF: h x f1 +/- 1, 2 x
-   FTF; FTF: its harmonics. One line is one finding. (For the university rig's bearing, FTF = 0.398 x
+   FTF and the cage-rate lines j x FTF (the element travels with the cage); FTF: its harmonics. One line is one finding. (For the university rig's bearing, FTF = 0.398 x
    shaft, so BPFO + 1x + 2 FTF falls within 0.4 % of BPFI: without this rule a strong outer-race fault
    would also report a weak inner-race one.)
 """
@@ -202,7 +205,10 @@ class _Evidence:
             if n_elements >= 2:
                 lines = np.concatenate([lines, np.arange(1, int(top_hz * n_elements / f1) + 2) * f1 / n_elements])
         elif c.name == "BSF":
-            lines = h + np.arange(-2, 3)[None, :] * cage
+            # the element travels with the cage: FTF sidebands and the cage-rate lines themselves
+            lines = (h + np.arange(-2, 3)[None, :] * cage).ravel()
+            if cage > 0:
+                lines = np.concatenate([lines, np.arange(1, int(top_hz / cage) + 2) * cage])
         else:
             lines = h
         self.explained.append(np.asarray(lines, dtype=float).ravel())
@@ -228,6 +234,11 @@ def decide(cands: list[Candidate], shaft_hz: float, df_hz: float, defects: tuple
         if not passing:
             break
         best = max(passing, key=lambda v: v.strength)
+        # Defects of different bearings (or kinds) may claim the same line: the one whose kinematic
+        # frequency the line matches most closely takes it (ties: the earlier, i.e. the point's bearing).
+        f_best = best.candidate.fundamental.found_hz
+        rivals = [v for v in passing if abs(v.candidate.fundamental.found_hz - f_best) <= evidence.guard_hz]
+        best = min(rivals, key=lambda v: abs(v.candidate.fundamental.found_hz / v.candidate.expected_hz - 1.0))
         c = best.candidate
         findings.append(Finding(
             name=c.name,

@@ -134,12 +134,16 @@ def _segment_length(fs_hz: float, fmax_hz: float, lines: int) -> int:
 
 
 def _defects(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
-    """Defects of the point's bearing (or of every bearing of the machine when the point names none).
+    """Defects of every bearing of the machine, the point's own bearing first.
+
+    A fault travels through the housings: a sensor on one bearing also sees its neighbour's defects, and
+    naming them by the wrong bearing's kinematics is worse than naming them right. The point's own
+    bearing comes first so that it wins ties (identical bearings at both ends).
 
     Tolerance and harmonic count come from an envelope band configured on the same feature and
     bearing, when there is one; otherwise the defaults above.
     """
-    bearings = [machine.bearing(point.bearing)] if point.bearing else list(machine.bearings)
+    bearings = sorted(machine.bearings, key=lambda b: b.id != point.bearing)
     out = []
     for b in bearings:
         mult = kinematics.bearing_multiples(b).as_dict()

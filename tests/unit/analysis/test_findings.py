@@ -89,3 +89,29 @@ def test_spalled_element_at_twice_bsf_is_named_bsf():
     r = PointAnalyzer(m, m.points[0], FS).analyze(x + rng.normal(0, 0.6, n))
     assert r.findings and r.findings[0].name == "BSF" and r.findings[0].series == "2xBSF"
     assert r.findings[0].found_hz == pytest.approx(rate, rel=0.003)
+
+
+def _two_bearing_machine(second: dict, rpm: float):
+    m = machine(rpm=rpm, envelope={"band_hz": [3000.0, 5000.0]})
+    doc = m.model_dump()
+    doc["bearings"].append(second)
+    doc["points"].append({"id": "p2", "bearing": second["id"], "sensor": {"channel": 1, "sensitivity_mv_per_g": 100.0}})
+    return type(m).model_validate(doc)
+
+
+def test_a_neighbour_bearing_fault_is_named_by_its_own_bearing():
+    # the sensor on b2 hears b1's outer-race fault through the housing: the line is b1's BPFO
+    shaft = 29.5
+    m = _two_bearing_machine({"id": "b2", "elements": 8, "element_diameter": 10.0, "pitch_diameter": 46.0}, shaft * 60)
+    x = _fault(M.bpfo * shaft, shaft, False, seed=3, seconds=8.0)
+    r = PointAnalyzer(m, m.point("p2"), FS).analyze(x)
+    assert [(f.name, f.bearing) for f in r.findings] == [("BPFO", "b1")]
+
+
+def test_identical_bearings_go_to_the_points_own_bearing():
+    shaft = 29.5
+    m = _two_bearing_machine({"id": "b2", "elements": 9, "element_diameter": 0.3126, "pitch_diameter": 1.537,
+                              "diameter_unit": "in"}, shaft * 60)
+    x = _fault(M.bpfo * shaft, shaft, False, seed=3, seconds=8.0)
+    assert [(f.name, f.bearing) for f in PointAnalyzer(m, m.point("p2"), FS).analyze(x).findings] == [("BPFO", "b2")]
+    assert [(f.name, f.bearing) for f in PointAnalyzer(m, m.point("p1"), FS).analyze(x).findings] == [("BPFO", "b1")]
