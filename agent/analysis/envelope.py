@@ -13,8 +13,8 @@ memory; Randall, "Modern envelope analysis for bearing diagnostics", COMADEM 201
    0 .. ``fmax_hz`` (the squared envelope of a band B wide spans +/- B, so fs_c > B + fmax_hz). The band's
    bins get a short raised-cosine taper at each edge to keep the ideal filter's ringing low.
 4. Envelope |z| and squared envelope |z|^2 (the squared envelope is the better detector: no square-root
-   distortion, Randall 2015), each with its mean removed, Welch-averaged (Hann) at the asked envelope
-   resolution ``fmax_hz / lines``.
+   distortion, Randall 2015), each with its mean removed, Welch-averaged (Hann) at the plan's envelope
+   resolution ``fmax_hz / lines`` (or a little finer, when that makes the segment an FFT-friendly length).
 
 The envelope spectrum (m/s^2 RMS per line of |z|) is what bands and evidence read; the squared-envelope
 spectrum (SES) is what the bearing findings read.
