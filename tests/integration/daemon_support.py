@@ -78,6 +78,8 @@ def daemon_config(broker=None, *, prefix: str, speedup: float = 600.0, update_in
                 mqtt: dict | None = None, metrics: bool = True, acquisition: dict | None = None,
                 latching: bool = True) -> dict:
     cfg = copy.deepcopy(demo_config_dict())
+    for section in ("mqtt", "metrics", "status_page"):  # the demo's fixed loopback ports: tests pick their own
+        cfg.pop(section, None)
     cfg["acquisition"].update({"source": "simulated", "scenario": "scenario.toml", "speedup": speedup,
                                "update_interval_s": update_interval_s})
     cfg["acquisition"].update(acquisition or {})
