@@ -12,7 +12,10 @@ Faults, all reported through :attr:`Capture.status` and counted in :class:`SelfS
 - the source delivers nothing for longer than ``stall_after_s`` (wall clock): ``stalled``; the source
   is closed and reopened with back-off;
 - ``read()`` raises (a device unplugged): closed and reopened with back-off;
-- a chunk with ``gap`` set: the rings restart filling, so no window splices the two sides of a gap.
+- a chunk with ``gap`` set: the rings restart filling, so no window splices the two sides of a gap;
+- a chunk with ``overflow`` set (samples lost in the driver or on a full queue): counted, and its mapped
+  start time kept in :attr:`Capture.last_overflow_s`, so the daemon reports every window that holds
+  the discontinuity as a sensor fault (``overflow``) instead of analysing it.
 
 Clock: chunk times are on the source clock (``Chunk.t0_s``). :class:`SourceClock` maps them onto a
 time line that never runs backwards: for simulated input (scenario seconds from 0) it anchors the
@@ -98,6 +101,8 @@ class Capture:
         self.chunks = 0
         self.run_id = 0  # incremented whenever continuity breaks (reopen, gap): analysis re-bases its schedule
         self.last_data_monotonic: float | None = None
+        self._last_overflow_s: float | None = None  # mapped time of the newest overflowed chunk's first frame
+        self.overflows = 0
         self.source = None
 
     # -- status ----------------------------------------------------------------------------------
@@ -125,6 +130,12 @@ class Capture:
         """Mapped time just after the newest sample (None before the first chunk)."""
         with self._lock:
             return self.clock.last_end_s
+
+    @property
+    def last_overflow_s(self) -> float | None:
+        """Mapped time where samples were last lost (the first frame after the loss), or None."""
+        with self._lock:
+            return self._last_overflow_s
 
     # -- thread ----------------------------------------------------------------------------------
     def start(self) -> None:
@@ -214,6 +225,9 @@ class Capture:
         duration = n / self.fs_hz
         with self._lock:
             t0 = self.clock.map(chunk.t0_s, duration, new_run or chunk.gap)
+            if chunk.overflow:
+                self._last_overflow_s = t0
+                self.overflows += 1
         end = t0 + duration
         for ch, ring in self.rings.items():
             ring.write(frames[:, ch], end)

@@ -154,6 +154,7 @@ class Daemon:
         self._next_due: float | None = None
         self._run_id: int | None = None
         self._last_no_input_report = 0.0
+        self._faults_now: dict[tuple[str, str], str | None] = {}  # (machine, point) -> sensor fault kind now
         self._stop_reason = "stopped"
         self._started = time.monotonic()
 
@@ -410,8 +411,15 @@ class Daemon:
         self._next_due += (behind + 1) * interval
         updated = 0
         good = False
+        lost_at = cap.last_overflow_s
         for rt in list(self.runtimes.values()):
             blocks, end_s = self._windows(rt)
+            span_end = end_s if blocks is not None else t
+            if lost_at is not None and span_end - rt.machine.analysis.window_s < lost_at < span_end:
+                # samples were lost inside this window (or it is refilling after the loss): not analysed
+                self._report_overflow(rt, span_end, lost_at, cap.overflows)
+                updated += 1
+                continue
             if blocks is None:
                 continue  # the window is still filling
             rpm, rpm_source = self._rpm(rt)
@@ -477,6 +485,7 @@ class Daemon:
 
     def _deliver(self, rt: MachineRuntime, update: MachineUpdate, blocks: dict[str, np.ndarray] | None) -> None:
         rt.last_update = update
+        self._count_sensor_faults(update)
         if blocks is not None:
             rt.last_blocks = blocks
         if self.evidence is not None:
@@ -489,6 +498,27 @@ class Daemon:
             self.publisher.publish_update(update)
         if self.status_board is not None:
             self.status_board.publish(update, blocks)
+
+    def _report_overflow(self, rt: MachineRuntime, time_s: float, lost_at_s: float, n_overflows: int) -> None:
+        """A window that holds lost samples: every point of the machine reads sensor_fault (overflow)."""
+        ago_s = time_s - lost_at_s
+        health = SensorHealth(ok=False, fault="overflow", reason=(
+            f"input overflow {ago_s:.2f} s before the end of the window: samples were lost in the driver or "
+            f"the capture queue ({n_overflows} overflows since start); this window is not analysed"))
+        pids = list(rt.channels)
+        update = monitor_of(rt.pipeline).update(time_s, {p: None for p in pids}, {p: health for p in pids},
+                                                rpm=None, rpm_source="", notes={})
+        self.stats.inc("updates", machine=rt.machine.id)
+        self._deliver(rt, update, None)
+
+    def _count_sensor_faults(self, update: MachineUpdate) -> None:
+        """rotorwatch_sensor_faults_total: each time a point enters a sensor fault (or changes its kind)."""
+        for pid, pu in update.points.items():
+            key = (update.machine_id, pid)
+            fault = None if pu.health.ok else (pu.health.fault or "unknown")
+            if fault is not None and self._faults_now.get(key) != fault:
+                self.stats.inc("sensor_faults", machine=update.machine_id, point=pid, fault=fault)
+            self._faults_now[key] = fault
 
     def _report_no_input(self, status) -> None:
         """While the source is stalled or gone, every machine's points read sensor_fault / no_data."""

@@ -32,6 +32,7 @@ from prometheus_client.core import (
 
 from rotorwatch import __version__
 from rotorwatch.alarms.records import STATES, MachineUpdate
+from rotorwatch.alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
 from rotorwatch.errors import RotorwatchError
 from rotorwatch.service.logs import fields
 from rotorwatch.service.selfstats import COUNTERS, GAUGES, SelfStats
@@ -44,6 +45,7 @@ P = "rotorwatch_"
 ISO_ZONES = ("A", "B", "C", "D")
 VALUE_STATES = ("learning", "normal", "warning", "alarm", "suppressed")
 SPEED_SOURCES = ("fixed", "estimated", "tach", "mqtt", "nominal")
+SENSOR_CHECKS = ("ok", *BLOCK_FAULTS, *INPUT_FAULTS)
 MM_S = 1e-3  # mm/s -> m/s
 
 #: Unit suffix of each band quantity in base SI units, and the factor from the analysis unit.
@@ -134,6 +136,13 @@ class UpdateCollector:
         wf_crest = GaugeMetricFamily(f"{P}waveform_crest_factor_ratio", "crest factor (peak / RMS) of the window", labels=mp)
         wf_kurt = GaugeMetricFamily(f"{P}waveform_kurtosis_ratio", "kurtosis of the window (Pearson; Gaussian noise = 3)", labels=mp)
         sensor_ok = GaugeMetricFamily(f"{P}sensor_ok", "1 while the sensor checks pass", labels=mp)
+        sensor_check = StateSetMetricFamily(f"{P}sensor_check", "outcome of the sensor checks: ok or the fault found",
+                                            labels=mp)
+        sensor_clipped = GaugeMetricFamily(f"{P}sensor_clipped_ratio",
+                                           "share of the window's samples at the input range (0-1)", labels=mp)
+        sensor_rms = GaugeMetricFamily(f"{P}sensor_rms_volts", "RMS of the raw input over the window, volts", labels=mp)
+        sensor_mean = GaugeMetricFamily(f"{P}sensor_mean_volts", "mean (DC) of the raw input over the window, volts",
+                                        labels=mp)
         point_state = StateSetMetricFamily(f"{P}point_state", "state of a measurement point", labels=mp)
         machine_state = StateSetMetricFamily(f"{P}machine_state", "state of a machine (worst of its points)",
                                              labels=["agent", "machine"])
@@ -154,7 +163,15 @@ class UpdateCollector:
             for pid, pu in sorted(upd.points.items()):
                 lp = [agent, mid, pid]
                 point_state.add_metric(lp, {s: s == pu.state for s in STATES})
-                sensor_ok.add_metric(lp, 1.0 if pu.health.ok else 0.0)
+                h = pu.health
+                sensor_ok.add_metric(lp, 1.0 if h.ok else 0.0)
+                check = "ok" if h.ok else h.fault
+                if check in SENSOR_CHECKS:
+                    sensor_check.add_metric(lp, {c: c == check for c in SENSOR_CHECKS})
+                if (h.ok and pu.result is not None) or h.fault in BLOCK_FAULTS:  # figures measured on samples
+                    for fam, v in ((sensor_clipped, h.clipped_fraction), (sensor_rms, h.rms_v), (sensor_mean, h.mean_v)):
+                        if _finite(v):
+                            fam.add_metric(lp, v)
                 r = pu.result
                 if r is not None:
                     if _finite(r.overall_velocity_mm_s):
@@ -187,7 +204,8 @@ class UpdateCollector:
                         baselines[unit].add_metric(lp + [name, quantity], vs.baseline * factor)  # type: ignore[operator]
 
         yield from (overall, zone, *bands.values(), *levels.values(), *baselines.values(), value_state, latched,
-                    wf_rms, wf_peak, wf_mean, wf_crest, wf_kurt, sensor_ok, point_state, machine_state, speed,
+                    wf_rms, wf_peak, wf_mean, wf_crest, wf_kurt, sensor_ok, sensor_check, sensor_clipped,
+                    sensor_rms, sensor_mean, point_state, machine_state, speed,
                     speed_source)
 
     @staticmethod

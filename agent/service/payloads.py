@@ -16,6 +16,7 @@ from typing import Any
 
 from rotorwatch import __version__
 from rotorwatch.alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
+from rotorwatch.alarms.sensor_checks import BLOCK_FAULTS
 from rotorwatch.settings.models import Machine
 
 #: Carried in every state payload so no dashboard mistakes the agent for a trip system.
@@ -76,6 +77,24 @@ def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]
     return out
 
 
+def data_quality_payload(point: PointUpdate, counts: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The data-quality block of a point: what the sensor checks measured on the window (``null`` when
+    nothing was measured: a stalled input, an overflow, no samples) and the counts ``counts`` gives
+    (``sensor_faults``: entries into each fault kind on this point; ``input_overflows``,
+    ``input_gaps``, ``source_stalls``: the agent's input, since the agent started)."""
+    h = point.health
+    measured = (h.ok and point.result is not None) or h.fault in BLOCK_FAULTS
+    out: dict[str, Any] = {
+        "sensor_ok": bool(h.ok),
+        "fault": h.fault,
+        "clipped_fraction": num(h.clipped_fraction) if measured else None,
+        "rms_v": num(h.rms_v) if measured else None,
+        "mean_v": num(h.mean_v) if measured else None,
+    }
+    out.update(counts or {})
+    return out
+
+
 def availability_payload(online: bool) -> bytes:
     return b"online" if online else b"offline"
 
@@ -100,7 +119,7 @@ def machine_state_payload(update: MachineUpdate, agent_id: str, machine: Machine
 
 
 def point_state_payload(update: MachineUpdate, point: PointUpdate, agent_id: str,
-                        machine: Machine | None = None) -> dict[str, Any]:
+                        machine: Machine | None = None, quality: dict[str, Any] | None = None) -> dict[str, Any]:
     quantities = band_quantities(machine)
     result = point.result
     overall = point.values.get("overall")
@@ -123,13 +142,14 @@ def point_state_payload(update: MachineUpdate, point: PointUpdate, agent_id: str
             "baseline_mm_s": num(overall.baseline) if overall is not None else None,
         },
         "values": {name: value_payload(v, quantities.get(name)) for name, v in point.values.items()},
+        "data_quality": data_quality_payload(point, quality),
         "notice": ADVISORY,
     }
     return out
 
 
 def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: str,
-                          machine: Machine | None = None) -> dict[str, Any] | None:
+                          machine: Machine | None = None, quality: dict[str, Any] | None = None) -> dict[str, Any] | None:
     """The periodic measurement record of one point, or None when the point has no result."""
     r = point.result
     if r is None:
@@ -167,6 +187,7 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
         ],
         "sample_rate_hz": num(r.fs_hz),
         "n_samples": int(r.n_samples),
+        "data_quality": data_quality_payload(point, quality),
     }
 
 

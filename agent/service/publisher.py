@@ -83,20 +83,40 @@ class UpdatePublisher:
             body = payloads.machine_state_payload(update, self.agent_id, machine)
             self.link.publish_record("state", m_topic, body, retain=True)
 
+        counts = self._input_counts()
         for pid, pu in update.points.items():
+            quality = {"sensor_faults": self._fault_counts(update.machine_id, pid), **counts}
             p_topic = self.topics.point_state(update.machine_id, pid)
             zone = pu.result.iso_zone if pu.result is not None else None
             p_sig = (pu.state, pu.reason, zone, tuple((n, v.state, v.latched) for n, v in sorted(pu.values.items())))
             if refresh or self._signature.get(p_topic) != p_sig:
                 self._signature[p_topic] = p_sig
-                body = payloads.point_state_payload(update, pu, self.agent_id, machine)
+                body = payloads.point_state_payload(update, pu, self.agent_id, machine, quality)
                 self.link.publish_record("state", p_topic, body, retain=True)
             if refresh and metrics:
-                mbody = payloads.point_metrics_payload(update, pu, self.agent_id, machine)
+                mbody = payloads.point_metrics_payload(update, pu, self.agent_id, machine, quality)
                 if mbody is not None:
                     self.link.publish_record("metrics", self.topics.point_metrics(update.machine_id, pid), mbody)
 
         self.publish_events(update.events)
+
+    def _input_counts(self) -> dict[str, int]:
+        stats = getattr(self.link, "stats", None)
+        if stats is None:
+            return {}
+        return {name: int(stats.counter(name)) for name in ("input_overflows", "input_gaps", "source_stalls")}
+
+    def _fault_counts(self, machine_id: str, point_id: str) -> dict[str, int]:
+        stats = getattr(self.link, "stats", None)
+        if stats is None:
+            return {}
+        counters, _ = stats.copy()
+        out = {}
+        for (name, labels), value in counters.items():
+            d = dict(labels)
+            if name == "sensor_faults" and d.get("machine") == machine_id and d.get("point") == point_id:
+                out[d.get("fault", "")] = int(value)
+        return dict(sorted(out.items()))
 
     def publish_events(self, events: list[AlarmEvent]) -> None:
         for e in events:

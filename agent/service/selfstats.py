@@ -27,6 +27,7 @@ COUNTERS = {
     "commands": "commands received on the command topic, by result",
     "config_reloads": "configuration reloads, by result",
     "alarm_events": "state transition events emitted, per machine",
+    "sensor_faults": "times a point entered a sensor fault, by machine, point and fault kind",
     "spool_dropped_records": "records the publish spool dropped to stay within its bounds, by reason (since the spool file was created)",
 }
 
