@@ -117,6 +117,7 @@ class MqttLink:
         self._dirty: set[str] = set()  # retained topics whose newest payload paho has not taken yet
         self._pending: set[int] = set()
         self._early_acks: set[int] = set()
+        self._moved: dict[int, int] = {}  # message id paho held offline -> the id it went out under
         self._limiter = RepeatLimiter(300.0)
         self._connected = threading.Event()
         self._ever_connected = False
@@ -163,8 +164,9 @@ class MqttLink:
             from rotorwatch.storage.forwarder import Forwarder
 
             # its hooks run first and chain to ours; its on_publish takes only its own message ids
-            self.forwarder = Forwarder.from_settings(self.spool, c, self._forwarding) if self._forwarding is not None \
-                else Forwarder(self.spool, c)
+            # it re-sends what paho held while offline under new ids: on_republish lets flush() follow them
+            self.forwarder = Forwarder.from_settings(self.spool, c, self._forwarding, on_republish=self._handle_republish) \
+                if self._forwarding is not None else Forwarder(self.spool, c, on_republish=self._handle_republish)
             self.forwarder.install()
         return c
 
@@ -285,10 +287,11 @@ class MqttLink:
                                                                  repeats=held or None))
             return False
         with self._lock:
-            if info.mid in self._early_acks:
-                self._early_acks.discard(info.mid)
+            mid = self._moved.pop(info.mid, info.mid)  # re-sent under a new id before we noted it
+            if mid in self._early_acks:
+                self._early_acks.discard(mid)
             else:
-                self._pending.add(info.mid)
+                self._pending.add(mid)
         return True
 
     def tick(self) -> None:
@@ -377,6 +380,20 @@ class MqttLink:
                 self._early_acks.add(mid)
                 if len(self._early_acks) > 10000:  # never grows without bound
                     self._early_acks.clear()
+
+    def _handle_republish(self, old_mid: int, new_mid: int) -> None:
+        """The forwarder's on_connect re-sent a message we handed to paho while offline: follow its id."""
+        with self._lock:
+            if old_mid in self._pending:
+                self._pending.discard(old_mid)
+                if new_mid in self._early_acks:
+                    self._early_acks.discard(new_mid)
+                else:
+                    self._pending.add(new_mid)
+            else:  # _send has not noted old_mid yet
+                self._moved[old_mid] = new_mid
+                if len(self._moved) > 10000:  # never grows without bound
+                    self._moved.clear()
 
     def _handle_message(self, client, userdata, msg) -> None:
         try:
