@@ -54,6 +54,15 @@ def _short(value: Any) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
+_SECRET_WORDS = ("password", "passwd", "secret", "token")
+
+
+def _looks_secret(loc: tuple[Any, ...]) -> bool:
+    """An unknown key named like a secret (``password = "..."``): its value must not be echoed."""
+    key = str(loc[-1]).lower() if loc else ""
+    return any(w in key for w in _SECRET_WORDS) and not key.endswith(("_file", "_env"))
+
+
 def validation_problems(source: str, error: ValidationError) -> list[str]:
     """One line per pydantic error: ``file: path = value: message``."""
     lines = []
@@ -65,6 +74,11 @@ def validation_problems(source: str, error: ValidationError) -> list[str]:
         if err["type"] == "extra_forbidden":
             msg = "unknown key (check the spelling; see the commented examples in config/)"
         where = f"{source}: {loc}" if loc else f"{source}"
+        if err["type"] == "extra_forbidden" and _looks_secret(err["loc"]):
+            lines.append(f"{where}: unknown key, and secrets never go in the configuration file (value not shown): "
+                         "put the password in a file named by password_file (chmod 600) or in an environment "
+                         "variable named by password_env")
+            continue
         if err["type"] in ("value_error", "assertion_error") or err["type"] == "missing":
             lines.append(f"{where}: {msg}")
         else:
