@@ -111,6 +111,9 @@ def _read_sound(p: Path, channel: int) -> tuple[np.ndarray, float]:
         data, fs = soundfile.read(str(p), dtype="float64", always_2d=True)
     except (RuntimeError, soundfile.LibsndfileError, OSError) as e:
         raise InputError(f"{p}: cannot read as a sound file: {e}") from None
+    from rotorwatch.sources.recording import open_sound_file  # noqa: PLC0415
+
+    open_sound_file(p).close()  # the recording source's checks: a file cut short is an error, not half an analysis
     if not 0 <= channel < data.shape[1]:
         raise InputError(f"{p}: --channel {channel}: the file has {data.shape[1]} channel(s), 0..{data.shape[1] - 1}")
     if not info.subtype.startswith(("FLOAT", "DOUBLE")):
