@@ -44,9 +44,10 @@ log = logging.getLogger(__name__)
 class PointAnalyzer:
     """Analyses blocks of one point at one sampling rate (see the module docstring)."""
 
-    def __init__(self, machine: Machine, point: Point, fs_hz: float, *, band_criterion: str = "cyclic"):
+    def __init__(self, machine: Machine, point: Point, fs_hz: float, *, band_criterion: str | None = None):
         self.plan: AnalysisPlan = build_plan(machine, point, fs_hz)
-        self.band_criterion = band_criterion  # how a searched envelope band is chosen: cyclic | kurtosis
+        # how a searched envelope band is chosen: cyclic | kurtosis (default: the machine's config)
+        self.band_criterion = band_criterion or machine.analysis.envelope.auto_criterion
         p = self.plan
         self._welch = WelchKernel(p.window, p.n_overlap, p.fs_hz, dtype=np.float32)
         self._envelope = EnvelopeKernel(p.envelope, p.fs_hz)

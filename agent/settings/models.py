@@ -281,11 +281,16 @@ class Envelope(Model):
     """Envelope (demodulation) analysis for rolling bearings.
 
     ``band_hz = [low, high]`` fixes the demodulation band around a structural resonance; when absent,
-    the band is chosen each update by spectral kurtosis between ``auto_min_hz`` and the Nyquist limit.
+    the band is searched each update between ``auto_min_hz`` and the Nyquist limit on a kurtogram-like
+    grid of candidate bands, picked by ``auto_criterion``.
     """
 
     band_hz: tuple[PositiveFloat, PositiveFloat] | None = None
     auto_min_hz: PositiveFloat = 500.0
+    # How a searched band is picked on the kurtogram-like grid: "kurtosis" takes the band of highest
+    # spectral kurtosis (Antoni 2006); "cyclic" the band whose squared envelope holds the strongest
+    # periodic lines (infogram-like; SK is still computed and reported). See rotorwatch.analysis.envelope.
+    auto_criterion: Literal["cyclic", "kurtosis"] = "cyclic"
     fmax_hz: PositiveFloat | None = Field(None, description="envelope-spectrum span (default: covers the defect harmonics)")
     lines: int = Field(1600, ge=100, le=51200)
 
