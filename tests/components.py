@@ -232,6 +232,7 @@ class MosquittoBroker:
     username: str | None = None
     password: str | None = None
     passwords_file: Path | None = None
+    require_certificate: bool = False  # TLS: clients must present a certificate signed by the test CA
     ready_timeout_s: float = 10.0
     _proc: subprocess.Popen | None = field(default=None, repr=False)
 
@@ -282,7 +283,7 @@ class MosquittoBroker:
                 f"certfile {self.tls.server_cert}",
                 f"keyfile {self.tls.server_key}",
                 "tls_version tlsv1.2",  # a minimum: TLS 1.3 is negotiated
-                "require_certificate false",
+                f"require_certificate {'true' if self.require_certificate else 'false'}",
             ]
         return "\n".join(lines) + "\n"
 
@@ -332,9 +333,10 @@ class MosquittoBroker:
 
 
 def make_mosquitto_broker(workdir: Path, *, tls: ScratchPki | None = None, username: str | None = None,
-                          password: str | None = None) -> MosquittoBroker:
+                          password: str | None = None, require_certificate: bool = False) -> MosquittoBroker:
     """Create and start a broker in ``workdir``. The caller stops it (``broker.stop()``)."""
-    return MosquittoBroker(workdir=workdir, tls=tls, username=username, password=password).start()
+    return MosquittoBroker(workdir=workdir, tls=tls, username=username, password=password,
+                           require_certificate=require_certificate).start()
 
 
 class MqttListener:
