@@ -99,6 +99,22 @@ def read_password(settings: MqttSettings, base_dir: Path) -> str | None:
     return None
 
 
+class _Client(mqtt.Client):
+    """paho's client, keeping the error of the last failed (re)connect: paho's ``on_connect_fail``
+    does not say why, and a TLS certificate the daemon refuses must not read as "not reachable"."""
+
+    last_connect_error: BaseException | None = None
+
+    def reconnect(self):  # called by paho's network thread for every attempt
+        try:
+            rc = super().reconnect()
+        except OSError as e:
+            self.last_connect_error = e
+            raise
+        self.last_connect_error = None
+        return rc
+
+
 class MqttLink:
     def __init__(self, settings: MqttSettings, agent_id: str, base_dir: Path, stats: SelfStats,
                  on_command: Callable[[bytes], None] | None = None,
@@ -140,7 +156,7 @@ class MqttLink:
         protocol = mqtt.MQTTv5 if s.protocol == "5" else mqtt.MQTTv311
         client_id = s.client_id or f"rotorwatch-{self.agent_id}"
         kwargs = {} if protocol == mqtt.MQTTv5 else {"clean_session": True}
-        c = mqtt.Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol, **kwargs)
+        c = _Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol, **kwargs)
         if s.tls:
             ca, cert, key = self._path(s.ca_file), self._path(s.client_cert_file), self._path(s.client_key_file)
             for label, path in (("ca_file", ca), ("client_cert_file", cert), ("client_key_file", key)):
@@ -173,6 +189,7 @@ class MqttLink:
     def start(self) -> None:
         """Set up the client (file and TLS problems raise one-line errors) and connect in the background."""
         self._client = self.build_client()
+        self.stats.set("mqtt_connected", 0)  # exposed from the start, not only after a first connect
         s = self.settings
         clean = {"clean_start": True} if s.protocol == "5" else {}
         self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
@@ -337,6 +354,7 @@ class MqttLink:
                                        user=self.settings.username or "-", repeats=held or None))
             return
         self._limiter.reset("connect-fail")
+        self._limiter.reset("tls-fail")
         first = not self._ever_connected
         if not first:
             self.stats.inc("mqtt_reconnects")
@@ -359,10 +377,24 @@ class MqttLink:
 
     def _handle_connect_fail(self, client, userdata) -> None:
         self.stats.inc("mqtt_connect_failures")
+        error = getattr(client, "last_connect_error", None)
+        if isinstance(error, ssl.SSLError):
+            # CA pinning at work, or a certificate that does not name the host: say so, not "not reachable"
+            ok, held = self._limiter.allow("tls-fail")
+            if ok:
+                if isinstance(error, ssl.SSLCertVerificationError):
+                    why = f"certificate verify failed: {error.verify_message}"
+                else:
+                    why = getattr(error, "reason", None) or str(error)
+                log.error(f"mqtt TLS handshake with the broker failed: {why} (check mqtt.ca_file: the broker's "
+                          "certificate must chain to it and name mqtt.host); retrying with back-off",
+                          extra=fields(host=self.settings.host, port=self.settings.port, repeats=held or None))
+            return
         ok, held = self._limiter.allow("connect-fail")
         if ok:
             log.warning("mqtt broker not reachable; retrying with back-off",
-                        extra=fields(host=self.settings.host, port=self.settings.port, repeats=held or None))
+                        extra=fields(host=self.settings.host, port=self.settings.port,
+                                     error=str(error).splitlines()[0] if error else None, repeats=held or None))
 
     def _handle_disconnect(self, client, userdata, disconnect_flags, reason_code, properties) -> None:
         was = self._connected.is_set()
@@ -371,6 +403,17 @@ class MqttLink:
         if was and not self._stopping:
             log.warning("mqtt connection lost; reconnecting with back-off",
                         extra=fields(host=self.settings.host, reason=str(reason_code)))
+        elif not was and not self._stopping and self.last_failure is None:
+            # closed before the broker accepted us (no CONNACK): with TLS 1.3 a broker that requires a
+            # client certificate ends the handshake this way; otherwise paho would retry in silence
+            self.stats.inc("mqtt_connect_failures")
+            ok, held = self._limiter.allow("closed-before-connack")
+            if ok:
+                hint = " (a client certificate required? check mqtt.client_cert_file / client_key_file)" \
+                    if self.settings.tls else ""
+                log.error(f"mqtt broker closed the connection before accepting it{hint}; retrying with back-off",
+                          extra=fields(host=self.settings.host, port=self.settings.port, reason=str(reason_code),
+                                       repeats=held or None))
 
     def _handle_publish(self, client, userdata, mid, reason_code, properties) -> None:
         with self._lock:
