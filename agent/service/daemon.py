@@ -184,6 +184,7 @@ class Daemon:
         self.speeds = SpeedBoard(config)
         self.collector = UpdateCollector(config, self.stats)
         self.runtimes = self._build_runtimes(config)  # ConfigError from the pipelines: exit non-zero
+        self._warn_exposed_secrets(config)
         self.evidence = Evidence(config, self.state_dir)  # StorageError (one line) if the stores cannot open
         self._open_spool(config)
         log.info("rotorwatch starting", extra=fields(
@@ -203,6 +204,12 @@ class Daemon:
         finally:
             self._shutdown()
         return 0
+
+    def _warn_exposed_secrets(self, config: Config) -> None:
+        from rotorwatch.service.secret_files import readable_by_all, warning_line
+
+        for setting, path, mode in readable_by_all(config, self.config_dir):
+            log.warning(warning_line(setting, path, mode))
 
     def _state_dir(self, config: Config) -> Path:
         p = Path(self.options.state_dir if self.options.state_dir is not None else config.storage.state_dir).expanduser()
@@ -623,6 +630,7 @@ class Daemon:
             self.notifier.reloaded(self._status_line())
             return False, str(e)
         self.stats.inc("config_reloads", result="applied")
+        self._warn_exposed_secrets(new)
         msg = f"configuration reloaded (changed: {', '.join(changed + [f'machine {m}' for m in machines_changed]) or 'nothing'})"
         log.info(msg, extra=fields(origin=origin))
         self.notifier.reloaded(self._status_line())
