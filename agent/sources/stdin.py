@@ -13,17 +13,24 @@ bridge from another protocol): frame ``i`` is ``channels`` consecutive float32 v
 The stream is paced by its producer. ``read()`` waits with ``select`` up to its timeout, assembles
 whole frames into chunks of up to ``block_frames`` (a short chunk when the producer pauses), and
 stamps them with the wall-clock arrival (contiguous within an unbroken run, see
-:class:`~rotorwatch.sources.base.StreamClock`). End of stream: for stdin and files, :attr:`ended`
+:class:`~rotorwatch.sources.base.StreamClock`). Once it has drained what was waiting, it sleeps until
+about the rest of the block should be there (at most half of what the pipe holds) rather than waking
+for every small write of the producer: with 4 channels at 51.2 kHz written in 10 ms pieces the
+daemon's capture thread took 1.1 % of a core read piece by piece, 0.6 % this way (tests/bench/bench_daemon.py).
+A pipe or FIFO is grown to 1 MiB where the system allows, so a producer can run about a second ahead
+of a busy daemon without blocking. End of stream: for stdin and files, :attr:`ended`
 becomes True and ``read()`` returns None (a trailing partial frame is reported and dropped); a TCP
 peer that disconnects raises :class:`SourceUnavailable` so the daemon reconnects.
 """
 
 from __future__ import annotations
 
+import fcntl
 import logging
 import os
 import select
 import socket
+import stat
 import sys
 import threading
 import time
@@ -38,6 +45,8 @@ from rotorwatch.sources.base import Chunk, Source, StreamClock, resolve_path
 log = logging.getLogger(__name__)
 
 FRAME_DTYPE = np.dtype("<f4")
+PIPE_BYTES = 1 << 20  # asked for a pipe or FIFO (Linux caps unprivileged pipes at /proc/sys/fs/pipe-max-size)
+DEFAULT_BUFFER_BYTES = 65536  # what a pipe holds by default; assumed for sockets
 
 
 def parse_endpoint(device: Any) -> tuple[str, Any]:
@@ -72,6 +81,7 @@ class RawStreamSource(Source):
         self._eof = False
         self._fd_lock = threading.Lock()
         self._reading = False
+        self._nap_max_s = 0.0  # longest sleep between reads: half of what the pipe or socket holds
 
     def _where(self) -> str:
         kind, arg = self.endpoint
@@ -111,6 +121,21 @@ class RawStreamSource(Source):
                 raise InputError(f"{path}: cannot open: {exc.strerror}") from None
             self._owned = fd
             self._fd = fd
+        self._nap_max_s = 0.5 * self._grow_pipe(self._fd) / (self.frame_bytes * self.fs_hz)
+
+    @staticmethod
+    def _grow_pipe(fd: int) -> int:
+        """Ask for a PIPE_BYTES pipe when ``fd`` is a pipe or FIFO; returns the bytes it holds."""
+        try:
+            if not stat.S_ISFIFO(os.fstat(fd).st_mode):
+                return DEFAULT_BUFFER_BYTES
+            try:
+                fcntl.fcntl(fd, fcntl.F_SETPIPE_SZ, PIPE_BYTES)
+            except OSError:
+                pass  # above pipe-max-size, or not allowed: keep what it has
+            return int(fcntl.fcntl(fd, fcntl.F_GETPIPE_SZ))
+        except (OSError, AttributeError):  # AttributeError: no F_SETPIPE_SZ outside Linux
+            return DEFAULT_BUFFER_BYTES
 
     def _fill(self, deadline: float) -> None:
         """Read what is available until a whole block is buffered, EOF, or the deadline."""
@@ -135,6 +160,12 @@ class RawStreamSource(Source):
                     self._eof = True
                 elif data:
                     self._buffer += data
+                    missing = want - len(self._buffer)
+                    if missing > 0:  # drained what was there: let the producer write the rest first
+                        nap = min(missing / (self.frame_bytes * self.fs_hz), self._nap_max_s,
+                                  deadline - time.monotonic(), 0.1)
+                        if nap > 0:
+                            time.sleep(nap)
                     continue  # more may be waiting
             if time.monotonic() >= deadline:
                 return
