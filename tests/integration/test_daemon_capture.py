@@ -60,8 +60,9 @@ SIGNAL_S = 16.0  # looped; the exact comparison uses a snapshot taken before the
 POINTS = ("de-h", "nde-h")  # channels 0 and 1 of the demo machine
 
 # Absolute levels on the envelope bands, read off the in-process pipeline for this signal: at day 28
-# de-outer-race reads about 0.08 m/s^2 and nde-outer-race about 0.012 m/s^2 (1 s windows at 48 kHz).
-OUTER_RACE_LEVELS = {"warning": 0.04, "alarm": 0.06, "on_delay_updates": 1, "latching": False,
+# de-outer-race reads 0.06-0.085 m/s^2 and nde-outer-race 0.010-0.017 m/s^2 over the 1 s windows at
+# 48 kHz (the test checks the levels still sit clear of those spreads, in case the demo changes).
+OUTER_RACE_LEVELS = {"warning": 0.03, "alarm": 0.04, "on_delay_updates": 1, "latching": False,
                      "clear_margin_pct": 10.0}
 
 
@@ -327,6 +328,10 @@ def test_capture_matches_the_library_then_stalls_and_recovers(mosquitto_broker, 
                 assert 0.9 * lo <= body["bands"][name]["value"] <= 1.1 * hi, (pid, name, body["time"])
 
     # -- states: outer-race alarm on the drive end only ------------------------------------------------
+    de_low = min(u.points["de-h"].result.bands["de-outer-race"] for u in reference.values())
+    nde_high = max(u.points["nde-h"].result.bands["nde-outer-race"] for u in reference.values())
+    assert de_low > 1.2 * OUTER_RACE_LEVELS["alarm"] and nde_high < OUTER_RACE_LEVELS["warning"] / 1.2, \
+        f"OUTER_RACE_LEVELS no longer fit the demo signal (de-outer-race >= {de_low:.4g}, nde-outer-race <= {nde_high:.4g})"
     analysed = [s for s in point_states(listener, root, "de-h") if s["overall"]["velocity_mm_s"]]
     assert analysed and all(s["state"] == "alarm" for s in analysed)
     assert all(s["values"]["de-outer-race"]["state"] == "alarm" for s in analysed)
