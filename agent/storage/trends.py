@@ -142,6 +142,8 @@ class TrendStore:
         except sqlite3.Error as e:
             raise StorageError(f"{self.path}: cannot open the trend store: {e}") from e
         self._last_prune_s = float("-inf")
+        self._logged_at_s = float("-inf")
+        self._unlogged = [0, 0]  # rows pruned by age, by count since the last log line
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> "TrendStore":
@@ -254,8 +256,14 @@ class TrendStore:
             self._pruned_age += aged
             self._pruned_count += counted
             self._last_stored.clear()
-        if aged or counted:
-            log.info("trend store pruned by_age=%d by_count=%d rows=%d", aged, counted, self._rows)
+        # once at the row bound every write prunes: note it at most once per prune interval (at least a
+        # minute), with what was pruned since the last note, so the journal does not get a line per update
+        self._unlogged[0] += aged
+        self._unlogged[1] += counted
+        if any(self._unlogged) and now - self._logged_at_s >= max(self.prune_interval_s, 60.0):
+            log.info("trend store pruned by_age=%d by_count=%d rows=%d", *self._unlogged, self._rows)
+            self._unlogged = [0, 0]
+            self._logged_at_s = now
         return aged + counted
 
     # -- reading ----------------------------------------------------------------------------------
