@@ -13,9 +13,10 @@ day 20 to the end):
   the other point carries on as before;
 - once the faulty samples have left the window it clears (and learning resumes).
 
-The overload makes the point's overall velocity read far above its absolute alarm level (4.5 mm/s,
-the ISO 20816-3 group 2 C/D boundary the demo config uses), so the suppression is what keeps the
-alarm from firing: the test checks that too. The scenario is demo data of our own making; the
+The overload makes the point's overall velocity read far above its absolute alarm level (the demo
+config's 4.5 mm/s, set at the group 2 rigid C/D boundary of ISO 10816-3:2009 Table A.2 / ISO 20816-3;
+that value is from memory, unconfirmed, per the shared references, and the test reads the level from
+the config), so the suppression is what keeps the alarm from firing: the test checks that too. The scenario is demo data of our own making; the
 thresholds are common practice (see agent/alarms/sensor_checks.py).
 """
 
