@@ -55,16 +55,37 @@ def portaudio():
     return sounddevice
 
 
+# Each PortAudio re-initialisation keeps about 12 KB that is never given back (measured: 300 re-inits
+# added 3.5 MB). While a device stays unplugged the daemon keeps retrying, so re-scans are spaced out:
+# 1 s after the first, doubling to at most 10 minutes (under 2 MB a day), and the spacing starts over
+# once a stream opens again.
+_REINIT_FIRST_S = 1.0
+_REINIT_MAX_S = 600.0
+_reinit_state = {"next": 0.0, "interval": _REINIT_FIRST_S}
+
+
 def reinitialise() -> bool:
     """Re-scan the devices (PortAudio enumerates only at initialisation). Skipped while a stream is
-    open, because terminating PortAudio would close it; returns whether it ran."""
+    open, because terminating PortAudio would close it, and while the spacing above says to wait;
+    returns whether it ran."""
     sd = portaudio()
     with _streams_lock:
         if _open_streams:
             return False
+        now = time.monotonic()
+        if now < _reinit_state["next"]:
+            return False
         sd._terminate()
         sd._initialize()
+        _reinit_state["next"] = now + _reinit_state["interval"]
+        _reinit_state["interval"] = min(_reinit_state["interval"] * 2.0, _REINIT_MAX_S)
         return True
+
+
+def _reinit_spacing_reset() -> None:
+    with _streams_lock:
+        _reinit_state["next"] = 0.0
+        _reinit_state["interval"] = _REINIT_FIRST_S
 
 
 def list_input_devices() -> list[dict[str, Any]]:
@@ -203,6 +224,7 @@ class SoundcardSource(Source):
             raise SourceUnavailable(f"{where}: cannot start the input stream: {exc}") from None
         self._stream = stream
         self._last_data_mono = time.monotonic()
+        _reinit_spacing_reset()
 
     def _read(self, timeout_s: float) -> Chunk | None:
         deadline = time.monotonic() + timeout_s

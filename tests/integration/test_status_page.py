@@ -139,7 +139,7 @@ def test_page_follows_the_growing_fault(page):
     assert before["state"] == "normal", "run after the healthy test (same module, same page)"
     outer_before = browser.js("return document.querySelector('#values tr[data-value=\"de-outer-race\"]').dataset.reading")
 
-    feeder.feed([26.0, 28.0, 29.0, 29.25, 29.5, 29.75, 30.0])
+    feeder.feed([19.0, 19.5, 20.0, 26.0, 28.0, 29.0, 29.25, 29.5, 29.75, 30.0])  # warning, then alarm
     assert feeder.last.state == "alarm", feeder.last.reason
     revision = feeder.board.revision("ef3")
     # the page polls every second: the alarm must show within a bounded wait
@@ -157,7 +157,7 @@ def test_page_follows_the_growing_fault(page):
                         return {state: r.dataset.state, reading: r.dataset.reading}""")
     assert row["state"] == "alarm"
     assert float(row["reading"]) > 4 * float(outer_before)
-    assert int(browser.js("return document.getElementById('trend').dataset.samples")) == 35
+    assert int(browser.js("return document.getElementById('trend').dataset.samples")) == 38
     events = browser.js("return [...document.querySelectorAll('#events li')].map(li => li.dataset.to)")
     assert "alarm" in events and "warning" in events
     title = browser.js("return document.title")

@@ -46,7 +46,7 @@ def point_result(config, point_id: str, time_s: float, fault: float, rpm: float 
     overall = 1.3 + 2.0 * fault
     bands = {"shaft-1x": 1.1, "shaft-2x": 0.35, "blade-pass": 0.6, "bearing-hf": 0.2 + 0.6 * fault}
     if point_id == "de-h":
-        bands.update({"de-outer-race": 0.01 + 0.4 * fault, "de-inner-race": 0.01})
+        bands.update({"de-outer-race": 0.01 + 0.4 * fault, "de-inner-race": 0.01, "de-ball": 0.008})
     else:
         bands.update({"nde-outer-race": 0.01})
     findings = [Finding("BPFO", bearing, bpfo, bpfo * 1.002, 8.0 * fault, 4)] if fault > 0.2 else []
