@@ -419,6 +419,48 @@ class MqttListener:
 # --------------------------------------------------------------------------------------------------
 
 
+class PersistentSubscriber:
+    """An MQTT 5 persistent-session subscriber (clean_start=False, session expiry 600 s) at QoS 1.
+
+    It subscribes to ``topic`` on its first session only, so the broker's stored session (and what it
+    queued while the subscriber or the broker was away) carries over reconnects and broker restarts.
+    Subclasses handle messages in ``_on_message``; ``sessions_present`` records each connect's flag.
+    """
+
+    def __init__(self, host: str, port: int, topic: str, client_id: str,
+                 reconnect_s: tuple[float, float] = (0.5, 1.0)) -> None:
+        import paho.mqtt.client as mqtt  # noqa: PLC0415
+        from paho.mqtt.packettypes import PacketTypes  # noqa: PLC0415
+        from paho.mqtt.properties import Properties  # noqa: PLC0415
+
+        self.sessions_present: list[bool] = []
+        self._lock = threading.Lock()
+        self._subscribed = threading.Event()
+        self.topic = topic
+        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
+        self.client.reconnect_delay_set(*reconnect_s)
+        self.client.on_connect = self._on_connect
+        self.client.on_subscribe = lambda *a: self._subscribed.set()
+        self.client.on_message = self._on_message
+        props = Properties(PacketTypes.CONNECT)
+        props.SessionExpiryInterval = 600
+        self.client.connect(host, port, keepalive=5, clean_start=False, properties=props)
+        self.client.loop_start()
+        assert self._subscribed.wait(10), "collector: no SUBACK within 10 s"
+
+    def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:
+        self.sessions_present.append(bool(flags.session_present))
+        if not reason_code.is_failure and not flags.session_present:
+            client.subscribe(self.topic, qos=1)
+
+    def _on_message(self, client, userdata, msg) -> None:
+        raise NotImplementedError
+
+    def close(self) -> None:
+        self.client.disconnect()
+        self.client.loop_stop()
+
+
 class Promtool:
     """Prometheus' own linter. ``check_metrics`` returns promtool's rc: 0 clean, 3 lint problems,
     1 parse error (recipes, promtool 2.42), with the findings promtool wrote to stderr."""

@@ -30,16 +30,12 @@ from __future__ import annotations
 import json
 import re
 import signal
-import threading
 import time
 import uuid
 
-import paho.mqtt.client as mqtt
 import pytest
-from paho.mqtt.packettypes import PacketTypes
-from paho.mqtt.properties import Properties
 
-from components import wait_until
+from components import PersistentSubscriber, wait_until
 
 from .daemon_support import DaemonProcess, daemon_config, fast_fault_scenario, write_setup
 
@@ -49,31 +45,12 @@ AGENT = "halden-ef3"
 SPLIT_RX = re.compile(r"forwarder: link up, backlog of -?\d+ records through seq=(\d+)")
 
 
-class SeqCollector:
+class SeqCollector(PersistentSubscriber):
     """Persistent-session QoS 1 subscriber: every spooled record's (seq, topic, payload) in arrival order."""
 
     def __init__(self, host: str, port: int, topic: str) -> None:
         self.arrivals: list[tuple[int, str, bytes]] = []
-        self.sessions_present: list[bool] = []
-        self._lock = threading.Lock()
-        self._subscribed = threading.Event()
-        self.topic = topic
-        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"dash-{uuid.uuid4().hex[:8]}",
-                                  protocol=mqtt.MQTTv5)
-        self.client.reconnect_delay_set(0.5, 1)
-        self.client.on_connect = self._on_connect
-        self.client.on_subscribe = lambda *a: self._subscribed.set()
-        self.client.on_message = self._on_message
-        props = Properties(PacketTypes.CONNECT)
-        props.SessionExpiryInterval = 600
-        self.client.connect(host, port, keepalive=5, clean_start=False, properties=props)
-        self.client.loop_start()
-        assert self._subscribed.wait(10), "collector: no SUBACK within 10 s"
-
-    def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:
-        self.sessions_present.append(bool(flags.session_present))
-        if not reason_code.is_failure and not flags.session_present:
-            client.subscribe(self.topic, qos=1)
+        super().__init__(host, port, topic, client_id=f"dash-{uuid.uuid4().hex[:8]}", reconnect_s=(0.5, 1))
 
     def _on_message(self, client, userdata, msg) -> None:
         try:
@@ -89,10 +66,6 @@ class SeqCollector:
 
     def distinct(self) -> int:
         return len(set(self.seqs()))
-
-    def close(self) -> None:
-        self.client.disconnect()
-        self.client.loop_stop()
 
 
 def first_arrivals(seqs: list[int]) -> list[int]:

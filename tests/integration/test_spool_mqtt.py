@@ -27,14 +27,12 @@ from pathlib import Path
 
 import paho.mqtt.client as mqtt
 import pytest
-from paho.mqtt.packettypes import PacketTypes
-from paho.mqtt.properties import Properties
 
 from rotorwatch.storage.forwarder import Forwarder
 from rotorwatch.storage.spool import Spool
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))  # tests/components.py, any import mode
-from components import MosquittoBroker  # noqa: E402
+from components import MosquittoBroker, PersistentSubscriber  # noqa: E402
 
 pytestmark = pytest.mark.integration
 
@@ -45,32 +43,14 @@ def _topic(prefix: str, kind: str) -> str:
     return f"{prefix}/m1/{ {'metrics': 'metrics', 'state': 'state', 'event': 'events'}[kind] }"
 
 
-class Collector:
+class Collector(PersistentSubscriber):
     """A persistent-session QoS 1 subscriber recording the seq of every message, in arrival order."""
 
     def __init__(self, host: str, port: int, prefix: str) -> None:
         self.seqs: list[int] = []
         self.others: list[tuple[str, bytes]] = []
-        self.sessions_present: list[bool] = []
-        self._lock = threading.Lock()
-        self._subscribed = threading.Event()
         self.prefix = prefix
-        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"collector-{prefix[-8:]}",
-                                  protocol=mqtt.MQTTv5)
-        self.client.reconnect_delay_set(1, 2)
-        self.client.on_connect = self._on_connect
-        self.client.on_subscribe = lambda *a: self._subscribed.set()
-        self.client.on_message = self._on_message
-        props = Properties(PacketTypes.CONNECT)
-        props.SessionExpiryInterval = 600
-        self.client.connect(host, port, keepalive=5, clean_start=False, properties=props)
-        self.client.loop_start()
-        assert self._subscribed.wait(10), "collector: no SUBACK within 10 s"
-
-    def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:
-        self.sessions_present.append(bool(flags.session_present))
-        if not reason_code.is_failure and not flags.session_present:
-            client.subscribe(f"{self.prefix}/#", qos=1)
+        super().__init__(host, port, f"{prefix}/#", client_id=f"collector-{prefix[-8:]}", reconnect_s=(1, 2))
 
     def _on_message(self, client, userdata, msg) -> None:
         try:
@@ -94,10 +74,6 @@ class Collector:
             if not missing or time.monotonic() > deadline:
                 return missing
             time.sleep(0.05)
-
-    def close(self) -> None:
-        self.client.disconnect()
-        self.client.loop_stop()
 
 
 class TimedClient(mqtt.Client):
