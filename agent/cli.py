@@ -12,8 +12,8 @@ import argparse
 import importlib
 import sys
 
-from rotorwatch import __version__
-from rotorwatch.errors import RotorwatchError
+from . import __version__
+from .errors import RotorwatchError
 
 # command name -> module under rotorwatch.commands, with a one-line summary for --help
 COMMANDS: dict[str, tuple[str, str]] = {

@@ -40,9 +40,9 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from rotorwatch.alarms.records import STATES
-from rotorwatch.errors import ConfigError
-from rotorwatch.settings.models import Machine
+from .alarms.records import STATES
+from .errors import ConfigError
+from .settings.models import Machine
 
 DAY_S = 86400.0
 HOUR_S = 3600.0

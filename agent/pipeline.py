@@ -19,13 +19,13 @@ from pathlib import Path
 
 import numpy as np
 
-from rotorwatch.alarms.monitor import MachineMonitor
-from rotorwatch.alarms.records import MachineUpdate, SensorHealth
-from rotorwatch.alarms.sensor_checks import DEFAULT_LIMITS, SensorLimits, check_block
-from rotorwatch.analysis.point import PointAnalyzer
-from rotorwatch.analysis.result import PointResult
-from rotorwatch.errors import InputError
-from rotorwatch.settings.models import AlarmPolicy, Config, Machine
+from .alarms.monitor import MachineMonitor
+from .alarms.records import MachineUpdate, SensorHealth
+from .alarms.sensor_checks import DEFAULT_LIMITS, SensorLimits, check_block
+from .analysis.point import PointAnalyzer
+from .analysis.result import PointResult
+from .errors import InputError
+from .settings.models import AlarmPolicy, Config, Machine
 
 log = logging.getLogger(__name__)
 

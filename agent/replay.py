@@ -23,10 +23,10 @@ from pathlib import Path
 
 import numpy as np
 
-from rotorwatch.alarms.records import AlarmEvent, MachineUpdate
-from rotorwatch.errors import InputError
-from rotorwatch.expectations import Sample
-from rotorwatch.settings.models import G_N, Config, Machine
+from .alarms.records import AlarmEvent, MachineUpdate
+from .errors import InputError
+from .expectations import Sample
+from .settings.models import G_N, Config, Machine
 
 UNITS = ("volts", "g", "m/s2")
 

@@ -2,8 +2,8 @@
 
 API overview::
 
-    from rotorwatch.simulators.scenario import load_scenario
-    from rotorwatch.simulators.render import ScenarioRenderer
+    from .scenario import load_scenario
+    from .render import ScenarioRenderer
 
     renderer = ScenarioRenderer(load_scenario("config/scenarios/demo-outer-race.toml"))
     for t_s in renderer.times():                                   # one snapshot per cadence_s

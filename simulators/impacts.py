@@ -20,9 +20,9 @@ from functools import lru_cache
 
 import numpy as np
 
-from rotorwatch.simulators.components import load_zone_factor
-from rotorwatch.simulators.randomness import generator, stream_key
-from rotorwatch.simulators.speed import SpeedModel
+from .components import load_zone_factor
+from .randomness import generator, stream_key
+from .speed import SpeedModel
 
 BLOCK = 1024  # impacts per jitter block
 

@@ -30,15 +30,15 @@ import numpy as np
 
 from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Config, Machine
-from rotorwatch.simulators.components import ImpactKernel, ShaftPhasor, ring
-from rotorwatch.simulators.impacts import ImpactTrain
-from rotorwatch.simulators.profile import Profile, Ramp
-from rotorwatch.simulators.randomness import generator, stream_key, white_noise
-from rotorwatch.simulators.rates import bearing_orders
-from rotorwatch.simulators.scenario import (BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, Scenario,
+from .components import ImpactKernel, ShaftPhasor, ring
+from .impacts import ImpactTrain
+from .profile import Profile, Ramp
+from .randomness import generator, stream_key, white_noise
+from .rates import bearing_orders
+from .scenario import (BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, Scenario,
                                             affected_points)
-from rotorwatch.simulators.sensor import FaultSpan, SensorChain
-from rotorwatch.simulators.speed import SpeedModel
+from .sensor import FaultSpan, SensorChain
+from .speed import SpeedModel
 
 LOOSENESS_ORDERS = (3, 4, 5, 6, 7, 8)
 _W = np.array([1.0 / (k - 2) for k in LOOSENESS_ORDERS])

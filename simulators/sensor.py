@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rotorwatch.settings.models import Sensor
-from rotorwatch.simulators.randomness import generator, stream_key, white_noise
+from .randomness import generator, stream_key, white_noise
 
 DROPOUT_MIN_S = 0.002
 DROPOUT_MAX_S = 0.020

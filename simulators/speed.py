@@ -18,8 +18,8 @@ import math
 
 import numpy as np
 
-from rotorwatch.simulators.profile import Profile
-from rotorwatch.simulators.randomness import generator, stream_key
+from .profile import Profile
+from .randomness import generator, stream_key
 
 _DRIFT_PERIODS_S = (2400.0, 14800.0, 83000.0)
 _DRIFT_WEIGHTS = (0.5, 0.3, 0.2)

@@ -31,9 +31,9 @@ from typing import Any
 
 import numpy as np
 
-from rotorwatch.alarms.levels import Baseline
-from rotorwatch.errors import ConfigError
-from rotorwatch.settings.models import AlarmPolicy, Machine
+from .levels import Baseline
+from ..errors import ConfigError
+from ..settings.models import AlarmPolicy, Machine
 
 log = logging.getLogger(__name__)
 

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from rotorwatch.settings.models import Levels
+from ..settings.models import Levels
 
 MAD_TO_SIGMA = 1.4826  # 1 / Phi^-1(0.75): robust sigma of a normal population from its MAD
 MAD_FLOOR_FRACTION = 0.02  # sigma form: MAD never taken below 2 % of the median (our own choice)

@@ -28,12 +28,12 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from rotorwatch.alarms.baseline import OVERALL, BaselineStore
-from rotorwatch.alarms.levels import EffectiveLevels, LevelTracker, Transition, effective_levels, fmt
-from rotorwatch.alarms.records import STATES, AlarmEvent, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
-from rotorwatch.analysis.result import PointResult
-from rotorwatch.errors import ConfigError
-from rotorwatch.settings.models import AlarmPolicy, Levels, Machine
+from .baseline import OVERALL, BaselineStore
+from .levels import EffectiveLevels, LevelTracker, Transition, effective_levels, fmt
+from .records import STATES, AlarmEvent, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
+from ..analysis.result import PointResult
+from ..errors import ConfigError
+from ..settings.models import AlarmPolicy, Levels, Machine
 
 log = logging.getLogger(__name__)
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from rotorwatch.analysis.result import PointResult
+from ..analysis.result import PointResult
 
 # Point and machine states, most severe first where a machine state is aggregated from its points.
 # A sensor fault never reads as normal and never raises a machine alarm.

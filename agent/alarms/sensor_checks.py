@@ -38,8 +38,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rotorwatch.alarms.records import SensorHealth
-from rotorwatch.settings.models import Sensor
+from .records import SensorHealth
+from ..settings.models import Sensor
 
 
 @dataclass(frozen=True)

@@ -21,8 +21,8 @@ import math
 
 import numpy as np
 
-from rotorwatch import kinematics
-from rotorwatch.analysis.plan import HANN_LOBE_MARGIN_BINS, BandPlan, AnalysisPlan
+from .. import kinematics
+from .plan import HANN_LOBE_MARGIN_BINS, BandPlan, AnalysisPlan
 
 
 def window_bins(edges_hz: list[tuple[float, float]] | tuple[tuple[float, float], ...], df_hz: float,

@@ -47,9 +47,9 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-from rotorwatch.analysis.plan import EDGE_TAPER_FRACTION, EnvelopePlan
-from rotorwatch.analysis.spectrum import WelchKernel, hann
-from rotorwatch.errors import InputError
+from .plan import EDGE_TAPER_FRACTION, EnvelopePlan
+from .spectrum import WelchKernel, hann
+from ..errors import InputError
 
 BAND_EDGE_TAPER_FRACTION = 0.05  # of the band's bins, raised-cosine at each band edge
 WIDTH_STEP = 2.0 / 3.0  # ratio of successive candidate band widths in the search
@@ -71,7 +71,7 @@ class BlockSpectrum:
 
     def amplitude(self, n_bins: int) -> np.ndarray:
         """|X| of the first ``n_bins`` bins as if Hann-windowed (relative scale: for tone searches)."""
-        from rotorwatch.analysis.speed import hann_smooth  # noqa: PLC0415
+        from .speed import hann_smooth  # noqa: PLC0415
 
         return hann_smooth(self.spec[: n_bins + 1].astype(complex))[:n_bins]
 

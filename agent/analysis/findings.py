@@ -42,8 +42,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rotorwatch.analysis.plan import DefectPlan
-from rotorwatch.analysis.result import Finding
+from .plan import DefectPlan
+from .result import Finding
 
 FUNDAMENTAL_RATIO = 4.0
 SUPPORT_RATIO = 2.5

@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from rotorwatch.analysis.result import Waveform
+from .result import Waveform
 
 
 def waveform(block_m_s2: np.ndarray, dtype: type = np.float64) -> tuple[Waveform, np.ndarray]:

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rotorwatch import kinematics
-from rotorwatch.settings.models import Machine
+from .. import kinematics
+from ..settings.models import Machine
 
 
 @dataclass(frozen=True)

@@ -25,18 +25,18 @@ import logging
 
 import numpy as np
 
-from rotorwatch.analysis import bands as band_mod
-from rotorwatch.analysis import severity
-from rotorwatch.analysis.envelope import BlockSpectrum, EnvelopeKernel
-from rotorwatch.analysis.findings import assess
-from rotorwatch.analysis.indicators import waveform
-from rotorwatch.analysis.plan import AnalysisPlan, build_plan
-from rotorwatch.analysis.result import PointResult, Spectrum
-from rotorwatch.analysis.speed import N_HARMONICS, estimate_speed
-from rotorwatch.analysis.spectrum import WelchKernel
-from rotorwatch.analysis.velocity import overall_velocity_mm_s, velocity_line_rms, velocity_psd
-from rotorwatch.errors import InputError
-from rotorwatch.settings.models import Machine, Point
+from . import bands as band_mod
+from . import severity
+from .envelope import BlockSpectrum, EnvelopeKernel
+from .findings import assess
+from .indicators import waveform
+from .plan import AnalysisPlan, build_plan
+from .result import PointResult, Spectrum
+from .speed import N_HARMONICS, estimate_speed
+from .spectrum import WelchKernel
+from .velocity import overall_velocity_mm_s, velocity_line_rms, velocity_psd
+from ..errors import InputError
+from ..settings.models import Machine, Point
 
 log = logging.getLogger(__name__)
 

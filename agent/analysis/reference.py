@@ -23,11 +23,11 @@ import numpy as np
 import scipy.signal
 import scipy.stats
 
-from rotorwatch import kinematics
-from rotorwatch.analysis import severity
-from rotorwatch.analysis.findings import find_defects
-from rotorwatch.analysis.plan import HANN_LOBE_MARGIN_BINS, AnalysisPlan
-from rotorwatch.analysis.result import Finding, Waveform
+from .. import kinematics
+from . import severity
+from .findings import find_defects
+from .plan import HANN_LOBE_MARGIN_BINS, AnalysisPlan
+from .result import Finding, Waveform
 
 
 @dataclass(frozen=True)

@@ -27,7 +27,7 @@ import numpy as np
 import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
 
-from rotorwatch.errors import InputError
+from ..errors import InputError
 
 
 def hann(n: int) -> np.ndarray:

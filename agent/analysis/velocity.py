@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from rotorwatch.analysis.plan import AnalysisPlan
+from .plan import AnalysisPlan
 
 
 def velocity_psd(plan: AnalysisPlan, accel_psd: np.ndarray) -> np.ndarray:

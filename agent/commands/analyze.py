@@ -29,8 +29,8 @@ from typing import Any
 
 import numpy as np
 
-from rotorwatch.errors import ConfigError, InputError
-from rotorwatch.settings.models import G_N
+from ..errors import ConfigError, InputError
+from ..settings.models import G_N
 
 MIN_RATE_HZ = 1000.0
 MAX_SECONDS = 120.0  # one block: longer recordings are cut, to bound memory (about 40 bytes per sample)
@@ -111,7 +111,7 @@ def _read_sound(p: Path, channel: int) -> tuple[np.ndarray, float]:
         data, fs = soundfile.read(str(p), dtype="float64", always_2d=True)
     except (RuntimeError, soundfile.LibsndfileError, OSError) as e:
         raise InputError(f"{p}: cannot read as a sound file: {e}") from None
-    from rotorwatch.sources.recording import open_sound_file  # noqa: PLC0415
+    from ..sources.recording import open_sound_file  # noqa: PLC0415
 
     open_sound_file(p).close()  # the recording source's checks: a file cut short is an error, not half an analysis
     if not 0 <= channel < data.shape[1]:
@@ -189,7 +189,7 @@ def _model_error(what: str, e: Exception) -> InputError:
 
 def quick_machine(args: argparse.Namespace, envelope_band: tuple[float, float] | None):
     """A one-point machine from the command-line options."""
-    from rotorwatch.settings import models  # noqa: PLC0415
+    from ..settings import models  # noqa: PLC0415
 
     if args.rpm is None:
         raise InputError("give --rpm (and --bearing for bearing findings), or --config C --point P")
@@ -222,7 +222,7 @@ def quick_machine(args: argparse.Namespace, envelope_band: tuple[float, float] |
 
 
 def config_machine(args: argparse.Namespace, envelope_band: tuple[float, float] | None):
-    from rotorwatch.settings.loading import load_config  # noqa: PLC0415
+    from ..settings.loading import load_config  # noqa: PLC0415
 
     cfg = load_config(args.config)
     ids = [m.id for m in cfg.machines]
@@ -264,7 +264,7 @@ def parse_band(text: str | None) -> tuple[float, float] | None:
 
 # ------------------------------------------------------------------------------------------- report
 def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dict[str, Any]:
-    from rotorwatch.analysis.labels import kinematic_lines, name_line, strongest_peaks  # noqa: PLC0415
+    from ..analysis.labels import kinematic_lines, name_line, strongest_peaks  # noqa: PLC0415
 
     units = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
     band_q = {b.name: b.quantity for b in machine.bands_for(point.id)}
@@ -344,7 +344,7 @@ def format_text(r: dict[str, Any]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.analysis.point import PointAnalyzer  # noqa: PLC0415
+    from ..analysis.point import PointAnalyzer  # noqa: PLC0415
 
     band = parse_band(args.envelope_band)
     if args.config is not None:

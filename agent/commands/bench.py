@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rotorwatch.errors import InputError
+from ..errors import InputError
 
 WINDOW_S = 4.0
 
@@ -71,7 +71,7 @@ class Row:
 
 def bench_machine(fixed_band: bool = True):
     """A fan with four measurement points, the demo's kind of settings."""
-    from rotorwatch.settings import models  # noqa: PLC0415
+    from ..settings import models  # noqa: PLC0415
 
     bearing = models.Bearing(id="de", elements=9, element_diameter=12.7, pitch_diameter=62.0)
     points = [models.Point(id=f"p{i}", bearing="de", sensor=models.Sensor(channel=i, sensitivity_mv_per_g=100.0))
@@ -119,7 +119,7 @@ def _run_fast(analyzers, blocks, n_rounds: int) -> float:
 
 
 def _run_reference(analyzers, blocks, n_rounds: int, rpm: float) -> float:
-    from rotorwatch.analysis.reference import reference_analyze  # noqa: PLC0415
+    from ..analysis.reference import reference_analyze  # noqa: PLC0415
 
     t0 = time.process_time()
     for r in range(n_rounds):
@@ -143,7 +143,7 @@ def _ints(text: str, what: str) -> list[float]:
 
 
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.analysis.point import PointAnalyzer  # noqa: PLC0415
+    from ..analysis.point import PointAnalyzer  # noqa: PLC0415
 
     rates = _ints(args.rates, "rates")
     channels = [int(c) for c in _ints(args.channels, "channels")]

@@ -27,9 +27,9 @@ from pathlib import Path
 
 import numpy as np
 
-from rotorwatch.errors import ConfigError, InputError, SourceUnavailable
-from rotorwatch.settings.loading import load_config, validate
-from rotorwatch.settings.models import G_N, Config
+from ..errors import ConfigError, InputError, SourceUnavailable
+from ..settings.loading import load_config, validate
+from ..settings.models import G_N, Config
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -67,7 +67,7 @@ def find_point(config: Config, wanted: str, source: str):
 
 
 def record_from_file(path: Path, channel: int, seconds: float, settle_s: float) -> tuple[np.ndarray, float, str]:
-    from rotorwatch.sources.recording import open_sound_file
+    from ..sources.recording import open_sound_file
 
     with open_sound_file(path) as f:
         if channel >= f.channels:
@@ -83,8 +83,8 @@ def record_from_file(path: Path, channel: int, seconds: float, settle_s: float) 
 
 def record_from_soundcard(config: Config, device, channel: int, seconds: float,
                           settle_s: float) -> tuple[np.ndarray, float, str]:
-    from rotorwatch.sources.base import channel_full_scale_v
-    from rotorwatch.sources.soundcard import SoundcardSource
+    from ..sources.base import channel_full_scale_v
+    from ..sources.soundcard import SoundcardSource
 
     acq = config.acquisition
     src = SoundcardSource(device, acq.sample_rate_hz, acq.channels, acq.block_frames,
@@ -186,8 +186,8 @@ def write_sensitivity(path: Path, config: Config, machine_index: int, point_inde
 
 # ------------------------------------------------------------------------------------------ command
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.sources.calibration import measure_tone, mv_per_g, sensitivity_mv_per_m_s2
-    from rotorwatch.sources.coupling import highpass_gain
+    from ..sources.calibration import measure_tone, mv_per_g, sensitivity_mv_per_m_s2
+    from ..sources.coupling import highpass_gain
 
     path = Path(args.config)
     config = load_config(path)

@@ -15,9 +15,9 @@ import argparse
 import sys
 from typing import TextIO
 
-from rotorwatch import kinematics
-from rotorwatch.errors import ConfigError, InputError
-from rotorwatch.settings.models import Config, Machine
+from .. import kinematics
+from ..errors import ConfigError, InputError
+from ..settings.models import Config, Machine
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -26,7 +26,7 @@ def add_parser(p: argparse.ArgumentParser) -> None:
 
 
 def _plan_problems(path: str, cfg: Config) -> list[str]:
-    from rotorwatch.analysis.plan import build_plan  # noqa: PLC0415
+    from ..analysis.plan import build_plan  # noqa: PLC0415
 
     fs = cfg.acquisition.sample_rate_hz
     problems = []
@@ -61,8 +61,8 @@ def _speed_line(m: Machine, rpm: float, given: bool) -> str:
 
 
 def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool = False) -> None:
-    from rotorwatch.analysis.plan import build_plan  # noqa: PLC0415
-    from rotorwatch.analysis.severity import boundaries  # noqa: PLC0415
+    from ..analysis.plan import build_plan  # noqa: PLC0415
+    from ..analysis.severity import boundaries  # noqa: PLC0415
 
     f = rpm / 60.0
     title = f"machine {m.id}" + (f" ({m.name})" if m.name else "")
@@ -108,7 +108,7 @@ def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool
 
 
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.settings.loading import load_config  # noqa: PLC0415
+    from ..settings.loading import load_config  # noqa: PLC0415
 
     path = args.config
     cfg = load_config(path)

@@ -10,7 +10,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from rotorwatch.errors import SourceUnavailable
+from ..errors import SourceUnavailable
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -18,7 +18,7 @@ def add_parser(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.sources import soundcard
+    from ..sources import soundcard
 
     try:
         sd = soundcard.portaudio()
@@ -44,8 +44,8 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _check_config(path: str) -> int:
-    from rotorwatch.settings.loading import load_config
-    from rotorwatch.sources import soundcard
+    from ..settings.loading import load_config
+    from ..sources import soundcard
 
     acq = load_config(path).acquisition
     if acq.source != "soundcard":

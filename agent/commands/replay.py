@@ -22,11 +22,11 @@ import time
 from datetime import datetime, timezone
 from pathlib import Path
 
-from rotorwatch.errors import ConfigError, ExpectationFailed, InputError
-from rotorwatch.expectations import evaluate, parse
-from rotorwatch.replay import (UNITS, ReplayLog, event_record, open_recording, recording_frames, scenario_frames,
+from ..errors import ConfigError, ExpectationFailed, InputError
+from ..expectations import evaluate, parse
+from ..replay import (UNITS, ReplayLog, event_record, open_recording, recording_frames, scenario_frames,
                                timeline, update_record)
-from rotorwatch.settings.models import AlarmPolicy
+from ..settings.models import AlarmPolicy
 
 DEFAULT_START = "2025-01-01T00:00:00Z"
 
@@ -75,7 +75,7 @@ def _pick_machine(config, machine_id: str | None, source: str):
 
 
 def _open_scenario(args):
-    from rotorwatch.settings.loading import load_config
+    from ..settings.loading import load_config
     from rotorwatch.simulators.render import ScenarioRenderer
     from rotorwatch.simulators.scenario import cross_check, load_scenario
 
@@ -107,8 +107,8 @@ def _emit(obj: dict, out) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from rotorwatch.pipeline import MachinePipeline
-    from rotorwatch.settings.loading import load_config
+    from ..pipeline import MachinePipeline
+    from ..settings.loading import load_config
 
     out = sys.stdout
     start = _start_unix_s(args.start)
@@ -188,7 +188,7 @@ def run(args: argparse.Namespace) -> int:
             "expectations": len(verdicts), "failed": len(failed),
         }, out)
     else:
-        from rotorwatch.analysis.severity import boundaries
+        from ..analysis.severity import boundaries
 
         last = log.samples[-1].elapsed_s
         out.write(f"rotorwatch replay: {source}\n")

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rotorwatch.errors import InputError
+from ..errors import InputError
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:

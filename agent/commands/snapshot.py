@@ -13,9 +13,9 @@ import json
 import sys
 from pathlib import Path
 
-from rotorwatch.settings.service import StorageSettings
-from rotorwatch.storage import SNAPSHOTS_DIR
-from rotorwatch.storage.snapshots import SnapshotStore
+from ..settings.service import StorageSettings
+from ..storage import SNAPSHOTS_DIR
+from ..storage.snapshots import SnapshotStore
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -46,7 +46,7 @@ def run(args: argparse.Namespace) -> int:
         return _list(store, args)
     if args.action == "show":
         return _show(store, args)
-    from rotorwatch.storage.snapshot_plot import plot_snapshot
+    from ..storage.snapshot_plot import plot_snapshot
 
     out = plot_snapshot(store, args.id, args.out, point_id=args.point)
     print(out)
@@ -63,7 +63,7 @@ def _list(store: SnapshotStore, args: argparse.Namespace) -> int:
     if not infos:
         print(f"rotorwatch: no snapshots in {store.root}", file=sys.stderr)
         return 0
-    from rotorwatch.commands.trend import format_time_utc, render_table
+    from .trend import format_time_utc, render_table
 
     rows = [[i.id, i.machine_id, format_time_utc(i.time_s), i.reason, ",".join(i.points),
              f"{i.size_bytes / 1024:.0f} KiB", i.detail] for i in infos]

@@ -16,10 +16,10 @@ import sys
 from datetime import datetime, timezone
 from pathlib import Path
 
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.settings.service import StorageSettings
-from rotorwatch.storage import TRENDS_FILE
-from rotorwatch.storage.trends import DAY_S, TrendRow, TrendStore
+from ..errors import RotorwatchError
+from ..settings.service import StorageSettings
+from ..storage import TRENDS_FILE
+from ..storage.trends import DAY_S, TrendRow, TrendStore
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:

@@ -32,11 +32,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.service.ring import Ring
-from rotorwatch.service.selfstats import SelfStats
-from rotorwatch.settings.models import Acquisition
+from ..errors import RotorwatchError
+from .logs import RepeatLimiter, fields
+from .ring import Ring
+from .selfstats import SelfStats
+from ..settings.models import Acquisition
 
 log = logging.getLogger(__name__)
 

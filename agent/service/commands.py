@@ -23,8 +23,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from rotorwatch.settings.loading import format_location
-from rotorwatch.settings.models import Config
+from ..settings.loading import format_location
+from ..settings.models import Config
 
 COMMANDS = ("acknowledge", "snapshot", "reload")
 MAX_PAYLOAD_BYTES = 4096

@@ -33,23 +33,23 @@ from typing import Any, Callable
 
 import numpy as np
 
-from rotorwatch import __version__
-from rotorwatch.alarms.records import MachineUpdate, SensorHealth
-from rotorwatch.errors import ConfigError, RotorwatchError
-from rotorwatch.service import payloads
-from rotorwatch.service.capture import Capture
-from rotorwatch.service.commands import Command, CommandRejected, parse_command
-from rotorwatch.service.evidence import Evidence
-from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.service.metrics import MetricsServer, UpdateCollector, make_registry
-from rotorwatch.service.mqtt import MqttLink
-from rotorwatch.service.notify import Notifier
-from rotorwatch.service.publisher import UpdatePublisher
-from rotorwatch.service.ring import Ring
-from rotorwatch.service.selfstats import SelfStats
-from rotorwatch.service.speed import SpeedBoard
-from rotorwatch.settings.loading import load_config
-from rotorwatch.settings.models import Config, Machine
+from .. import __version__
+from ..alarms.records import MachineUpdate, SensorHealth
+from ..errors import ConfigError, RotorwatchError
+from . import payloads
+from .capture import Capture
+from .commands import Command, CommandRejected, parse_command
+from .evidence import Evidence
+from .logs import RepeatLimiter, fields
+from .metrics import MetricsServer, UpdateCollector, make_registry
+from .mqtt import MqttLink
+from .notify import Notifier
+from .publisher import UpdatePublisher
+from .ring import Ring
+from .selfstats import SelfStats
+from .speed import SpeedBoard
+from ..settings.loading import load_config
+from ..settings.models import Config, Machine
 
 log = logging.getLogger(__name__)
 
@@ -70,14 +70,14 @@ class RunOptions:
 
 
 def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) -> Any:
-    from rotorwatch.pipeline import MachinePipeline
+    from ..pipeline import MachinePipeline
 
     # spectra are kept for the status page and the evidence snapshots
     return MachinePipeline(config, machine, state_dir=state_dir, keep_spectra=True)
 
 
 def default_source_factory(config: Config, config_dir: Path) -> Any:
-    from rotorwatch.sources.base import channel_full_scale_v, open_source
+    from ..sources.base import channel_full_scale_v, open_source
 
     options: dict[str, Any] = {}
     if config.acquisition.source == "simulated":
@@ -206,7 +206,7 @@ class Daemon:
         return 0
 
     def _warn_exposed_secrets(self, config: Config) -> None:
-        from rotorwatch.service.secret_files import readable_by_all, warning_line
+        from .secret_files import readable_by_all, warning_line
 
         for setting, path, mode in readable_by_all(config, self.config_dir):
             log.warning(warning_line(setting, path, mode))
@@ -267,7 +267,7 @@ class Daemon:
 
     def _open_spool(self, config: Config) -> None:
         if config.mqtt is not None and config.mqtt.delivery == "spool" and self.spool is None:
-            from rotorwatch.storage.spool import Spool
+            from ..storage.spool import Spool
 
             self.spool = Spool.in_state_dir(self.state_dir, config.storage.spool)  # type: ignore[arg-type]
 
@@ -284,8 +284,8 @@ class Daemon:
         self.publisher.publish_info()
 
     def _start_status_page(self, config: Config) -> None:
-        from rotorwatch.web.board import StatusBoard
-        from rotorwatch.web.server import StatusServer
+        from ..web.board import StatusBoard
+        from ..web.server import StatusServer
 
         sp = config.status_page
         assert sp is not None
@@ -475,7 +475,7 @@ class Daemon:
         """An outside speed reading for this update: the tach channel or the MQTT speed topic."""
         speed = rt.machine.speed
         if speed.mode == "tach" and rt.tach_channel is not None:
-            from rotorwatch.sources.tach import rpm_from_pulses
+            from ..sources.tach import rpm_from_pulses
 
             pulses = self.rings[rt.tach_channel].latest(rt.n_window)
             if pulses is None:

@@ -17,10 +17,10 @@ from pathlib import Path
 
 import numpy as np
 
-from rotorwatch.alarms.records import MachineUpdate
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.settings.models import Config, Machine
+from ..alarms.records import MachineUpdate
+from ..errors import RotorwatchError
+from .logs import RepeatLimiter, fields
+from ..settings.models import Config, Machine
 
 log = logging.getLogger(__name__)
 
@@ -39,9 +39,9 @@ def calibrated(blocks_v: dict[str, np.ndarray], machine: Machine) -> dict[str, n
 
 class Evidence:
     def __init__(self, config: Config, state_dir: Path):
-        from rotorwatch.storage.snapshot_policy import SnapshotPolicy
-        from rotorwatch.storage.snapshots import SnapshotStore, config_fingerprint
-        from rotorwatch.storage.trends import TrendStore
+        from ..storage.snapshot_policy import SnapshotPolicy
+        from ..storage.snapshots import SnapshotStore, config_fingerprint
+        from ..storage.trends import TrendStore
 
         self.config = config
         self._fingerprint = config_fingerprint(config)
@@ -51,7 +51,7 @@ class Evidence:
         self.policy = SnapshotPolicy(config.storage.snapshots, self.snapshots)
 
     def set_config(self, config: Config) -> None:
-        from rotorwatch.storage.snapshots import config_fingerprint
+        from ..storage.snapshots import config_fingerprint
 
         self.config = config
         self._fingerprint = config_fingerprint(config)

@@ -30,14 +30,14 @@ from prometheus_client.core import (
     StateSetMetricFamily,
 )
 
-from rotorwatch import __version__
-from rotorwatch.alarms.records import STATES, MachineUpdate
-from rotorwatch.alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.service.logs import fields
-from rotorwatch.service.selfstats import COUNTERS, GAUGES, SelfStats
-from rotorwatch.settings.models import Config
-from rotorwatch.settings.service import MetricsSettings
+from .. import __version__
+from ..alarms.records import STATES, MachineUpdate
+from ..alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
+from ..errors import RotorwatchError
+from .logs import fields
+from .selfstats import COUNTERS, GAUGES, SelfStats
+from ..settings.models import Config
+from ..settings.service import MetricsSettings
 
 log = logging.getLogger(__name__)
 

@@ -31,11 +31,11 @@ from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.reasoncodes import ReasonCode
 
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.service.payloads import availability_payload, encode
-from rotorwatch.service.selfstats import SelfStats
-from rotorwatch.settings.service import MqttSettings
+from ..errors import RotorwatchError
+from .logs import RepeatLimiter, fields
+from .payloads import availability_payload, encode
+from .selfstats import SelfStats
+from ..settings.service import MqttSettings
 
 log = logging.getLogger(__name__)
 
@@ -177,7 +177,7 @@ class MqttLink:
         c.on_publish = self._handle_publish
         c.on_message = self._handle_message
         if self.spool is not None:
-            from rotorwatch.storage.forwarder import Forwarder
+            from ..storage.forwarder import Forwarder
 
             # its hooks run first and chain to ours; its on_publish takes only its own message ids
             # it re-sends what paho held while offline under new ids: on_republish lets flush() follow them

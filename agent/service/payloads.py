@@ -14,10 +14,10 @@ import math
 from datetime import datetime, timezone
 from typing import Any
 
-from rotorwatch import __version__
-from rotorwatch.alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
-from rotorwatch.alarms.sensor_checks import BLOCK_FAULTS
-from rotorwatch.settings.models import Machine
+from .. import __version__
+from ..alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
+from ..alarms.sensor_checks import BLOCK_FAULTS
+from ..settings.models import Machine
 
 #: Carried in every state payload so no dashboard mistakes the agent for a trip system.
 ADVISORY = ("condition monitoring only: not a protection or trip system; act on alarms through "

@@ -17,10 +17,10 @@ from __future__ import annotations
 import time
 from typing import Any, Callable
 
-from rotorwatch.alarms.records import AlarmEvent, MachineUpdate
-from rotorwatch.service import payloads
-from rotorwatch.service.mqtt import MqttLink
-from rotorwatch.settings.models import Config
+from ..alarms.records import AlarmEvent, MachineUpdate
+from . import payloads
+from .mqtt import MqttLink
+from ..settings.models import Config
 
 
 class UpdatePublisher:
@@ -48,7 +48,7 @@ class UpdatePublisher:
         s = self.link.settings
         if not s.discovery_prefix:
             return 0
-        from rotorwatch.web.discovery import discovery_messages
+        from ..web.discovery import discovery_messages
 
         messages = discovery_messages(self.config, s.topic_prefix, s.discovery_prefix)
         for topic, payload in messages:
@@ -59,7 +59,7 @@ class UpdatePublisher:
         """After a reload: empty retained messages for discovery configs of ``old`` that ``new`` lacks."""
         if old.mqtt is None or not old.mqtt.discovery_prefix:
             return
-        from rotorwatch.web.discovery import discovery_messages
+        from ..web.discovery import discovery_messages
 
         keep: set[str] = set()
         if new.mqtt is not None and new.mqtt.discovery_prefix:

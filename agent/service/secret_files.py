@@ -14,7 +14,7 @@ from __future__ import annotations
 import stat
 from pathlib import Path
 
-from rotorwatch.settings.models import Config
+from ..settings.models import Config
 
 
 def secret_files(config: Config, config_dir: Path) -> list[tuple[str, Path]]:

@@ -15,8 +15,8 @@ import threading
 import time
 from typing import Callable
 
-from rotorwatch.service.logs import RepeatLimiter, fields
-from rotorwatch.settings.models import Config
+from .logs import RepeatLimiter, fields
+from ..settings.models import Config
 
 log = logging.getLogger(__name__)
 

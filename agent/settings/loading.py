@@ -12,8 +12,8 @@ from typing import Any, TypeVar
 
 from pydantic import BaseModel, ValidationError
 
-from rotorwatch.errors import ConfigError
-from rotorwatch.settings.models import Config
+from ..errors import ConfigError
+from .models import Config
 
 M = TypeVar("M", bound=BaseModel)
 

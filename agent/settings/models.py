@@ -15,7 +15,7 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from rotorwatch.settings.service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
+from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
 
 G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901; ISO 80000-3)
 
@@ -328,6 +328,10 @@ class Machine(Model):
     speed: Speed
     bearings: list[Bearing] = []
     blades: int | None = Field(None, ge=1, le=200, description="fan or impeller blade count")
+    # The electrical supply frequency of the machine's motor: 50 or 60 Hz for a direct-on-line motor
+    # on the mains; for a drive-fed motor leave it out, or give the drive's output frequency when it is
+    # fixed. Twice this frequency (2xLF) and its harmonics are electrical lines, not mechanical ones.
+    line_frequency_hz: float | None = Field(None, ge=10, le=400, allow_inf_nan=False)
     points: list[Point] = Field(min_length=1)
     bands: list[Band] = []
     overall: Overall = Overall()

@@ -14,7 +14,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from rotorwatch.storage.settings import ForwardingSettings, SnapshotSettings, SpoolSettings, TrendSettings
+from ..storage.settings import ForwardingSettings, SnapshotSettings, SpoolSettings, TrendSettings
 
 
 class _Model(BaseModel):

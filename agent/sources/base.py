@@ -82,7 +82,7 @@ from typing import Any, Callable, Sequence
 
 import numpy as np
 
-from rotorwatch.errors import ConfigError
+from ..errors import ConfigError
 
 log = logging.getLogger(__name__)
 

@@ -18,8 +18,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize, signal
 
-from rotorwatch.errors import InputError
-from rotorwatch.settings.models import G_N
+from ..errors import InputError
+from ..settings.models import G_N
 
 
 @dataclass(frozen=True)

@@ -26,9 +26,9 @@ from typing import Any
 
 import numpy as np
 
-from rotorwatch.errors import InputError
-from rotorwatch.sources.base import Chunk, Source, resolve_path
-from rotorwatch.sources.pacing import Pacer
+from ..errors import InputError
+from .base import Chunk, Source, resolve_path
+from .pacing import Pacer
 
 log = logging.getLogger(__name__)
 

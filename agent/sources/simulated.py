@@ -32,9 +32,9 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from rotorwatch.errors import ConfigError, InputError
-from rotorwatch.sources.base import Chunk, Source, as_frames, resolve_path
-from rotorwatch.sources.pacing import Pacer
+from ..errors import ConfigError, InputError
+from .base import Chunk, Source, as_frames, resolve_path
+from .pacing import Pacer
 
 log = logging.getLogger(__name__)
 

@@ -33,8 +33,8 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from rotorwatch.errors import SourceUnavailable
-from rotorwatch.sources.base import CLOSE_TIMEOUT_S, Chunk, Source, StreamClock, bounded_call
+from ..errors import SourceUnavailable
+from .base import CLOSE_TIMEOUT_S, Chunk, Source, StreamClock, bounded_call
 
 log = logging.getLogger(__name__)
 

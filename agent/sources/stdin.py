@@ -39,8 +39,8 @@ from typing import Any
 
 import numpy as np
 
-from rotorwatch.errors import InputError, SourceUnavailable
-from rotorwatch.sources.base import Chunk, Source, StreamClock, resolve_path
+from ..errors import InputError, SourceUnavailable
+from .base import Chunk, Source, StreamClock, resolve_path
 
 log = logging.getLogger(__name__)
 

@@ -23,7 +23,7 @@ File names inside the state directory (``storage.state_dir``) are fixed: ``spool
 
 from __future__ import annotations
 
-from rotorwatch.errors import RotorwatchError
+from ..errors import RotorwatchError
 
 SPOOL_FILE = "spool.sqlite"
 TRENDS_FILE = "trends.sqlite"

@@ -45,8 +45,8 @@ from typing import Any, Callable
 
 import paho.mqtt.client as mqtt
 
-from rotorwatch.storage import StorageError
-from rotorwatch.storage.spool import Record, Spool
+from . import StorageError
+from .spool import Record, Spool
 
 log = logging.getLogger(__name__)
 

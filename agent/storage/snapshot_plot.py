@@ -18,8 +18,8 @@ from typing import Any
 
 import numpy as np
 
-from rotorwatch.errors import RotorwatchError
-from rotorwatch.storage import StorageError
+from ..errors import RotorwatchError
+from . import StorageError
 
 # Our own palette: warm paper, ink blue, ochre bands; one hue per marker family.
 PAPER = "#f4f1ea"

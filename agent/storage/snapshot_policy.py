@@ -20,7 +20,7 @@ import time
 from datetime import datetime, timedelta, timezone
 from typing import Any, Callable
 
-from rotorwatch.alarms.records import MachineUpdate
+from ..alarms.records import MachineUpdate
 
 DAY_S = 86400.0
 

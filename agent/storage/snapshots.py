@@ -38,9 +38,9 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from rotorwatch.alarms.records import MachineUpdate
-from rotorwatch.analysis.result import Spectrum
-from rotorwatch.storage import SNAPSHOTS_DIR, StorageError
+from ..alarms.records import MachineUpdate
+from ..analysis.result import Spectrum
+from . import SNAPSHOTS_DIR, StorageError
 
 log = logging.getLogger(__name__)
 
@@ -96,7 +96,7 @@ def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[
     Shaft orders 1x..3x; blade pass and 2x blade pass when the machine has blades; BPFO, BPFI, BSF and
     FTF of every bearing with ``harmonics`` harmonics (kinematics in :mod:`rotorwatch.kinematics`).
     """
-    from rotorwatch.kinematics import bearing_multiples
+    from ..kinematics import bearing_multiples
 
     out: list[dict[str, Any]] = []
     for k in (1, 2, 3):
@@ -117,7 +117,7 @@ def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[
 
 def bands_for(machine: Any, point_id: str, shaft_hz: float) -> list[dict[str, Any]]:
     """Band edges in Hz at ``shaft_hz`` for the bands on ``point_id``, plus the overall velocity band."""
-    from rotorwatch.kinematics import band_edges_hz
+    from ..kinematics import band_edges_hz
 
     out = [{"name": "overall", "quantity": "velocity",
             "parts_hz": [[machine.overall.low_hz, machine.overall.high_hz]]}]

@@ -56,7 +56,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator, Literal, Mapping
 
-from rotorwatch.storage import SPOOL_FILE, StorageError
+from . import SPOOL_FILE, StorageError
 
 log = logging.getLogger(__name__)
 

@@ -31,8 +31,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
-from rotorwatch.alarms.records import MachineUpdate
-from rotorwatch.storage import TRENDS_FILE, StorageError
+from ..alarms.records import MachineUpdate
+from . import TRENDS_FILE, StorageError
 
 log = logging.getLogger(__name__)
 

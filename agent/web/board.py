@@ -24,9 +24,9 @@ from typing import Callable, Mapping
 
 import numpy as np
 
-from rotorwatch.alarms.records import MachineUpdate, PointUpdate
-from rotorwatch.settings.models import Config, Machine
-from rotorwatch.web import views
+from ..alarms.records import MachineUpdate, PointUpdate
+from ..settings.models import Config, Machine
+from . import views
 
 log = logging.getLogger(__name__)
 

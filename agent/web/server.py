@@ -36,8 +36,8 @@ from pathlib import Path
 from typing import Callable
 from urllib.parse import unquote, urlsplit
 
-from rotorwatch.errors import ConfigError, RotorwatchError
-from rotorwatch.web.board import StatusBoard
+from ..errors import ConfigError, RotorwatchError
+from .board import StatusBoard
 
 log = logging.getLogger(__name__)
 

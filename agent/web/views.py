@@ -19,10 +19,10 @@ from typing import Iterable, Sequence
 
 import numpy as np
 
-from rotorwatch import kinematics
-from rotorwatch.analysis import severity
-from rotorwatch.analysis.result import PointResult, Spectrum
-from rotorwatch.settings.models import Machine
+from .. import kinematics
+from ..analysis import severity
+from ..analysis.result import PointResult, Spectrum
+from ..settings.models import Machine
 
 #: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
 MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3}
