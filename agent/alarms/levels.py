@@ -18,7 +18,21 @@ Effective levels combine absolute levels with levels relative to the learned bas
 - ``ratio`` form: ``level = r x median`` (narrow-band practice: 2x = +6 dB significant, Randall 2011);
 - ``sigma`` form: ``level = median + k x 1.4826 x MAD``, the robust standard deviation of a normal
   population (MAD scale factor 1/Phi^-1(3/4) = 1.4826). The MAD is floored at ``MAD_FLOOR_FRACTION`` of the
-  median so a perfectly flat baseline still leaves a band of normal variation (our own choice).
+  median so a perfectly flat baseline still leaves a band of normal variation (our own choice);
+- ``zone_share`` form (overall velocity only): ``level = median + p/100 x B/C`` with B/C the ISO 20816-3
+  boundary of the machine's group and support, the warning capped at ``1.25 x B/C`` and the alarm at
+  ``1.25 x C/D``. This is the operational-limit form of ISO 10816-3 / ISO 20816-1 and -3 (an ALARM at the
+  baseline plus 25 % of the zone B upper limit, normally not above 1.25 x the B/C boundary; a TRIP not
+  above 1.25 x the C/D boundary). **From memory, unconfirmed** (shared references section 7; clause numbers
+  unconfirmed); the zone boundaries themselves are also from memory (see ``rotorwatch.analysis.severity``).
+  Using the TRIP cap for rotorwatch's advisory ``alarm`` level is our own choice.
+
+Drops (a value that falls is a change too): the same forms measured downwards (``ratio``: a fraction of
+the median; ``sigma``: k robust sigmas below it; ``zone_share``: a share of B/C below it, which is the
+standard's "change of 25 % of the zone B upper value, up or down" criterion, from memory); absolute
+drop levels combine with relative ones and the *higher* drop level wins (the first one met on the way
+down). A :class:`LevelTracker` follows one direction; the monitor runs one for rises and, when drop
+levels are set, one for drops.
 """
 
 from __future__ import annotations
@@ -70,25 +84,48 @@ class EffectiveLevels:
         return self.warning if kind == "warning" else self.alarm
 
 
-def _relative(levels: Levels, factor: float | None, kind: str, baseline: Baseline | None) -> Level | None:
+#: ISO operational-limit caps of the ``zone_share`` form, as multiples of (B/C, C/D): the first level
+#: (warning) at most 1.25 x B/C, the second (alarm) at most 1.25 x C/D. From memory, unconfirmed
+#: (ISO 10816-3 / ISO 20816-1 operational limits; shared references section 7).
+ZONE_SHARE_CAP = 1.25
+
+
+def _relative(levels: Levels, factor: float | None, kind: str, baseline: Baseline | None,
+              zone_limits_mm_s: tuple[float, float, float] | None, drop: bool = False) -> Level | None:
     if factor is None or baseline is None or not math.isfinite(baseline.median) or baseline.median <= 0:
         return None
     med = baseline.median
+    sign = -1.0 if drop else 1.0
+    word = "-" if drop else "+"
     if levels.relative_form == "ratio":
         return Level(factor * med, kind, "baseline", f"{factor:g} x learned baseline {fmt(med)}")
+    if levels.relative_form == "zone_share":
+        if zone_limits_mm_s is None:
+            return None
+        bc, cd = zone_limits_mm_s[1], zone_limits_mm_s[2]
+        value = med + sign * factor / 100.0 * bc
+        note = f"learned baseline {fmt(med)} {word} {factor:g} % of the B/C boundary {fmt(bc)}"
+        if drop:
+            return Level(value, kind, "baseline", note) if value > 0 else None
+        cap_name, cap = ("B/C", ZONE_SHARE_CAP * bc) if kind == "warning" else ("C/D", ZONE_SHARE_CAP * cd)
+        if value > cap:
+            return Level(cap, kind, "baseline", f"{note}, capped at {ZONE_SHARE_CAP:g} x {cap_name} {fmt(cap)}")
+        return Level(value, kind, "baseline", note)
     mad = max(baseline.mad, MAD_FLOOR_FRACTION * med)
     sigma = MAD_TO_SIGMA * mad
-    return Level(
-        med + factor * sigma, kind, "baseline",
-        f"learned baseline {fmt(med)} + {factor:g} x robust sigma {fmt(sigma)}",
-    )
+    value = med + sign * factor * sigma
+    if value <= 0:
+        return None
+    return Level(value, kind, "baseline", f"learned baseline {fmt(med)} {word} {factor:g} x robust sigma {fmt(sigma)}")
 
 
-def effective_levels(levels: Levels, baseline: Baseline | None) -> EffectiveLevels:
-    """The levels in force now: absolute and baseline-relative, the lower of each kind wins.
+def effective_levels(levels: Levels, baseline: Baseline | None,
+                     zone_limits_mm_s: tuple[float, float, float] | None = None) -> EffectiveLevels:
+    """The rise levels in force now: absolute and baseline-relative, the lower of each kind wins.
 
     Until a baseline is learned only the absolute levels apply. A warning level that would sit at or
-    above the alarm level is dropped (the value goes straight to alarm).
+    above the alarm level is dropped (the value goes straight to alarm). ``zone_limits_mm_s`` (A/B, B/C,
+    C/D) is needed by the ``zone_share`` form; without it that form sets no level.
     """
     found: dict[str, Level | None] = {}
     for kind, absolute, factor in (
@@ -98,12 +135,37 @@ def effective_levels(levels: Levels, baseline: Baseline | None) -> EffectiveLeve
         cands = []
         if absolute is not None:
             cands.append(Level(absolute, kind, "absolute", "absolute level"))
-        rel = _relative(levels, factor, kind, baseline)
+        rel = _relative(levels, factor, kind, baseline, zone_limits_mm_s)
         if rel is not None:
             cands.append(rel)
         found[kind] = min(cands, key=lambda lv: lv.value) if cands else None
     warning, alarm = found["warning"], found["alarm"]
     if warning is not None and alarm is not None and warning.value >= alarm.value:
+        warning = None
+    return EffectiveLevels(warning, alarm)
+
+
+def effective_drop_levels(levels: Levels, baseline: Baseline | None,
+                          zone_limits_mm_s: tuple[float, float, float] | None = None) -> EffectiveLevels:
+    """The drop levels in force now: absolute and baseline-relative, the *higher* of each kind wins.
+
+    A drop warning that would sit at or below the drop alarm is dropped (the value goes straight to
+    alarm). A relative drop level at or below zero is not set.
+    """
+    found: dict[str, Level | None] = {}
+    for kind, absolute, factor in (
+        ("warning", levels.drop_warning, levels.relative_drop_warning),
+        ("alarm", levels.drop_alarm, levels.relative_drop_alarm),
+    ):
+        cands = []
+        if absolute is not None:
+            cands.append(Level(absolute, kind, "absolute", "absolute drop level"))
+        rel = _relative(levels, factor, kind, baseline, zone_limits_mm_s, drop=True)
+        if rel is not None:
+            cands.append(rel)
+        found[kind] = max(cands, key=lambda lv: lv.value) if cands else None
+    warning, alarm = found["warning"], found["alarm"]
+    if warning is not None and alarm is not None and warning.value <= alarm.value:
         warning = None
     return EffectiveLevels(warning, alarm)
 
@@ -121,26 +183,34 @@ class Transition:
 
 
 class LevelTracker:
-    """normal / warning / alarm state of one value, with on-delay, hysteresis and optional latching.
+    """normal / warning / alarm state of one value in one direction, with on-delay, off-delay,
+    hysteresis and optional latching.
 
-    ``off_delay_updates`` (default 1) is the number of consecutive updates below the clear level before
-    a level clears; the configuration sets only the on-delay, the off-delay is a constructor choice.
+    ``direction`` is ``"rise"`` (a level is met by a value at or above it; it clears below
+    ``level x (1 - margin)``) or ``"drop"`` (met at or below it; clears above ``level x (1 + margin)``).
+    ``off_delay_updates`` (default: the levels' ``off_delay_updates``) is the number of consecutive
+    updates inside the clear level before a level clears.
     """
 
-    def __init__(self, name: str, unit: str, levels: Levels, *, off_delay_updates: int = 1):
-        if off_delay_updates < 1:
-            raise ValueError(f"off_delay_updates = {off_delay_updates}: must be at least 1")
+    def __init__(self, name: str, unit: str, levels: Levels, *, direction: str = "rise",
+                 off_delay_updates: int | None = None):
+        if direction not in ("rise", "drop"):
+            raise ValueError(f"direction = {direction!r}: must be 'rise' or 'drop'")
+        off = levels.off_delay_updates if off_delay_updates is None else off_delay_updates
+        if off < 1:
+            raise ValueError(f"off_delay_updates = {off}: must be at least 1")
         self.name = name
         self.unit = unit
         self.levels = levels
+        self.direction = direction
         self.on_delay = levels.on_delay_updates
-        self.off_delay = off_delay_updates
+        self.off_delay = off
         self.margin = levels.clear_margin_pct / 100.0
         self.state = "normal"
         self.acknowledged = False
         self.held = False  # an alarm kept only by latching (the value no longer supports it)
-        self._above = {"warning": 0, "alarm": 0}  # consecutive updates at or above each level
-        self._below = {"warning": 0, "alarm": 0}  # consecutive updates below each clear level
+        self._above = {"warning": 0, "alarm": 0}  # consecutive updates at or beyond each level
+        self._below = {"warning": 0, "alarm": 0}  # consecutive updates inside each clear level
         self.last_value: float | None = None
         self.last_levels = EffectiveLevels(None, None)
 
@@ -154,8 +224,16 @@ class LevelTracker:
     def latched(self) -> bool:
         return self.held
 
+    @property
+    def _drop(self) -> bool:
+        return self.direction == "drop"
+
     def _clear_level(self, level: Level) -> float:
-        return level.value * (1.0 - self.margin)
+        return level.value * (1.0 + self.margin) if self._drop else level.value * (1.0 - self.margin)
+
+    def _beyond(self, value: float, level: float) -> bool:
+        """Is the value at or past ``level`` in this tracker's direction?"""
+        return value <= level if self._drop else value >= level
 
     def _supported(self, value: float, eff: EffectiveLevels, current: str) -> str:
         """The state the value supports, given the current state (hysteresis, no delays)."""
@@ -164,9 +242,9 @@ class LevelTracker:
             if lv is None:
                 continue
             if SEVERITY[current] >= SEVERITY[kind]:
-                if value >= self._clear_level(lv):
+                if self._beyond(value, self._clear_level(lv)):
                     return kind
-            elif value >= lv.value:
+            elif self._beyond(value, lv.value):
                 return kind
         return "normal"
 
@@ -177,11 +255,11 @@ class LevelTracker:
         self.last_levels = eff
         for kind in ("warning", "alarm"):
             lv = eff.for_kind(kind)
-            if lv is not None and value >= lv.value:
+            if lv is not None and self._beyond(value, lv.value):
                 self._above[kind] += 1
             else:
                 self._above[kind] = 0
-            if lv is None or value < self._clear_level(lv):
+            if lv is None or not self._beyond(value, self._clear_level(lv)):
                 self._below[kind] += 1
             else:
                 self._below[kind] = 0
@@ -195,7 +273,7 @@ class LevelTracker:
                 self.held = False
                 self.acknowledged = False
                 return self._raised(old, kind, value, lv)
-        # Lowering: out of a level only below its clear level, for the off-delay.
+        # Lowering: out of a level only inside its clear level, for the off-delay.
         if self.state == "normal":
             return None
         if self._below[self.state] < self.off_delay:
@@ -233,8 +311,9 @@ class LevelTracker:
     # --------------------------------------------------------------------------------------- messages
     def _raised(self, old: str, kind: str, value: float, lv: Level) -> Transition:
         delay = self._above[kind]
+        where, what = ("below", f"drop {kind}") if self._drop else ("above", kind)
         reason = (
-            f"{self.name} {fmt(value)} {self.unit} above {kind} {fmt(lv.value)} {self.unit} "
+            f"{self.name} {fmt(value)} {self.unit} {where} {what} {fmt(lv.value)} {self.unit} "
             f"({lv.note}) for {delay} update{'s' if delay != 1 else ''}"
         )
         return Transition(old, kind, value, lv.value, kind, reason)
@@ -244,12 +323,15 @@ class LevelTracker:
         self.state = target
         if target == "normal":
             self.acknowledged = False
+        what = f"drop {old}" if self._drop else old
         if lv is None:
-            reason = f"{self.name} {fmt(value)} {self.unit}: the {old} level no longer applies"
+            reason = f"{self.name} {fmt(value)} {self.unit}: the {what} level no longer applies"
             return Transition(old, target, value, None, old, reason)
         clear = self._clear_level(lv)
+        where, sign = ("above", "+") if self._drop else ("below", "-")
+        delay = f" for {self.off_delay} updates" if self.off_delay > 1 else ""
         reason = (
-            f"{self.name} {fmt(value)} {self.unit} below {old} clear level {fmt(clear)} {self.unit} "
-            f"({old} {fmt(lv.value)} {self.unit} - {self.margin * 100:g} %)"
+            f"{self.name} {fmt(value)} {self.unit} {where} {what} clear level {fmt(clear)} {self.unit} "
+            f"({what} {fmt(lv.value)} {self.unit} {sign} {self.margin * 100:g} %){delay}"
         )
         return Transition(old, target, value, lv.value, old, reason)

@@ -11,8 +11,21 @@ A point's state, the first that applies:
   a sensor fault never reads as normal and never raises a machine alarm;
 - ``stopped``: the speed is below ``Speed.stopped_rpm``: no alarms, no learning. (While stopped, a
   signal at the noise floor is expected, so a ``disconnected`` verdict reads as stopped, with a note);
-- otherwise the worst of its values: ``alarm`` > ``warning`` > ``learning`` > ``normal``, where a value
-  reads ``learning`` until its baseline is learned (absolute levels already apply while learning).
+- otherwise the worst of its values and of its persisting findings: ``alarm`` > ``warning`` >
+  ``learning`` > ``normal``, where a value reads ``learning`` until its baseline is learned (absolute
+  levels already apply while learning).
+
+A value is followed upwards (rise levels) and, when drop levels are set, downwards too; its state is
+the worse of the two. A finding named in ``AlarmPolicy.findings`` (keyed by the finding's name, e.g.
+``BPFO``) raises the point once it has been reported in ``present_updates`` of the last
+``window_updates`` updates, with the finding as the reason, and clears after ``absent_updates``
+updates in a row without it. Findings not named there are reported by the analysis and raise nothing.
+
+Chatter, per value and per finding: every raise (to warning, or to alarm) is counted, and a raise that
+comes within ``AlarmPolicy.chatter_window_updates`` updates of the last lowering counts one chatter.
+A chattering alarm is one that "repeatedly transitions between the alarm state and the normal state in
+a short period of time" (ANSI/ISA-18.2-2016 definitions, from memory); the window in updates is our
+own measure of "short".
 
 The machine's state is the worst of its points in :data:`~rotorwatch.alarms.records.STATES` order
 (``alarm``, ``warning``, ``sensor_fault``, ``no_data``, ``learning``, ``normal``, ``stopped``).
@@ -25,15 +38,18 @@ import logging
 import math
 import statistics
 import time
-from dataclasses import dataclass
+from collections import deque
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .baseline import OVERALL, BaselineStore
-from .levels import EffectiveLevels, LevelTracker, Transition, effective_levels, fmt
-from .records import STATES, AlarmEvent, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
-from ..analysis.result import PointResult
+from .levels import (SEVERITY, EffectiveLevels, LevelTracker, Transition, effective_drop_levels, effective_levels,
+                     fmt)
+from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
+from ..analysis import severity
+from ..analysis.result import Finding, PointResult
 from ..errors import ConfigError
-from ..settings.models import AlarmPolicy, Levels, Machine
+from ..settings.models import AlarmPolicy, FindingRule, Levels, Machine
 
 log = logging.getLogger(__name__)
 
@@ -48,6 +64,18 @@ def worst(states: list[str]) -> str:
     return min(states, key=STATES.index)
 
 
+FINDING_PREFIX = "finding:"
+
+
+@dataclass
+class _Counts:
+    """Raises and chatter of one value or finding."""
+
+    raises: int = 0
+    chatter: int = 0
+    lowered_at: int | None = None  # the monitor's update number at the last lowering
+
+
 @dataclass
 class _Slot:
     """One trended value of one point."""
@@ -55,10 +83,48 @@ class _Slot:
     name: str
     unit: str
     levels: Levels
-    tracker: LevelTracker
+    tracker: LevelTracker  # rises
+    drop: LevelTracker | None  # drops, when drop levels are set
     shown: str  # last state shown outside suppression: learning | normal | warning | alarm
     value: float = NAN
     eff: EffectiveLevels = EffectiveLevels(None, None)
+    drop_eff: EffectiveLevels = EffectiveLevels(None, None)
+    counts: _Counts = field(default_factory=_Counts)
+
+    @property
+    def trackers(self) -> list[LevelTracker]:
+        return [self.tracker] if self.drop is None else [self.tracker, self.drop]
+
+    @property
+    def top(self) -> LevelTracker:
+        """The tracker in the more severe state (rises first on a tie)."""
+        return max(self.trackers, key=lambda t: SEVERITY[t.state])
+
+    @property
+    def state(self) -> str:
+        return self.top.state
+
+    @property
+    def latched(self) -> bool:
+        return any(t.latched for t in self.trackers)
+
+    def levels_of(self, tracker: LevelTracker) -> EffectiveLevels:
+        return self.drop_eff if tracker is self.drop else self.eff
+
+
+@dataclass
+class _FindingSlot:
+    """One finding name on one point, when its rule lets it raise the point's state."""
+
+    name: str
+    rule: FindingRule
+    history: deque = field(default_factory=deque)  # present or not, the last rule.window updates
+    state: str = "normal"  # normal | warning | alarm
+    absent_run: int = 0
+    last: Finding | None = None  # the last update's finding of this name, when present
+    last_seen: Finding | None = None  # the most recent finding of this name
+    reason: str = ""
+    counts: _Counts = field(default_factory=_Counts)
 
 
 class MachineMonitor:
@@ -70,15 +136,25 @@ class MachineMonitor:
         state_dir: str | Path | None,
         policy: AlarmPolicy | None = None,
         *,
-        off_delay_updates: int = 1,
+        off_delay_updates: int | None = None,
         checkpoint_s: float = 600.0,
     ):
+        """``policy`` replaces the machine's baseline learning settings (learning period and updates);
+        chatter counting and finding rules always come from ``machine.alarms``. ``off_delay_updates``
+        replaces every value's configured ``off_delay_updates`` when given."""
         if any(b.name == OVERALL for b in machine.bands):
             raise ConfigError([f"machine {machine.id!r}: band name {OVERALL!r} is reserved for the overall velocity"])
         self.machine = machine
         self.baselines = BaselineStore(machine, state_dir, policy, checkpoint_s=checkpoint_s)
         self.stopped_rpm = machine.speed.stopped_rpm
+        self.chatter_window = machine.alarms.chatter_window_updates
+        try:
+            self.zone_limits_mm_s: tuple[float, float, float] | None = severity.boundaries(machine.iso_group, machine.support)
+        except ValueError:
+            self.zone_limits_mm_s = None
+        self.n_updates = 0
         self.slots: dict[str, dict[str, _Slot]] = {}
+        self.finding_slots: dict[str, dict[str, _FindingSlot]] = {}
         for p in machine.points:
             values = [(OVERALL, "mm/s", machine.overall.levels)]
             values += [(b.name, UNITS[b.quantity], b.levels) for b in machine.bands_for(p.id)]
@@ -86,9 +162,15 @@ class MachineMonitor:
                 name: _Slot(
                     name, unit, levels,
                     LevelTracker(name, unit, levels, off_delay_updates=off_delay_updates),
+                    LevelTracker(name, unit, levels, direction="drop", off_delay_updates=off_delay_updates)
+                    if levels.has_drops else None,
                     "normal" if self.baselines.is_learned(p.id, name) else "learning",
                 )
                 for name, unit, levels in values
+            }
+            self.finding_slots[p.id] = {
+                name: _FindingSlot(name, rule, deque(maxlen=rule.window))
+                for name, rule in machine.alarms.findings.items()
             }
         self.point_states = {p.id: "no_data" for p in machine.points}
         self.point_reasons = {p.id: "no update yet" for p in machine.points}
@@ -112,6 +194,7 @@ class MachineMonitor:
         may say why a point has no result.
         """
         notes = notes or {}
+        self.n_updates += 1
         if rpm is None:
             speeds = [r.rpm for r in results.values() if r is not None and math.isfinite(r.rpm)]
             rpm = statistics.median(speeds) if speeds else None
@@ -128,15 +211,18 @@ class MachineMonitor:
             if result is None and h.ok:
                 state, reason = "no_data", notes.get(pid) or "no samples this update"
                 values = self._suppress(pid, None, reason)
+                found = self._suppress_findings(pid, reason)
             elif not h.ok and not (stopped and h.fault == "disconnected"):
                 state, reason = "sensor_fault", f"sensor {h.fault}: {h.reason}"
                 values = self._suppress(pid, result, "sensor fault: alarms and learning suppressed")
+                found = self._suppress_findings(pid, "sensor fault: findings not trusted")
             elif stopped:
                 reason = f"machine stopped: {rpm:.0f} r/min is below {self.stopped_rpm:g} r/min"
                 if not h.ok:
                     reason += f" (sensor reads at the noise floor: {h.reason})"
                 state = "stopped"
                 values = self._suppress(pid, result, "machine stopped: alarms and learning suppressed")
+                found = self._suppress_findings(pid, "machine stopped")
             else:
                 assert result is not None
                 values = {}
@@ -145,12 +231,18 @@ class MachineMonitor:
                     values[slot.name] = status
                     if event is not None:
                         events.append(event)
+                found = {}
+                for fs in self.finding_slots[pid].values():
+                    fstatus, event = self._evaluate_finding(pid, fs, result, time_s)
+                    found[fs.name] = fstatus
+                    if event is not None:
+                        events.append(event)
                 state, reason = self._point_state(pid)
             old = self.point_states[pid]
             if state != old:
                 events.append(AlarmEvent(time_s, self.machine.id, pid, "point", old, state, None, "", None, None, reason))
             self.point_states[pid], self.point_reasons[pid] = state, reason
-            points[pid] = PointUpdate(pid, state, reason, result, h, values)
+            points[pid] = PointUpdate(pid, state, reason, result, h, values, found)
         events.extend(self._machine_state(time_s))
         self.last_time_s = time_s
         self.baselines.checkpoint(time_s)
@@ -164,16 +256,42 @@ class MachineMonitor:
     def _suppress(self, pid: str, result: PointResult | None, reason: str) -> dict[str, ValueStatus]:
         out = {}
         for slot in self.slots[pid].values():
-            slot.tracker.reset_counts()
+            for t in slot.trackers:
+                t.reset_counts()
             x = self._value_of(result, slot.name) if result is not None else NAN
             base = self.baselines.baseline(pid, slot.name)
-            out[slot.name] = ValueStatus(
-                slot.name, x, slot.unit, "suppressed",
-                slot.eff.warning.value if slot.eff.warning else None,
-                slot.eff.alarm.value if slot.eff.alarm else None,
-                base.median if base else None, slot.tracker.latched, reason,
-            )
+            out[slot.name] = self._status(slot, x, "suppressed", base.median if base else None, reason)
         return out
+
+    @staticmethod
+    def _status(slot: _Slot, x: float, state: str, baseline: float | None, reason: str) -> ValueStatus:
+        eff, drop = slot.eff, slot.drop_eff
+        return ValueStatus(
+            slot.name, x, slot.unit, state,
+            eff.warning.value if eff.warning else None, eff.alarm.value if eff.alarm else None,
+            baseline, slot.latched, reason,
+            drop.warning.value if drop.warning else None, drop.alarm.value if drop.alarm else None,
+            slot.counts.raises, slot.counts.chatter,
+        )
+
+    def _suppress_findings(self, pid: str, reason: str) -> dict[str, FindingStatus]:
+        out = {}
+        for fs in self.finding_slots[pid].values():
+            fs.history.clear()
+            fs.absent_run = 0
+            fs.last = None
+            out[fs.name] = self._finding_status(fs, "suppressed", reason)
+        return out
+
+    def _count(self, counts: _Counts, old: str, new: str) -> None:
+        """Count a raise (and a chatter, when soon after the last lowering) or note a lowering."""
+        rank = {"learning": 0, "normal": 0, "warning": 1, "alarm": 2}
+        if rank[new] > rank[old]:
+            counts.raises += 1
+            if counts.lowered_at is not None and self.n_updates - counts.lowered_at <= self.chatter_window:
+                counts.chatter += 1
+        elif rank[new] < rank[old]:
+            counts.lowered_at = self.n_updates
 
     @staticmethod
     def _value_of(result: PointResult, name: str) -> float:
@@ -186,44 +304,51 @@ class MachineMonitor:
     def _evaluate(self, pid: str, slot: _Slot, result: PointResult, time_s: float) -> tuple[ValueStatus, AlarmEvent | None]:
         x = self._value_of(result, slot.name)
         if not math.isfinite(x):
-            slot.tracker.reset_counts()
+            for t in slot.trackers:
+                t.reset_counts()
             base = self.baselines.baseline(pid, slot.name)
             return ValueStatus(
                 slot.name, x, slot.unit, "suppressed", None, None, base.median if base else None,
-                slot.tracker.latched, "value not available from the analysis",
+                slot.latched, "value not available from the analysis",
+                raises=slot.counts.raises, chatter=slot.counts.chatter,
             ), None
         self.baselines.add(pid, slot.name, x, time_s)
         base = self.baselines.baseline(pid, slot.name)
-        eff = effective_levels(slot.levels, base)
-        slot.value, slot.eff = x, eff
-        tr = slot.tracker.update(x, eff)
+        zones = self.zone_limits_mm_s if slot.name == OVERALL else None
+        slot.value = x
+        slot.eff = effective_levels(slot.levels, base, zones)
+        transitions = [slot.tracker.update(x, slot.eff)]
+        if slot.drop is not None:
+            slot.drop_eff = effective_drop_levels(slot.levels, base, zones)
+            transitions.append(slot.drop.update(x, slot.drop_eff))
         shown = self._shown(slot, base is not None)
         reason = self._describe(pid, slot, shown, x)
         event = None
         if shown != slot.shown:
+            # the transition that explains the change: into the new state, or out of the old one
+            tr = next((t for t in transitions if t is not None and t.new_state == shown), None) or next(
+                (t for t in transitions if t is not None and t.old_state == slot.shown), None)
             event = self._value_event(time_s, pid, slot, shown, x, tr, reason)
+            self._count(slot.counts, slot.shown, shown)
             slot.shown = shown
-        status = ValueStatus(
-            slot.name, x, slot.unit, shown,
-            eff.warning.value if eff.warning else None, eff.alarm.value if eff.alarm else None,
-            base.median if base else None, slot.tracker.latched, reason,
-        )
-        return status, event
+        return self._status(slot, x, shown, base.median if base else None, reason), event
 
     @staticmethod
     def _shown(slot: _Slot, learned: bool) -> str:
-        if slot.tracker.state != "normal":
-            return slot.tracker.state
+        if slot.state != "normal":
+            return slot.state
         return "normal" if learned else "learning"
 
     def _describe(self, pid: str, slot: _Slot, shown: str, x: float) -> str:
         head = f"{slot.name} {fmt(x)} {slot.unit}"
         if shown in ("warning", "alarm"):
-            lv = slot.eff.for_kind(shown)
-            held = " (latched: acknowledge to clear)" if slot.tracker.latched else ""
+            top = slot.top
+            lv = slot.levels_of(top).for_kind(shown)
+            held = " (latched: acknowledge to clear)" if slot.latched else ""
+            what = "drop level" if top is slot.drop else "level"
             if lv is None:
                 return f"{head}: {shown}{held}"
-            return f"{head}: {shown} (level {fmt(lv.value)} {slot.unit}, {lv.note}){held}"
+            return f"{head}: {shown} ({what} {fmt(lv.value)} {slot.unit}, {lv.note}){held}"
         if shown == "learning":
             n, hours = self.baselines.progress(pid, slot.name)
             pol = self.baselines.policy
@@ -232,9 +357,72 @@ class MachineMonitor:
                 f"{hours:.1f} of {pol.learning_hours:g} h)"
             )
         lv = slot.eff.warning or slot.eff.alarm
-        if lv is None:
+        dv = slot.drop_eff.warning or slot.drop_eff.alarm
+        parts = []
+        if lv is not None:
+            parts.append(f"below {lv.kind} {fmt(lv.value)} {slot.unit}")
+        if dv is not None:
+            parts.append(f"above drop {dv.kind} {fmt(dv.value)} {slot.unit}")
+        if not parts:
             return f"{head}: normal (no levels set)"
-        return f"{head}: normal (below {lv.kind} {fmt(lv.value)} {slot.unit})"
+        return f"{head}: normal ({', '.join(parts)})"
+
+    # --------------------------------------------------------------------------------------- findings
+    @staticmethod
+    def _finding_text(f: Finding) -> str:
+        series = f" ({f.series})" if f.series and f.series != f.name else ""
+        return (
+            f"{f.name}{series} of bearing {f.bearing} at {f.found_hz:.1f} Hz (expected {f.frequency_hz:.1f} Hz), "
+            f"strength {f.strength:.3g}, {f.harmonics_found} harmonic{'s' if f.harmonics_found != 1 else ''}"
+        )
+
+    def _finding_status(self, fs: _FindingSlot, state: str, reason: str) -> FindingStatus:
+        f = fs.last
+        return FindingStatus(
+            fs.name, state, f is not None, sum(fs.history), fs.rule.window,
+            float(f.strength) if f is not None else None,
+            f.bearing if f is not None else (fs.last_seen.bearing if fs.last_seen is not None else None),
+            reason, fs.counts.raises, fs.counts.chatter,
+        )
+
+    def _evaluate_finding(self, pid: str, fs: _FindingSlot, result: PointResult,
+                          time_s: float) -> tuple[FindingStatus, AlarmEvent | None]:
+        same = [f for f in result.findings if f.name == fs.name]
+        f = max(same, key=lambda x: x.strength) if same else None
+        fs.last = f
+        if f is not None:
+            fs.last_seen = f
+        fs.history.append(f is not None)
+        fs.absent_run = 0 if f is not None else fs.absent_run + 1
+        seen, rule = sum(fs.history), fs.rule
+        old = fs.state
+        if fs.state == "normal" and seen >= rule.present_updates:
+            fs.state = rule.raises
+        elif fs.state != "normal" and fs.absent_run >= rule.absent:
+            fs.state = "normal"
+        label = f"{FINDING_PREFIX}{fs.name}"
+        if fs.state != "normal":
+            if f is not None:
+                fs.reason = f"{label} {self._finding_text(f)}, in {seen} of the last {len(fs.history)} updates"
+            else:
+                fs.reason = (
+                    f"{label} not in this update ({fs.absent_run} in a row; clears after {rule.absent}), "
+                    f"last: {self._finding_text(fs.last_seen) if fs.last_seen is not None else '-'}"
+                )
+        elif old != "normal":
+            fs.reason = f"{label} not reported for {fs.absent_run} updates in a row: cleared"
+        else:
+            fs.reason = (f"{label} in {seen} of the last {len(fs.history)} updates "
+                         f"(raises {rule.raises} at {rule.present_updates} of {rule.window})")
+        event = None
+        if fs.state != old:
+            self._count(fs.counts, old, fs.state)
+            event = AlarmEvent(
+                time_s, self.machine.id, pid, label, old, fs.state,
+                float(f.strength) if f is not None else None, "", None,
+                fs.state if fs.state != "normal" else old, fs.reason,
+            )
+        return self._finding_status(fs, fs.state, fs.reason), event
 
     def _value_event(
         self, time_s: float, pid: str, slot: _Slot, shown: str, x: float, tr: Transition | None, reason: str,
@@ -259,10 +447,13 @@ class MachineMonitor:
     # ---------------------------------------------------------------------------------- aggregation
     def _point_state(self, pid: str) -> tuple[str, str]:
         slots = list(self.slots[pid].values())
-        top = max((s.shown for s in slots), key=VALUE_RANK.__getitem__)
+        findings = list(self.finding_slots[pid].values())
+        top = max([s.shown for s in slots] + [f.state for f in findings], key=VALUE_RANK.__getitem__)
         chosen = [s for s in slots if s.shown == top]
         if top in ("warning", "alarm"):
-            return top, "; ".join(self._describe(pid, s, top, s.value) for s in chosen)
+            parts = [self._describe(pid, s, top, s.value) for s in chosen]
+            parts += [f.reason for f in findings if f.state == top]
+            return top, "; ".join(parts)
         if top == "learning":
             return top, self._describe(pid, chosen[0], "learning", chosen[0].value)
         return top, f"all {len(slots)} values below their levels"
@@ -297,11 +488,12 @@ class MachineMonitor:
             for slot in slots.values():
                 if value is not None and slot.name != value:
                     continue
-                tr = slot.tracker.acknowledge()
-                if tr is None:
+                trs = [tr for tr in (tk.acknowledge() for tk in slot.trackers) if tr is not None]
+                if not trs:
                     continue
                 shown = self._shown(slot, self.baselines.is_learned(pid, slot.name))
-                events.append(AlarmEvent(t, self.machine.id, pid, slot.name, slot.shown, shown, tr.value, slot.unit, None, None, tr.reason))
+                events.append(AlarmEvent(t, self.machine.id, pid, slot.name, slot.shown, shown, trs[0].value, slot.unit, None, None, trs[0].reason))
+                self._count(slot.counts, slot.shown, shown)
                 slot.shown = shown
             if self.point_states[pid] in VALUE_DERIVED:
                 state, reason = self._point_state(pid)

@@ -41,6 +41,27 @@ class ValueStatus:
     baseline: float | None  # learned baseline median, once learned
     latched: bool = False  # an alarm held by latching after its value cleared (acknowledge to clear)
     reason: str = ""  # why the value is in its state, for people
+    drop_warning_level: float | None = None  # effective drop levels (a falling value), when set
+    drop_alarm_level: float | None = None
+    raises: int = 0  # times the value was raised (to warning, or to alarm) since the monitor started
+    chatter: int = 0  # raises that came within AlarmPolicy.chatter_window_updates of the value's last lowering
+
+
+@dataclass(frozen=True)
+class FindingStatus:
+    """The alarm status of one kind of finding (keyed by its name, e.g. ``BPFO``) on one point, for the
+    findings that ``AlarmPolicy.findings`` lets raise the point's state."""
+
+    name: str
+    state: str  # normal | warning | alarm | suppressed
+    present: bool  # reported by this update's analysis
+    seen: int  # updates with the finding among the last ``window`` updates
+    window: int
+    strength: float | None  # of this update's finding (the strongest of that name), when present
+    bearing: str | None
+    reason: str = ""
+    raises: int = 0
+    chatter: int = 0
 
 
 @dataclass(frozen=True)
@@ -50,7 +71,7 @@ class AlarmEvent:
     time_s: float
     machine_id: str
     point_id: str | None  # None for a machine-level transition
-    value_name: str  # band name, "overall", "point" or "machine"
+    value_name: str  # band name, "overall", "finding:<NAME>" (e.g. "finding:BPFO"), "point" or "machine"
     old_state: str
     new_state: str
     value: float | None
@@ -68,6 +89,7 @@ class PointUpdate:
     result: PointResult | None
     health: SensorHealth
     values: dict[str, ValueStatus] = field(default_factory=dict)
+    findings: dict[str, FindingStatus] = field(default_factory=dict)  # only findings that can raise the state
 
 
 @dataclass(frozen=True)
