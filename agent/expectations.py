@@ -11,7 +11,8 @@ A small grammar of our own, one expectation per string::
     TIME        := ("day" | "hour") NUMBER      (days or hours from the start of the replay; the
                                                  second TIME of "between" may omit the unit)
 
-``VALUE`` is a band name or ``overall``; states are the point states (``alarm``, ``warning``,
+``VALUE`` is a band name, ``overall``, or ``finding:NAME`` for a finding named in the machine's
+``alarms.findings`` (the state it raises on the point); states are the point states (``alarm``, ``warning``,
 ``sensor_fault``, ``no_data``, ``learning``, ``normal``, ``stopped``), ``suppressed`` for values, and
 the ISO 20816 zone letters ``A`` to ``D`` (optionally written ``zone C``) for ``zone on POINT``.
 
@@ -256,6 +257,7 @@ def _check_names(subject: Subject, machine: Machine | None, fail) -> None:
         fail(f"unknown point {subject.point!r} (machine {machine.id!r} has {', '.join(points)})")
     if subject.kind == "value":
         values = ["overall"] + [b.name for b in machine.bands_for(subject.point)]
+        values += [f"finding:{name}" for name in machine.alarms.findings]
         if subject.value not in values:
             fail(f"unknown value {subject.value!r} on point {subject.point!r} (known: {', '.join(values)})")
 

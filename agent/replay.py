@@ -272,6 +272,9 @@ class ReplayLog:
                     best = self.peaks.get((pid, name))
                     if best is None or vs.value > best[0]:
                         self.peaks[(pid, name)] = (vs.value, elapsed_s)
+            for name, fs in pu.findings.items():
+                strength = fs.strength if fs.strength is not None else float("nan")
+                values[(pid, f"finding:{name}")] = (fs.state, strength, "")
             zone = None
             if pu.result is not None and pu.state not in ("sensor_fault", "stopped"):
                 zone = pu.result.iso_zone
@@ -323,8 +326,15 @@ def update_record(update: MachineUpdate, elapsed_s: float) -> dict:
                 name: {
                     "value": v.value, "unit": v.unit, "state": v.state, "warning_level": v.warning_level,
                     "alarm_level": v.alarm_level, "baseline": v.baseline, "latched": v.latched,
+                    "drop_warning_level": v.drop_warning_level, "drop_alarm_level": v.drop_alarm_level,
+                    "raises": v.raises, "chatter": v.chatter,
                 }
                 for name, v in pu.values.items()
+            },
+            "findings": {
+                name: {"state": f.state, "present": f.present, "seen": f.seen, "window": f.window,
+                       "strength": f.strength, "bearing": f.bearing, "raises": f.raises, "chatter": f.chatter}
+                for name, f in pu.findings.items()
             },
         }
     return _clean({
@@ -420,6 +430,19 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
             parts[0] = f"zone {first_z} throughout"
         lines.append(f"  {p.id:<6} " + "; ".join(parts) + f"; peak {peak_v:.3g} mm/s at day {peak_t / 86400:.2f}")
     lines.append("")
+
+    if log.last is not None:
+        window = m.alarms.chatter_window_updates
+        counted = []
+        for pid, pu in log.last.points.items():
+            counted += [(pid, name, v.raises, v.chatter) for name, v in pu.values.items() if v.raises]
+            counted += [(pid, f"finding:{name}", f.raises, f.chatter) for name, f in pu.findings.items() if f.raises]
+        lines.append(f"Raises and chatter (chatter: raised again within {window} updates of its last lowering)")
+        for pid, name, n_raised, n_chatter in counted[:max_lines]:
+            lines.append(f"  {pid:<6} {name:<16} raised {n_raised} time{'s' if n_raised != 1 else ''}, chatter {n_chatter}")
+        if not counted:
+            lines.append("  no value was raised")
+        lines.append("")
 
     faults = [(t, e) for t, e in log.events if e.value_name == "point" and "sensor_fault" in (e.old_state, e.new_state)]
     if faults:

@@ -44,6 +44,7 @@ log = logging.getLogger(__name__)
 P = "rotorwatch_"
 ISO_ZONES = ("A", "B", "C", "D")
 VALUE_STATES = ("learning", "normal", "warning", "alarm", "suppressed")
+FINDING_STATES = ("normal", "warning", "alarm", "suppressed")
 SPEED_SOURCES = ("fixed", "estimated", "tach", "mqtt", "nominal")
 SENSOR_CHECKS = ("ok", *BLOCK_FAULTS, *INPUT_FAULTS)
 MM_S = 1e-3  # mm/s -> m/s
@@ -130,6 +131,14 @@ class UpdateCollector:
         value_state = StateSetMetricFamily(f"{P}value_state", "alarm state of a trended value", labels=mp + ["band"])
         latched = GaugeMetricFamily(f"{P}value_latched", "1 while a latched alarm waits for acknowledgement",
                                     labels=mp + ["band"])
+        raises = CounterMetricFamily(f"{P}value_raises", "times a value was raised (to warning, or to alarm) since the agent started",
+                                     labels=mp + ["band"])
+        chatter = CounterMetricFamily(f"{P}value_chatter", "raises of a value that came soon after its last lowering "
+                                      "(within alarms.chatter_window_updates): chatter", labels=mp + ["band"])
+        finding_state = StateSetMetricFamily(f"{P}finding_state", "state a persisting finding raises (alarms.findings)",
+                                             labels=mp + ["finding"])
+        finding_chatter = CounterMetricFamily(f"{P}finding_chatter", "raises of a finding soon after its last clearing",
+                                              labels=mp + ["finding"])
         wf_rms = GaugeMetricFamily(f"{P}waveform_rms_meters_per_second_squared", "acceleration RMS of the window, m/s^2", labels=mp)
         wf_peak = GaugeMetricFamily(f"{P}waveform_peak_meters_per_second_squared", "acceleration peak of the window, m/s^2", labels=mp)
         wf_mean = GaugeMetricFamily(f"{P}waveform_mean_meters_per_second_squared", "mean (DC) acceleration of the window, m/s^2", labels=mp)
@@ -189,11 +198,17 @@ class UpdateCollector:
                                    (wf_crest, w.crest_factor), (wf_kurt, w.kurtosis)):
                         if _finite(v):
                             fam.add_metric(lp, v)
+                for fname, fst in sorted(pu.findings.items()):
+                    if fst.state in FINDING_STATES:
+                        finding_state.add_metric(lp + [fname], {s: s == fst.state for s in FINDING_STATES})
+                    finding_chatter.add_metric(lp + [fname], float(fst.chatter))
                 for name, vs in sorted(pu.values.items()):
                     quantity = "velocity" if name == "overall" else q.get(name)
                     if vs.state in VALUE_STATES:
                         value_state.add_metric(lp + [name], {s: s == vs.state for s in VALUE_STATES})
                     latched.add_metric(lp + [name], 1.0 if vs.latched else 0.0)
+                    raises.add_metric(lp + [name], float(vs.raises))
+                    chatter.add_metric(lp + [name], float(vs.chatter))
                     if quantity is None:
                         continue
                     unit, factor = QUANTITY_METRIC_UNIT[quantity]
@@ -204,6 +219,7 @@ class UpdateCollector:
                         baselines[unit].add_metric(lp + [name, quantity], vs.baseline * factor)  # type: ignore[operator]
 
         yield from (overall, zone, *bands.values(), *levels.values(), *baselines.values(), value_state, latched,
+                    raises, chatter, finding_state, finding_chatter,
                     wf_rms, wf_peak, wf_mean, wf_crest, wf_kurt, sensor_ok, sensor_check, sensor_clipped,
                     sensor_rms, sensor_mean, point_state, machine_state, speed,
                     speed_source)

@@ -71,6 +71,10 @@ def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]
         "baseline": num(v.baseline),
         "latched": bool(v.latched),
         "reason": getattr(v, "reason", ""),
+        "drop_warning_level": num(v.drop_warning_level),
+        "drop_alarm_level": num(v.drop_alarm_level),
+        "raises": int(v.raises),
+        "chatter": int(v.chatter),
     }
     if quantity is not None:
         out["quantity"] = quantity
@@ -142,6 +146,12 @@ def point_state_payload(update: MachineUpdate, point: PointUpdate, agent_id: str
             "baseline_mm_s": num(overall.baseline) if overall is not None else None,
         },
         "values": {name: value_payload(v, quantities.get(name)) for name, v in point.values.items()},
+        "findings": {
+            name: {"state": f.state, "present": bool(f.present), "seen": int(f.seen), "window": int(f.window),
+                   "strength": num(f.strength), "bearing": f.bearing, "reason": f.reason,
+                   "raises": int(f.raises), "chatter": int(f.chatter)}
+            for name, f in point.findings.items()
+        },
         "data_quality": data_quality_payload(point, quality),
         "notice": ADVISORY,
     }

@@ -4,7 +4,10 @@ A row is ``(time_s, machine, point, value name, value, unit, state)``. From each
 :class:`~rotorwatch.alarms.records.MachineUpdate` the store keeps
 
 - every :class:`~rotorwatch.alarms.records.ValueStatus` of every point (bands, ``overall``), with its
-  alarm state;
+  alarm state; a value that has chattered also gets a row ``<value>:chatter`` (unit ``1``, its chatter
+  count so far, state ``-``) on every update from its first chatter on;
+- every finding named in the machine's ``alarms.findings``, as value ``finding:<NAME>`` (unit ``1``,
+  the finding's strength, NULL in an update without it) with the state it raises;
 - the waveform figures of every analysed point: ``rms_m_s2``, ``peak_m_s2``, ``crest_factor``,
   ``kurtosis`` (state ``-``: they are trended, not alarmed here);
 - the machine's speed as value ``speed`` (unit ``rpm``) on point ``""`` (machine level), with the
@@ -100,6 +103,10 @@ def rows_of(update: MachineUpdate) -> list[tuple[str, str, str, float | None, st
     for point_id, pu in update.points.items():
         for vs in pu.values.values():
             out.append((point_id, vs.name, vs.unit, _finite(vs.value), vs.state))
+            if vs.chatter:
+                out.append((point_id, f"{vs.name}:chatter", "1", float(vs.chatter), NO_STATE))
+        for name, fs in pu.findings.items():
+            out.append((point_id, f"finding:{name}", "1", _finite(fs.strength), fs.state))
         if pu.result is not None:
             w = pu.result.waveform
             out += [

@@ -49,7 +49,9 @@ def test_point_state_payload_has_levels_baseline_and_units():
                                "warning_level_mm_s": 2.8, "alarm_level_mm_s": 4.5, "baseline_mm_s": 1.2}
     shaft = body["values"]["shaft-1x"]
     assert shaft == {"value": 0.9, "unit": "mm/s", "state": "warning", "warning_level": 0.8,
-                     "alarm_level": 3.5, "baseline": 0.4, "latched": True, "reason": "", "quantity": "velocity"}
+                     "alarm_level": 3.5, "baseline": 0.4, "latched": True, "reason": "", "quantity": "velocity",
+                     "drop_warning_level": None, "drop_alarm_level": None, "raises": 0, "chatter": 0}
+    assert body["findings"] == {}
     assert body["values"]["de-outer-race"]["quantity"] == "envelope"
     assert body["values"]["de-outer-race"]["warning_level"] is None
     assert body["sensor"] == {"ok": True, "fault": None, "reason": ""}

@@ -41,6 +41,27 @@ def test_rows_from_an_update(tmp_path):
     assert speed.value == 1470.0 and speed.unit == "rpm"
 
 
+def test_chatter_and_findings_are_trended(tmp_path):
+    import dataclasses
+
+    from rotorwatch.alarms.records import FindingStatus
+
+    base = update(T0, overall=2.5)
+    de = base.points["de"]
+    values = dict(de.values)
+    values["overall"] = dataclasses.replace(values["overall"], raises=3, chatter=2)
+    findings = {"BPFO": FindingStatus("BPFO", "warning", True, 6, 6, 7.5, "fan-de", "persisting")}
+    changed = dataclasses.replace(base, points={**base.points, "de": dataclasses.replace(de, values=values,
+                                                                                          findings=findings)})
+    with TrendStore(tmp_path / "t.sqlite", clock=Clock(T0)) as store:
+        n = store.record(changed)
+        rows = {r.name: r for r in store.query(point="de")}
+    assert n == 2 * 7 + 1 + 2  # the chatter count and the finding on "de"
+    assert rows["overall:chatter"].value == 2.0 and rows["overall:chatter"].unit == "1"
+    assert rows["finding:BPFO"].value == 7.5 and rows["finding:BPFO"].state == "warning"
+    assert "bearing_env:chatter" not in rows  # no chatter, no row
+
+
 def test_retention_by_age(tmp_path):
     clock = Clock(T0)
     with TrendStore(tmp_path / "t.sqlite", retention_days=2, prune_interval_s=3600, clock=clock) as store:
