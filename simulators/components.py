@@ -30,16 +30,21 @@ import numpy as np
 
 
 def order_tone(frac_turns: np.ndarray, shaft_hz: np.ndarray | float, order: float, velocity_mm_s,
-               phase_rad: float) -> np.ndarray:
+               phase_rad: float, gain=None) -> np.ndarray:
     """Acceleration (m/s^2) of a tone at ``order`` x shaft speed with velocity RMS ``velocity_mm_s``.
 
     ``frac_turns`` is the fractional shaft angle in revolutions (turns minus its integer part, which
     keeps the sine's argument small at any absolute time). velocity = sqrt(2) V sin(theta), so
-    acceleration = sqrt(2) V (2 pi f) cos(theta) with f = order x shaft_hz.
+    acceleration = sqrt(2) V (2 pi f) cos(theta) with f = order x shaft_hz. ``gain`` (complex, scalar or
+    per sample, or a pair (real part, imaginary part) of per-sample arrays) is a response the tone passes
+    through: ``Re(a exp(i theta) gain)``.
     """
     amp_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(shaft_hz)
     theta = 2.0 * math.pi * ((order * frac_turns) % 1.0) + phase_rad
-    return amp_m_s2 * np.cos(theta)
+    if gain is None:
+        return amp_m_s2 * np.cos(theta)
+    g_re, g_im = gain if isinstance(gain, tuple) else (np.real(gain), np.imag(gain))
+    return amp_m_s2 * (np.cos(theta) * g_re - np.sin(theta) * g_im)
 
 
 class ShaftPhasor:
@@ -62,13 +67,20 @@ class ShaftPhasor:
             self._powers[k] = self._powers[m] * (self._power(rest) if rest else 1.0)
         return self._powers[k]
 
-    def tone(self, order: float, velocity_mm_s, phase_rad: float) -> np.ndarray:
+    def tone(self, order: float, velocity_mm_s, phase_rad: float, gain=None) -> np.ndarray:
+        """Like :func:`order_tone`, ``gain`` included."""
         if order != int(order) or order < 1:
-            return order_tone(self.frac_turns, self.shaft_hz, order, velocity_mm_s, phase_rad)
+            return order_tone(self.frac_turns, self.shaft_hz, order, velocity_mm_s, phase_rad, gain)
         amp_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(self.shaft_hz)
         z = self._power(int(order))
         c = complex(math.cos(phase_rad), math.sin(phase_rad))
-        return amp_m_s2 * (z.real * c.real - z.imag * c.imag)
+        if gain is None:
+            return amp_m_s2 * (z.real * c.real - z.imag * c.imag)
+        g_re, g_im = gain if isinstance(gain, tuple) else (np.real(gain), np.imag(gain))
+        # Re(z c g) with c g = (c.re g_re - c.im g_im) + i (c.re g_im + c.im g_re)
+        cg_re = c.real * g_re - c.imag * g_im
+        cg_im = c.real * g_im + c.imag * g_re
+        return amp_m_s2 * (z.real * cg_re - z.imag * cg_im)
 
 
 class ImpactKernel:

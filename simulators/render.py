@@ -14,10 +14,16 @@ The acceleration at a point is the SUM of:
   fundamental's velocity (``blade_pass``, mm/s RMS of the fundamental);
 - bearing defects (``outer_race``, ``inner_race``, ``ball``), impact trains ringing the housing
   resonance, sized by peak impact acceleration in m/s^2 (see :mod:`~rotorwatch.simulators.impacts`);
-- broadband Gaussian noise (``noise``, m/s^2 RMS).
+- broadband machine noise (``noise``, m/s^2 RMS), coloured (``structure.noise_low_hz`` ..
+  ``noise_high_hz``), Gaussian;
+- 2xLF (``twice_line``, mm/s RMS): the motor's magnetic pull at twice the supply's line frequency, a
+  fixed frequency that does not follow the shaft.
 
-Sensor output in volts follows :mod:`~rotorwatch.simulators.sensor`. Beyond the scenario's duration the
-timeline holds its last state (noise, drift and phases keep running).
+That sum is the housing's acceleration (:meth:`ScenarioRenderer.snapshot_accel`). What the input
+records (:meth:`ScenarioRenderer.snapshot`, :meth:`ScenarioRenderer.stream`) has passed the measurement
+chain first (mounted sensor resonance, AC coupling, anti-alias filter; :mod:`~rotorwatch.simulators.chain`)
+and then the sensor and the input (:mod:`~rotorwatch.simulators.sensor`). Beyond the scenario's duration
+the timeline holds its last state (noise, drift and phases keep running).
 """
 
 from __future__ import annotations
@@ -30,6 +36,7 @@ import numpy as np
 
 from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Config, Machine
+from .chain import GAIN_BLOCK, ChainResponse, ChainSettings, ShapedNoise
 from .components import ImpactKernel, ShaftPhasor, ring
 from .impacts import ImpactTrain
 from .profile import Profile, Ramp
@@ -125,8 +132,25 @@ class ScenarioRenderer:
                     jitter=structure.slip_jitter_pct / 100.0, scatter=structure.impact_scatter_pct / 100.0,
                     load_zone_depth=structure.load_zone_depth, seed=self.seed, name=bearing_id,
                 )
+        # the measurement chain of each point (the sensor's configured AC coupling unless the scenario
+        # says otherwise; 0.5 Hz when neither does) and its coloured machine noise
+        chain = spec.chain
+        self.chain_settings: dict[str, ChainSettings] = {}
+        for p in m.points:
+            ac = chain.ac_coupling_hz if chain.ac_coupling_hz is not None else (p.sensor.ac_coupling_corner_hz or 0.5)
+            self.chain_settings[p.id] = ChainSettings(
+                chain.mount_resonance_hz, chain.mount_damping_ratio, ac, chain.anti_alias_fraction,
+                chain.anti_alias_order, structure.noise_low_hz, structure.noise_high_hz,
+            )
+        self._noise = {p.id: ShapedNoise(self.seed, stream_key("noise", p.id), self.chain_settings[p.id]) for p in m.points}
+        self._responses: dict[tuple[str, float], ChainResponse] = {}
+        self.line_frequency_hz = structure.line_frequency_hz or m.line_frequency_hz
+        self._line_phase = {p.id: float(generator(self.seed, stream_key("line-phase", p.id)).uniform(0, 2 * math.pi))
+                            for p in m.points}
         self._chains = {
-            p.id: SensorChain(p.sensor, faults[p.id], structure.interface_noise_v, self.seed, p.id) for p in m.points
+            p.id: SensorChain(p.sensor, faults[p.id], structure.interface_noise_v, self.seed, p.id,
+                              tau_s=self.chain_settings[p.id].tau_s)
+            for p in m.points
         }
         self._floor_v = structure.interface_noise_v
 
@@ -157,16 +181,26 @@ class ScenarioRenderer:
         return out
 
     # ------------------------------------------------------------------------------------ signals
-    def snapshot_accel(self, t_s: float, duration_s: float, fs_hz: float) -> dict[str, np.ndarray]:
-        """Acceleration in m/s^2 at each point from ``t_s`` for ``duration_s`` (before the sensor)."""
+    def snapshot_accel(self, t_s: float, duration_s: float, fs_hz: float, *,
+                       through_chain: bool = False) -> dict[str, np.ndarray]:
+        """Acceleration in m/s^2 at each point from ``t_s`` for ``duration_s``: the housing's own (default),
+        or as the measurement chain delivers it (``through_chain``: volts / sensitivity, before the
+        sensor faults, the input's noise floor and its range)."""
         n0, n = self._grid(t_s, duration_s, fs_hz)
-        return self._accel(n0, n, fs_hz)
+        return self._accel(n0, n, fs_hz, through_chain)
 
     def snapshot(self, t_s: float, duration_s: float, fs_hz: float) -> dict[str, np.ndarray]:
         """Sensor output in volts at each point from ``t_s`` for ``duration_s`` (faults applied)."""
         n0, n = self._grid(t_s, duration_s, fs_hz)
-        accel = self._accel(n0, n, fs_hz)
+        accel = self._accel(n0, n, fs_hz, True)
         return {pid: self._chains[pid].volts(a, n0, fs_hz) for pid, a in accel.items()}
+
+    def chain_response(self, point_id: str, fs_hz: float) -> ChainResponse:
+        """The measurement chain of a point at a sample rate (complex response: call it with Hz)."""
+        key = (point_id, float(fs_hz))
+        if key not in self._responses:
+            self._responses[key] = ChainResponse(self.chain_settings[point_id], float(fs_hz))
+        return self._responses[key]
 
     def stream(self, fs_hz: float, chunk_frames: int, start_s: float = 0.0,
                channels: int | None = None) -> Iterator[tuple[float, np.ndarray]]:
@@ -190,7 +224,8 @@ class ScenarioRenderer:
         n0, _ = self._grid(start_s, 0.0, fs_hz)
         while True:
             frames = np.empty((chunk_frames, channels), dtype=np.float32)
-            volts = {pid: self._chains[pid].volts(a, n0, fs_hz) for pid, a in self._accel(n0, chunk_frames, fs_hz).items()}
+            volts = {pid: self._chains[pid].volts(a, n0, fs_hz)
+                     for pid, a in self._accel(n0, chunk_frames, fs_hz, True).items()}
             for c in range(channels):
                 frames[:, c] = self._channel(c, volts, n0, chunk_frames, fs_hz)
             yield n0 / fs_hz, frames
@@ -211,7 +246,7 @@ class ScenarioRenderer:
             raise InputError(f"duration_s = {duration_s}: must be zero or positive")
         return int(round(t_s * fs_hz)), int(round(duration_s * fs_hz))
 
-    def _accel(self, n0: int, n: int, fs_hz: float) -> dict[str, np.ndarray]:
+    def _accel(self, n0: int, n: int, fs_hz: float, through_chain: bool = False) -> dict[str, np.ndarray]:
         t = (n0 + np.arange(n)) / fs_hz
         t_a, t_b = n0 / fs_hz, (n0 + n) / fs_hz
         turns = self.speed.turns(t)
@@ -223,26 +258,62 @@ class ScenarioRenderer:
             key: train.events(self.speed, t_a - self.kernel.length_s, t_b) for key, train in self._trains.items()
         } if n else {}
         phasor = ShaftPhasor(frac, shaft_hz)
+        counts = shaft_blocks = None
+        if through_chain and n:
+            # the chain's response is held per absolute block of GAIN_BLOCK samples (chunk-independent)
+            k0, k1 = n0 // GAIN_BLOCK, (n0 + n - 1) // GAIN_BLOCK
+            edges = np.clip(np.arange(k0, k1 + 2) * GAIN_BLOCK - n0, 0, n)
+            counts = np.diff(edges)
+            shaft_blocks = np.atleast_1d(self.speed.shaft_hz((np.arange(k0, k1 + 1) + 0.5) * GAIN_BLOCK / fs_hz))
         out = {}
         for p in self.machine.points:
-            acc = np.zeros(n)
+            resp = self.chain_response(p.id, fs_hz) if through_chain else None
+            tones = []
             for tone in self._tones[p.id]:
                 level = self._level(p.id, tone.component, t, t_a, t_b)
                 if np.all(level == 0) or tone.order * f_max >= nyquist:
                     continue
-                acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad)
+                tones.append((tone, level))
+            gains = None
+            if resp is not None and shaft_blocks is not None and tones:
+                g = resp(np.concatenate([tone.order * shaft_blocks for tone, _ in tones]))
+                gains = g.reshape(len(tones), len(shaft_blocks))
+            acc = np.zeros(n)
+            for i, (tone, level) in enumerate(tones):
+                gain = None
+                if gains is not None:
+                    gain = (np.repeat(gains[i].real, counts), np.repeat(gains[i].imag, counts))
+                acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
+            line = self._level(p.id, "twice_line", t, t_a, t_b)
+            if self.line_frequency_hz and np.any(line > 0) and 2.0 * self.line_frequency_hz < nyquist:
+                acc += self._twice_line(p.id, line, n0, n, fs_hz, resp)
             noise = self._level(p.id, "noise", t, t_a, t_b)
             if np.any(noise > 0):
-                acc += noise * white_noise(self.seed, stream_key("noise", p.id), n0, n)
+                acc += noise * self._noise[p.id].samples(n0, n, fs_hz, through_chain)
             for (pid, bearing_id, defect), prof in self._defects.items():
                 if pid != p.id:
                     continue
                 times, factor = events[(bearing_id, defect)]
                 sizes = prof.value(times) * factor
                 if np.any(sizes > 0):
-                    acc += ring(self.kernel, times, sizes, n0, n, fs_hz)
+                    ringing = ring(self.kernel, times, sizes, n0, n, fs_hz)
+                    if resp is not None:  # narrow-band: the chain's gain at the housing resonance
+                        ringing *= float(np.abs(resp(self.kernel.natural_hz))[0])
+                    acc += ringing
             out[p.id] = acc
         return out
+
+    def _twice_line(self, point_id: str, level_mm_s, n0: int, n: int, fs_hz: float,
+                    resp: ChainResponse | None) -> np.ndarray:
+        """2xLF: a tone at twice the line frequency on the absolute clock (not the shaft's)."""
+        f = 2.0 * float(self.line_frequency_hz)  # type: ignore[arg-type]
+        cycles = ((n0 + np.arange(n, dtype=np.int64)) * (f / fs_hz)) % 1.0
+        theta = 2.0 * math.pi * cycles + self._line_phase[point_id]
+        amp = math.sqrt(2.0) * (np.asarray(level_mm_s) / 1000.0) * 2.0 * math.pi * f
+        if resp is None:
+            return amp * np.cos(theta)
+        g = complex(resp(f)[0])
+        return amp * (np.cos(theta) * g.real - np.sin(theta) * g.imag)
 
     def _level(self, point_id: str, component: str, t: np.ndarray, t_a: float, t_b: float):
         prof = self._levels[(point_id, component)]

@@ -17,7 +17,8 @@
     misalignment_mm_s = 0.3         # 2x
     looseness_mm_s = 0.0            # 3x..8x together
     blade_pass_mm_s = 0.4           # blades x speed (2nd and 3rd harmonics at 1/2 and 1/4 of it)
-    noise_m_s2 = 0.3                # broadband acceleration RMS
+    noise_m_s2 = 0.3                # broadband machine noise, acceleration RMS (coloured: see [structure])
+    twice_line_mm_s = 0.0           # 2xLF: the motor's magnetic pull at twice the line frequency
     speed_drift_pct = 0.2           # slow wander of speed within +/- this fraction of nominal
     # speed_rpm = (the configured speed)
 
@@ -29,6 +30,16 @@
     impact_scatter_pct = 10.0       # random scatter of impact sizes (std)
     load_zone_depth = 0.8           # share of an impact that depends on the load zone
     interface_noise_v = 2e-5        # the input's own noise floor, volts RMS
+    noise_low_hz = 10.0             # machine noise: flat in acceleration from here (first-order skirt below) ...
+    noise_high_hz = 1000.0          # ... to here (first-order roll-off above)
+    # line_frequency_hz = (the machine's line_frequency_hz)   the supply, for 2xLF
+
+    [chain]                         # the sensor and the input (defaults shown; 0 turns a stage off)
+    mount_resonance_hz = 20000.0    # mounted accelerometer resonance
+    mount_damping_ratio = 0.03
+    # ac_coupling_hz = (the sensor's ac_coupling_corner_hz, else 0.5)   first-order high-pass; 0: DC-coupled
+    anti_alias_fraction = 0.45      # converter low-pass corner, as a fraction of the sample rate
+    anti_alias_order = 8
 
     [[change]]
     start_day = 10
@@ -49,7 +60,11 @@
 
 Units of ``to``: ``outer_race``/``inner_race``/``ball`` peak impact acceleration in m/s^2;
 ``unbalance``/``misalignment``/``looseness``/``blade_pass`` velocity RMS in mm/s; ``noise`` acceleration
-RMS in m/s^2; ``speed_rpm`` in r/min. ``points`` defaults: a bearing defect shows at full size on the
+RMS in m/s^2; ``twice_line`` velocity RMS in mm/s at twice the line frequency; ``speed_rpm`` in r/min.
+
+The measurement chain (``[chain]``) and the noise colour are described in
+:mod:`rotorwatch.simulators.chain`: the volts a scenario produces are what a mounted, AC-coupled sensor
+behind an anti-alias filter delivers, not the housing's acceleration as it is. ``points`` defaults: a bearing defect shows at full size on the
 points that sit on its bearing and at ``cross_transfer`` times its size on the machine's other points;
 with ``points`` given it shows at full size there and nowhere else. Other components apply to all points
 by default. Sensor faults are active from ``start_day`` to ``end_day``.
@@ -71,7 +86,7 @@ from rotorwatch.settings.loading import load_config, read_toml, validate
 from rotorwatch.settings.models import Config, Machine
 
 BEARING_COMPONENTS = ("outer_race", "inner_race", "ball")
-LEVEL_COMPONENTS = ("unbalance", "misalignment", "looseness", "blade_pass", "noise")
+LEVEL_COMPONENTS = ("unbalance", "misalignment", "looseness", "blade_pass", "noise", "twice_line")
 COMPONENTS = (*BEARING_COMPONENTS, *LEVEL_COMPONENTS, "speed_rpm", "sensor")
 SENSOR_FAULTS = ("disconnected", "clipping", "dropouts", "bias_step")
 # default ``value`` of each sensor fault
@@ -104,6 +119,7 @@ class Healthy(_Model):
     looseness_mm_s: NonNeg = 0.0
     blade_pass_mm_s: NonNeg = 0.4
     noise_m_s2: NonNeg = 0.3
+    twice_line_mm_s: NonNeg = 0.0
     speed_drift_pct: Annotated[float, Field(ge=0, le=5, allow_inf_nan=False)] = 0.2
     speed_rpm: Positive | None = None
 
@@ -116,6 +132,30 @@ class Structure(_Model):
     impact_scatter_pct: Annotated[float, Field(ge=0, le=50)] = 10.0
     load_zone_depth: Annotated[float, Field(ge=0, le=1)] = 0.8
     interface_noise_v: NonNeg = 2e-5
+    noise_low_hz: Positive = 10.0
+    noise_high_hz: Positive = 1000.0
+    line_frequency_hz: Annotated[float, Field(ge=10, le=400, allow_inf_nan=False)] | None = None
+
+    @model_validator(mode="after")
+    def _noise_band(self) -> "Structure":
+        if self.noise_low_hz >= self.noise_high_hz:
+            raise ValueError(f"noise_low_hz ({self.noise_low_hz:g}) must be below noise_high_hz ({self.noise_high_hz:g})")
+        return self
+
+
+class Chain(_Model):
+    mount_resonance_hz: NonNeg = 20000.0
+    mount_damping_ratio: Annotated[float, Field(gt=0, lt=1)] = 0.03
+    ac_coupling_hz: Annotated[float, Field(ge=0, le=100, allow_inf_nan=False)] | None = None
+    anti_alias_fraction: Annotated[float, Field(ge=0, lt=0.5)] = 0.45
+    anti_alias_order: int = Field(8, ge=1, le=16)
+
+    @model_validator(mode="after")
+    def _aa(self) -> "Chain":
+        if 0 < self.anti_alias_fraction < 0.1:
+            raise ValueError(f"anti_alias_fraction = {self.anti_alias_fraction:g}: give 0 (none) or a corner "
+                             "between 0.1 and 0.5 of the sample rate")
+        return self
 
 
 class Change(_Model):
@@ -175,6 +215,7 @@ class ScenarioFile(_Model):
     scenario: Header
     healthy: Healthy = Healthy()
     structure: Structure = Structure()
+    chain: Chain = Chain()
     change: list[Change] = []
 
 
@@ -267,6 +308,12 @@ def cross_check(spec: ScenarioFile, machine: Machine, config: Config, source: st
             spans.setdefault(key, []).append((ch.start_day, end, i))
         if clash:
             problems.append(clash)
+    uses_line = spec.healthy.twice_line_mm_s > 0 or any(c.component == "twice_line" for c in spec.change)
+    if uses_line and spec.structure.line_frequency_hz is None and machine.line_frequency_hz is None:
+        problems.append(
+            f"{source}: twice_line needs the line frequency: set line_frequency_hz on machine {machine.id!r} "
+            "or structure.line_frequency_hz in the scenario"
+        )
     fs = config.acquisition.sample_rate_hz
     if spec.structure.resonance_hz >= 0.45 * fs:
         problems.append(

@@ -1,17 +1,23 @@
-"""From housing acceleration to the volts an input records: sensitivity, faults, noise floor, range.
+"""From the chain's acceleration to the volts an input records: sensitivity, faults, noise floor, range.
 
-The chain, in the order a real installation applies it::
+``accel`` here is what the measurement chain delivers (mounted resonance, AC coupling and anti-alias
+filter already applied; :mod:`rotorwatch.simulators.chain`). Then, in the order a real installation
+applies it::
 
     volts = accel * sensor.volts_per_m_s2        the accelerometer (0 while the cable is unplugged)
-          + bias                                 bias_step fault: the sensor's output shifts by `value` volts
+          + bias change                          bias_step fault: the sensor's output shifts by `value` volts
           * gain                                 clipping fault: an overload / mis-set gain of `value` times
           + floor noise                          the input's own noise, interface_noise_v RMS, always there
     clipped at +/- sensor.input_range_v          the converter's full scale
     runs of exact zeros                          dropouts fault: `value` of the time lost in 2-20 ms runs
 
 A disconnected cable therefore reads the floor noise alone (about 20 uV RMS by default), a clipping
-period reads many samples at exactly the input range, and a bias step moves the mean. The input is
-modelled DC-coupled: ``sensor.ac_coupling_corner_hz`` is not applied.
+period reads many samples at exactly the input range. A bias step is a DC change at the sensor's
+output: through an AC-coupled input (``tau_s > 0``, the first-order coupling of the chain) the input
+shows it only as the coupling's step response, ``value x exp(-(t - t_step) / tau)``, at the step and
+again (negative) when the bias returns at the fault's end; a DC-coupled input (``tau_s = 0``) shows a
+lasting shift of the mean. The sensor's bias removal when a cable is pulled (a large transient of its
+own on a real IEPE input) is not modelled.
 """
 
 from __future__ import annotations
@@ -47,8 +53,10 @@ def _span_slice(span: FaultSpan, n0: int, n: int, fs_hz: float) -> slice | None:
 class SensorChain:
     """The volts one point's input records, given its acceleration on the absolute sample grid."""
 
-    def __init__(self, sensor: Sensor, faults: list[FaultSpan], floor_v: float, seed: int, name: str):
+    def __init__(self, sensor: Sensor, faults: list[FaultSpan], floor_v: float, seed: int, name: str,
+                 tau_s: float = 0.0):
         self.sensor = sensor
+        self.tau_s = tau_s
         self.faults = sorted(faults, key=lambda f: f.start_s)
         self.floor_v = floor_v
         self.seed = seed
@@ -63,9 +71,14 @@ class SensorChain:
         for f, s in active:
             if f.fault == "disconnected":
                 v[s] = 0.0
-        for f, s in active:
-            if f.fault == "bias_step":
-                v[s] += f.value
+        if self.tau_s > 0:
+            for f in self.faults:
+                if f.fault == "bias_step":
+                    v += self._bias_transient(f, n0, n, fs_hz)
+        else:
+            for f, s in active:
+                if f.fault == "bias_step":
+                    v[s] += f.value
         for f, s in active:
             if f.fault == "clipping":
                 v[s] *= f.value
@@ -77,6 +90,21 @@ class SensorChain:
                 for a, b in self._dropout_runs(f, n0, n, fs_hz):
                     v[a:b] = 0.0
         return v
+
+    def _bias_transient(self, span: FaultSpan, n0: int, n: int, fs_hz: float) -> np.ndarray:
+        """The AC-coupled input's view of a bias step: the coupling's step response at the step, and its
+        negative when the bias returns at the span's end (exact: the closed-form response of the
+        first-order high-pass to a step)."""
+        out = np.zeros(n)
+        t = (n0 + np.arange(n)) / fs_hz
+        for edge_s, size in ((span.start_s, span.value), (span.end_s, -span.value)):
+            if not math.isfinite(edge_s):
+                continue
+            since = t - edge_s
+            live = (since >= 0) & (since < 60.0 * self.tau_s)  # beyond 60 tau it is below 1e-26 of the step
+            if np.any(live):
+                out[live] += size * np.exp(-since[live] / self.tau_s)
+        return out
 
     def _dropout_runs(self, span: FaultSpan, n0: int, n: int, fs_hz: float):
         """Sample ranges (relative to n0) of the dropout runs touching the grid, drawn per second."""

@@ -11,8 +11,14 @@ order they are tried (the first that fires is reported):
    the amplitude is limited, spectra and RMS read low and smeared;
 5. ``disconnected``: the AC RMS sits at the interface noise floor (below ``open_rms_v``, 0.1 mV): no
    sensor, an open cable, or an unpowered IEPE supply;
-6. ``bias_shift``: the mean of an AC-coupled input sits far from zero (``bias_fraction``, 5 %, of the input
-   range): a cable or connector fault, a failing sensor amplifier.
+6. ``bias_shift``: the mean of the input sits far from zero (``bias_fraction``, 5 %, of the input range)
+   over the window, over one of its parts, or over any stretch of ``min_part_samples`` samples (a
+   running mean): a cable or connector fault, a failing sensor amplifier. On a DC-coupled input a bias
+   change is a lasting shift of the mean. On an AC-coupled input (IEPE conditioners, sound interfaces)
+   the coupling removes DC, so a bias change shows only while it settles, as a transient decaying with
+   the coupling's time constant (0.3 s at a 0.5 Hz corner): the running mean catches it in every window
+   that holds its start, and the point reads normal again once the transient has left the window (the
+   new bias itself cannot be seen through the coupling).
 
 Parts of the window. The daemon's windows may overlap (an update every second over a 4 s window), so
 a fault that starts inside a window covers only its newest part. Flatline, disconnected and bias are
@@ -153,4 +159,16 @@ def check_block(block_v: np.ndarray, sensor: Sensor, limits: SensorLimits = DEFA
             f"mean {level * 1e3:.4g} mV in {where} is off zero by more than {limits.bias_fraction * 100:g} % of the "
             f"{full_scale:g} V input range (AC-coupled input expected near 0 V)",
         )
+    span = limits.min_part_samples
+    if n > span:
+        c = np.concatenate(([0.0], np.cumsum(x)))
+        running = (c[span:] - c[:-span]) / span
+        at = int(np.argmax(np.abs(running)))
+        if abs(running[at]) > bias_v:
+            return health(
+                "bias_shift",
+                f"mean {running[at] * 1e3:.4g} mV over {span} samples from sample {at} of the window is off zero by more "
+                f"than {limits.bias_fraction * 100:g} % of the {full_scale:g} V input range (a bias change settling "
+                "through the input's AC coupling)",
+            )
     return health(None, "")

@@ -122,3 +122,25 @@ def test_part_edges_bounds():
     e = part_edges(204800)
     assert len(e) == DEFAULT_LIMITS.max_parts + 1 and e[0] == 0 and e[-1] == 204800
     assert np.diff(e).min() >= DEFAULT_LIMITS.min_part_samples
+
+
+@pytest.mark.parametrize("corner_hz", [0.16, 0.5, 1.0])
+def test_bias_change_through_ac_coupling_is_seen_while_it_settles(corner_hz):
+    """An AC-coupled input shows a bias step only as the coupling's decaying step response (reference:
+    the step through scipy.signal.lfilter of the bilinear first-order high-pass s / (s + w_c)). The check
+    reads it in every window that holds the start of the transient, and not once it has left."""
+    from scipy import signal
+
+    start_s = 20.4
+    x = live_signal(40.0)
+    b, a = signal.bilinear([1.0, 0.0], [1.0, 2 * np.pi * corner_hz], fs=FS_HZ)
+    step = np.where(np.arange(x.size) >= int(start_s * FS_HZ), 0.08, 0.0)
+    seen = faults_over_time(x + signal.lfilter(b, a, step))
+    assert all(f is None for t, f in seen if t <= start_s), seen
+    holding_start = [(t, f) for t, f in seen if start_s < t <= start_s + WINDOW_S]
+    assert holding_start and all(f == "bias_shift" for _, f in holding_start), holding_start
+    tau_s = 1 / (2 * np.pi * corner_hz)
+    settled = [(t, f) for t, f in seen if t - WINDOW_S > start_s + 4 * tau_s]  # < 2 % of the step left
+    assert settled and all(f is None for _, f in settled), settled
+    # (with 0.5 s parts alone, the means of the 0.5 and 1 Hz transients stay under 5 % of the range:
+    # the running mean over min_part_samples is what sees them)

@@ -1,10 +1,10 @@
 """The simulator's sensor faults (config/scenarios/sensor-fault.toml) through the machine pipeline,
 streamed the way the daemon streams: a window of ``analysis.window_s`` (4 s) every second, so windows
-overlap by 3 s and a fault begins inside a window.
+overlap by 3 s and a fault begins inside a window. The signals are what the simulator's measurement
+chain delivers (mounted resonance, AC coupling at 0.5 Hz, anti-alias filter, coloured machine noise).
 
 For each fault of the scenario (de-h unplugged about an hour from day 5.495, de-h overloaded x200 about
-three hours from day 10.48, nde-h dropouts from day 15.4 to 15.7, a de-h bias step of +0.08 V from
-day 20 to the end):
+three hours from day 10.48, nde-h dropouts from day 15.4 to 15.7):
 
 - the point reads ``sensor_fault`` with the fault's name and a reason by the second update after the
   fault starts, and on every update while faulty samples are in the window;
@@ -12,6 +12,11 @@ day 20 to the end):
   warning or alarm, and no baseline learning (the learning count of the point's values stands still);
   the other point carries on as before;
 - once the faulty samples have left the window it clears (and learning resumes).
+
+The de-h bias step of +0.08 V from day 20 to the end goes through the input's AC coupling: the input
+shows it only as a transient decaying with the coupling's time constant, so it reads ``bias_shift``
+while a window holds the start of that transient and normal once it has settled out of the window
+(the new bias itself cannot be seen through the coupling).
 
 The overload makes the point's overall velocity read far above its absolute alarm level (the demo
 config's 4.5 mm/s, set at the group 2 rigid C/D boundary of ISO 10816-3:2009 Table A.2 / ISO 20816-3;
@@ -46,7 +51,8 @@ EXPECTED_NAME = {"disconnected": "disconnected", "clipping": "clipping", "dropou
 # learning never completes in these short runs; absolute levels apply while learning
 POLICY = AlarmPolicy(learning_hours=10_000.0, min_learning_updates=100_000)
 
-FAULTS = [c for c in SCENARIO.spec.change if c.component == "sensor"]
+FAULTS = [c for c in SCENARIO.spec.change if c.component == "sensor" and c.fault != "bias_step"]
+BIAS = next(c for c in SCENARIO.spec.change if c.component == "sensor" and c.fault == "bias_step")
 
 
 def run(pipeline: MachinePipeline, ends_s: list[float]):
@@ -115,3 +121,24 @@ def test_fault_detected_within_two_updates_suppressed_and_cleared(change, tmp_pa
                  and e.old_state == "sensor_fault"]
     assert len(recovered) == 1, recovered  # one transition out, no chatter
     assert learned_count(pipeline, pid) > n_before_end  # learning resumed
+
+
+def test_bias_step_on_the_ac_coupled_input_reads_while_it_settles(tmp_path):
+    pid = BIAS.points[0]
+    start_s = BIAS.start_day * DAY_S
+    tau_s = RENDERER.chain_settings[pid].tau_s
+    assert tau_s > 0.1  # the scenario's input is AC-coupled (0.5 Hz: 0.32 s)
+    pipeline = MachinePipeline(SCENARIO.config, MACHINE, state_dir=tmp_path, policy=POLICY)
+    ups = run(pipeline, [start_s + OFFSET_S + k * INTERVAL_S for k in range(-3, 12)])
+    before = [u for t, u in ups if t <= start_s]
+    holding = [(t, u) for t, u in ups if start_s < t < start_s + WINDOW_S]  # the window holds the step
+    settled = [(t, u) for t, u in ups if t - WINDOW_S > start_s + 4 * tau_s]  # under 2 % of it left
+    assert all(u.points[pid].state != "sensor_fault" for u in before)
+    assert holding and all(u.points[pid].health.fault == "bias_shift" for _, u in holding), \
+        [u.points[pid].reason for _, u in holding]
+    assert "settling" in holding[0][1].points[pid].reason or "mean" in holding[0][1].points[pid].reason
+    for _, u in holding:
+        assert all(v.state == "suppressed" for v in u.points[pid].values.values())
+        assert u.state not in ("warning", "alarm")
+    assert settled and all(u.points[pid].health.ok and u.points[pid].state in ("learning", "normal")
+                           for _, u in settled), [u.points[pid].reason for _, u in settled]

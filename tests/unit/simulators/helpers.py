@@ -59,7 +59,7 @@ def write_config(directory: Path, *, rpm: float = 1797.0, fs_hz: float = 48000.0
 
 
 def write_scenario(directory: Path, config: Path | str, *, healthy: dict | None = None, structure: dict | None = None,
-                   changes: list[dict] = (), duration_days: float = 2.0, seed: int = 5, cadence_s: float = 3600.0,
+                   chain: dict | None = None, changes: list[dict] = (), duration_days: float = 2.0, seed: int = 5, cadence_s: float = 3600.0,
                    name: str = "scenario.toml", extra_header: str = "") -> Path:
     """A scenario on ``config`` (written relative to the scenario file when it is a Path)."""
     cfg = str(config) if isinstance(config, str) else config.name
@@ -74,6 +74,9 @@ def write_scenario(directory: Path, config: Path | str, *, healthy: dict | None 
     if structure:
         lines.append("[structure]")
         lines += [f"{k} = {_toml_value(v)}" for k, v in structure.items()]
+    if chain:
+        lines.append("[chain]")
+        lines += [f"{k} = {_toml_value(v)}" for k, v in chain.items()]
     for ch in changes:
         lines.append("[[change]]")
         lines += [f"{k} = {_toml_value(v)}" for k, v in ch.items()]

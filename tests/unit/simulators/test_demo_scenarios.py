@@ -117,6 +117,12 @@ def test_sensor_faults_at_their_hours():
     for hour in (252, 253, 254):
         assert np.count_nonzero(np.abs(v(hour)) == 1.0) > 1000  # clipped at the 1 V input range
     assert np.count_nonzero(v(372, "nde-h") == 0.0) > 0.02 * 4 * FS  # dropouts
-    assert np.mean(v(20 * 24 + 1)) == pytest.approx(0.08, abs=1e-3)  # bias step, and it stays
-    assert np.mean(v(29 * 24)) == pytest.approx(0.08, abs=1e-3)
+    # bias step at hour 480 on an AC-coupled input (0.5 Hz, tau 0.32 s): the snapshot that starts with it
+    # holds the coupling's decaying step response (its first sample reads the whole 0.08 V step) ...
+    at_step = v(20 * 24) - r.snapshot_accel(20 * 24 * 3600.0, 4.0, FS, through_chain=True)["de-h"] * 0.1 / 9.80665
+    assert at_step[0] == pytest.approx(0.08, abs=1e-3)
+    assert np.mean(at_step[:int(0.32 * FS)]) == pytest.approx(0.08 * (1 - math.exp(-1)), abs=2e-3)
+    # ... and an hour later the input shows nothing of the bias, which stays (the coupling removes DC)
+    assert abs(np.mean(v(20 * 24 + 1))) < 1e-3 and abs(np.mean(v(29 * 24))) < 1e-3
+    assert r.severities(29 * 24 * 3600.0)["de-h"]["sensor:bias_step"] == pytest.approx(0.08)
     assert abs(np.mean(v(19 * 24))) < 1e-3

@@ -1,4 +1,9 @@
-"""Sensor faults in the volts domain: unplugged cable, clipping, dropouts, bias step."""
+"""Sensor faults in the volts domain: unplugged cable, clipping, dropouts, bias step.
+
+The bias step is checked against scipy.signal as the reference implementation: a DC step through the
+first-order high-pass of an AC-coupled input (scipy.signal.bilinear of s / (s + w_c), run by
+scipy.signal.lfilter) is the transient the input shows; a DC-coupled input keeps the shift.
+"""
 
 from __future__ import annotations
 
@@ -14,18 +19,21 @@ HEALTHY = {"unbalance_mm_s": 1.0, "misalignment_mm_s": 0.3, "blade_pass_mm_s": 0
 G_N = 9.80665  # m/s^2 (3rd CGPM 1901, references.md section 5)
 
 
-def _renderer(tmp_path, fault: str, value=None, **sensor):
+def _renderer(tmp_path, fault: str, value=None, chain=None, **sensor):
     ch = {"start_day": 0.5, "end_day": 0.6, "component": "sensor", "fault": fault}
     if value is not None:
         ch["value"] = value
     s = {"channel": 0, "sensitivity_mv_per_g": 100.0, **sensor}
     return renderer_for(tmp_path, config_kwargs={"points": [{"id": "p1", "bearing": "b1", "sensor": s}]},
-                        healthy=HEALTHY, changes=[ch])
+                        healthy=HEALTHY, changes=[ch], chain=chain)
 
 
-def test_volts_are_acceleration_times_sensitivity(tmp_path):
+DC_COUPLED = {"ac_coupling_hz": 0.0}
+
+
+def test_volts_are_the_chains_acceleration_times_sensitivity(tmp_path):
     r = _renderer(tmp_path, "disconnected")
-    a = r.snapshot_accel(3600.0, 1.0, FS)["p1"]
+    a = r.snapshot_accel(3600.0, 1.0, FS, through_chain=True)["p1"]
     v = r.snapshot(3600.0, 1.0, FS)["p1"]
     # 100 mV/g -> 0.1 / 9.80665 V per m/s^2; the rest is the 20 uV interface floor
     assert np.std(v - a * 0.1 / G_N) == pytest.approx(2e-5, rel=0.05)
@@ -50,10 +58,36 @@ def test_clipping_at_the_input_range(tmp_path):
     assert np.max(np.abs(before)) < 0.1
 
 
-def test_bias_step_moves_the_mean(tmp_path):
-    r = _renderer(tmp_path, "bias_step", 0.08)
+def test_bias_step_on_a_dc_coupled_input_moves_the_mean(tmp_path):
+    r = _renderer(tmp_path, "bias_step", 0.08, chain=DC_COUPLED)
     assert np.mean(r.snapshot(0.55 * DAY, 2.0, FS)["p1"]) == pytest.approx(0.08, abs=2e-4)
     assert abs(np.mean(r.snapshot(0.7 * DAY, 2.0, FS)["p1"])) < 2e-4  # repaired at day 0.6
+
+
+@pytest.mark.parametrize("corner_hz", [0.5, 3.0])
+def test_bias_step_on_an_ac_coupled_input_is_a_decaying_transient(tmp_path, corner_hz):
+    from scipy import signal
+
+    step_s = 0.5 * DAY
+    faulty = _renderer(tmp_path, "bias_step", 0.08, chain={"ac_coupling_hz": corner_hz})
+    (tmp_path / "clean").mkdir()
+    clean = renderer_for(tmp_path / "clean", healthy=HEALTHY, chain={"ac_coupling_hz": corner_hz},
+                         config_kwargs={"points": [{"id": "p1", "bearing": "b1",
+                                                    "sensor": {"channel": 0, "sensitivity_mv_per_g": 100.0}}]})
+    t0 = step_s - 0.5
+    seen = faulty.snapshot(t0, 6.0, FS)["p1"] - clean.snapshot(t0, 6.0, FS)["p1"]
+    # reference: the DC step of the sensor's output through the input's first-order high-pass
+    wc = 2 * np.pi * corner_hz
+    b, a = signal.bilinear([1.0, 0.0], [1.0, wc], fs=FS)
+    step = np.where(np.arange(seen.size) >= int(0.5 * FS), 0.08, 0.0)
+    expected = signal.lfilter(b, a, step)
+    assert np.max(np.abs(seen - expected)) < 1e-3 * 0.08
+    assert np.max(seen) == pytest.approx(0.08, rel=1e-3)
+    # a few time constants later the input shows nothing of the (lasting) shift
+    assert abs(np.mean(faulty.snapshot(0.55 * DAY, 2.0, FS)["p1"])) < 2e-4
+    # the return of the bias at the fault's end is the same transient, negative
+    back = faulty.snapshot(0.6 * DAY, 1.0, FS)["p1"] - clean.snapshot(0.6 * DAY, 1.0, FS)["p1"]
+    assert back[0] == pytest.approx(-0.08, rel=1e-3)
 
 
 def test_dropouts_are_runs_of_zeros(tmp_path):
@@ -70,7 +104,7 @@ def test_dropouts_are_runs_of_zeros(tmp_path):
 
 def test_fault_edges_within_one_snapshot(tmp_path):
     # a fault starting mid-block applies from its first sample on
-    r = _renderer(tmp_path, "bias_step", 0.05)
+    r = _renderer(tmp_path, "bias_step", 0.05, chain=DC_COUPLED)
     start = 0.5 * DAY
     v = r.snapshot(start - 1.0, 2.0, FS)["p1"]
     assert abs(np.mean(v[: int(FS)])) < 1e-3
