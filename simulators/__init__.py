@@ -16,6 +16,7 @@ API overview::
 Modules: :mod:`.scenario` (files, validation), :mod:`.render` (the sum of components),
 :mod:`.components` (tones, impact kernel), :mod:`.impacts` (defect impact times), :mod:`.rates`
 (the simulator's own bearing kinematics), :mod:`.speed` (speed and shaft angle), :mod:`.profile`
-(severity timelines), :mod:`.sensor` (volts and sensor faults), :mod:`.randomness` (seeded,
+(severity timelines), :mod:`.chain` (mounted sensor, AC coupling, anti-alias filter, coloured noise),
+:mod:`.sensor` (volts and sensor faults), :mod:`.randomness` (seeded,
 position-addressed random numbers). ``rotorwatch simulate`` writes snapshots to WAV.
 """
