@@ -48,6 +48,7 @@ import numpy as np
 import scipy.fft
 
 from .plan import EDGE_TAPER_FRACTION, EnvelopePlan
+from .result import BandReview
 from .spectrum import WelchKernel, hann
 from ..errors import InputError
 
@@ -57,6 +58,11 @@ SEARCH_STEP = 1.0  # candidate band starts, in band widths (1: adjacent bands; 0
 CYCLIC_OVERSAMPLING = 4.0  # the search's squared envelopes are averaged down to 4 x the envelope span
 SHAFT_ORDER_GUARD_LINES = 2  # lines this close to an integer shaft order are left out of the cyclic measure
 CRITERIA = ("cyclic", "kurtosis")
+# A later search's band is "clearly better" than the kept one when it lies elsewhere (overlaps less than
+# half of the narrower band) and scores at least max(50 % of |kept score|, 0.5) more (our choice: on
+# healthy signals the best of the grid beats a kept noise band by about 0.05 in either criterion).
+CLEARLY_BETTER_FRACTION = 0.5
+CLEARLY_BETTER_MIN = 0.5
 
 
 @dataclass(frozen=True)
@@ -204,6 +210,53 @@ class EnvelopeKernel:
             keep[:] = True
         return negentropy(lines[:, keep])
 
+    def _scores(self, bs: BlockSpectrum, starts: np.ndarray, k_w: int, shaft_hz: float,
+                criterion: str) -> tuple[np.ndarray, np.ndarray]:
+        """The criterion's score of the bands of ``k_w`` bins starting at bins ``starts`` (and their
+        squared envelopes at the critical rate)."""
+        bands = bs.spec[starts[:, None] + np.arange(k_w)[None, :]]
+        bands *= self._band_taper(k_w)
+        c = scipy.fft.ifft(bands, axis=-1, overwrite_x=True)
+        n_valid = int(k_w * bs.n_samples / bs.n_fft)
+        cut = int(math.ceil(bs.n_trim * k_w / bs.n_fft))
+        c = c[:, cut: n_valid - cut]
+        p = c.real**2
+        p += c.imag**2
+        if criterion == "cyclic":
+            return self._cyclic(p, k_w * bs.df_hz, shaft_hz), p
+        return _sk_of_power(p), p
+
+    def band_score(self, bs: BlockSpectrum, band_hz: tuple[float, float], shaft_hz: float,
+                   criterion: str = "cyclic") -> float:
+        """The search criterion's score of one given band (as the search would score it)."""
+        if criterion not in CRITERIA:
+            raise ValueError(f"criterion {criterion!r}: choose one of {', '.join(CRITERIA)}")
+        df = bs.df_hz
+        k_lo = max(int(round(band_hz[0] / df)), 1)
+        k_w = min(int(round((band_hz[1] - band_hz[0]) / df)), bs.spec.size - k_lo)
+        if k_w < 8:
+            raise InputError(f"envelope band {band_hz[0]:g}..{band_hz[1]:g} Hz holds fewer than 8 lines at this block length")
+        score, _ = self._scores(bs, np.array([k_lo]), k_w, shaft_hz, criterion)
+        return float(score[0])
+
+    def review_band(self, bs: BlockSpectrum, kept_hz: tuple[float, float], shaft_hz: float,
+                    criterion: str = "cyclic") -> BandReview:
+        """Search the bands and compare the best with the kept band ``kept_hz`` on this block."""
+        best = self.choose_band(bs, shaft_hz, criterion)
+        kept_score = self.band_score(bs, kept_hz, shaft_hz, criterion)
+        lo, hi = max(best.band_hz[0], kept_hz[0]), min(best.band_hz[1], kept_hz[1])
+        narrower = min(best.band_hz[1] - best.band_hz[0], kept_hz[1] - kept_hz[0])
+        elsewhere = max(hi - lo, 0.0) < 0.5 * narrower
+        margin = max(CLEARLY_BETTER_FRACTION * abs(kept_score), CLEARLY_BETTER_MIN)
+        return BandReview(
+            kept_hz=(float(kept_hz[0]), float(kept_hz[1])),
+            kept_score=kept_score,
+            best_hz=best.band_hz,
+            best_score=best.score,
+            criterion=criterion,
+            clearly_better=bool(elsewhere and best.score >= kept_score + margin),
+        )
+
     def choose_band(self, bs: BlockSpectrum, shaft_hz: float, criterion: str = "cyclic") -> BandChoice:
         """Search the candidate bands (see the module docstring) and return the best by ``criterion``."""
         if criterion not in CRITERIA:
@@ -219,22 +272,9 @@ class EnvelopeKernel:
             width *= WIDTH_STEP
             if not starts.size:
                 continue
-            bands = bs.spec[starts[:, None] + np.arange(k_w)[None, :]]
-            bands *= self._band_taper(k_w)
-            c = scipy.fft.ifft(bands, axis=-1, overwrite_x=True)
-            n_valid = int(k_w * bs.n_samples / bs.n_fft)
-            cut = int(math.ceil(bs.n_trim * k_w / bs.n_fft))
-            c = c[:, cut: n_valid - cut]
-            p = c.real**2
-            p += c.imag**2
-            if criterion == "cyclic":
-                score = self._cyclic(p, k_w * df, shaft_hz)
-                i = int(np.argmax(score))
-                sk_i = float(_sk_of_power(p[i]))  # reported for the chosen band only
-            else:
-                score = _sk_of_power(p)
-                i = int(np.argmax(score))
-                sk_i = float(score[i])
+            score, p = self._scores(bs, starts, k_w, shaft_hz, criterion)
+            i = int(np.argmax(score))
+            sk_i = float(score[i]) if criterion == "kurtosis" else float(_sk_of_power(p[i]))  # the chosen band's
             if best is None or score[i] > best[0]:
                 best = (float(score[i]), sk_i, int(starts[i]), k_w)
         if best is None:
@@ -299,10 +339,17 @@ class EnvelopeKernel:
         )
 
     def analyze(self, x0: np.ndarray, shaft_hz: float, bs: BlockSpectrum | None = None,
-                criterion: str = "cyclic") -> EnvelopeOutput:
-        """Envelope spectra of a block with its mean removed (m/s^2): fixed band or searched."""
+                criterion: str = "cyclic", kept_hz: tuple[float, float] | None = None,
+                review: bool = False) -> tuple[EnvelopeOutput, str, BandReview | None]:
+        """Envelope spectra of a block with its mean removed (m/s^2) and where the band came from:
+        ``fixed`` (the plan's band), ``kept`` (a band chosen earlier and kept: ``kept_hz``; with
+        ``review`` the search runs too and its best band is compared with it) or ``searched`` (this
+        block's search)."""
         bs = bs if bs is not None else self.block_spectrum(x0)
         if self.plan.band_hz is not None:
-            return self.demodulate(bs, self.plan.band_hz)
+            return self.demodulate(bs, self.plan.band_hz), "fixed", None
+        if kept_hz is not None:
+            verdict = self.review_band(bs, kept_hz, shaft_hz, criterion) if review else None
+            return self.demodulate(bs, kept_hz), "kept", verdict
         choice = self.choose_band(bs, shaft_hz, criterion)
-        return self.demodulate(bs, choice.band_hz, choice.kurtosis)
+        return self.demodulate(bs, choice.band_hz, choice.kurtosis), "searched", None

@@ -16,7 +16,8 @@ with the speed mode as its source (``fixed`` for fixed and estimated machines) u
 says otherwise.
 
 An analyzer keeps no state between blocks except cached set-ups, so blocks may be analysed in any order;
-it is not safe to share one analyzer between threads.
+a searched demodulation band that a point keeps is passed in by the caller (the pipeline keeps it with
+the point's baselines). It is not safe to share one analyzer between threads.
 """
 
 from __future__ import annotations
@@ -88,8 +89,18 @@ class PointAnalyzer:
             log.debug("speed estimate not clear (harmonics=%d) point=%s", est.harmonics_clear, self.plan.point.id)
         return sp.nominal_rpm, "nominal"
 
+    @property
+    def searches_band(self) -> bool:
+        """True when the demodulation band is not fixed in the configuration."""
+        return self.plan.envelope.band_hz is None
+
     def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
-                keep_spectra: bool = False, rpm_source: str | None = None) -> PointResult:
+                keep_spectra: bool = False, rpm_source: str | None = None,
+                envelope_band_hz: tuple[float, float] | None = None, review_band: bool = False) -> PointResult:
+        """Analyse one block. For a point whose demodulation band is searched, ``envelope_band_hz`` is the
+        band it keeps (the search is skipped; ``review_band`` runs it anyway and reports in
+        ``envelope_band_review`` whether it would choose a clearly better band); without it the band is
+        searched on this block. A configured band always wins."""
         p = self.plan
         x = self._check_block(block_m_s2)
         wave, x0 = waveform(x, dtype=np.float32)  # the transforms run in single precision (spectrum.py)
@@ -105,10 +116,13 @@ class PointAnalyzer:
         rpm_used, source = self._speed(bs, rpm, rpm_source)
         shaft_hz = rpm_used / 60.0
 
-        env = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion)
+        env, band_source, review = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion,
+                                                          kept_hz=envelope_band_hz, review=review_band)
         band_values = band_mod.band_values(p, shaft_hz, accel_psd, vel_psd, env.envelope_psd, env.df_hz)
         running = rpm_used > p.speed.stopped_rpm
-        findings, prominence = assess(env.squared_rms, env.df_hz, shaft_hz, p.defects) if running else ([], {})
+        findings, prominence = (assess(env.squared_rms, env.df_hz, shaft_hz, p.defects, envelope_psd=env.envelope_psd,
+                                       line_frequency_hz=p.machine.line_frequency_hz)
+                                if running else ([], {}))
 
         spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
         if keep_spectra:
@@ -133,5 +147,7 @@ class PointAnalyzer:
             findings=findings,
             envelope_kurtosis=None if np.isnan(env.kurtosis) else float(env.kurtosis),
             defect_prominence=prominence,
+            envelope_band_source=band_source,
+            envelope_band_review=review,
             **spectra,
         )

@@ -101,7 +101,8 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
             bands[bp.band.name] = float(np.sqrt(np.sum(vel[_mask(f, edges, df, HANN_LOBE_MARGIN_BINS)]) * df))
         else:
             bands[bp.band.name] = float(np.sqrt(np.sum(env_psd[_mask(fe, edges, dfe, HANN_LOBE_MARGIN_BINS)]) * dfe))
-    findings = find_defects(sq_rms, dfe, shaft_hz, plan.defects) if rpm > plan.speed.stopped_rpm else []
+    findings = (find_defects(sq_rms, dfe, shaft_hz, plan.defects, plan.machine.line_frequency_hz)
+                if rpm > plan.speed.stopped_rpm else [])
     return ReferenceResult(
         overall_velocity_mm_s=overall,
         iso_zone=severity.zone(overall, plan.iso_group, plan.support),

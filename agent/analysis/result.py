@@ -6,9 +6,16 @@ m/s^2 RMS, envelope m/s^2 RMS of the envelope spectrum.
 
 from __future__ import annotations
 
+import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
+
+
+def _finite(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
 
 
 @dataclass(frozen=True)
@@ -22,16 +29,68 @@ class Spectrum:
 
 @dataclass(frozen=True)
 class Finding:
-    """A bearing defect the envelope spectrum points to."""
+    """A bearing defect the envelope spectrum points to (the rule: :mod:`rotorwatch.analysis.findings`)."""
 
     name: str  # BPFO, BPFI, BSF or FTF
     bearing: str
-    frequency_hz: float  # expected (kinematic) frequency at the speed used
-    found_hz: float  # where the peak was found within the slip tolerance
-    strength: float  # decision measure: peak over local floor, combined over harmonics (see analysis docs)
-    harmonics_found: int
+    expected_hz: float  # kinematic frequency at the speed used (for BSF found as 2xBSF: 2 x BSF)
+    measured_hz: float  # where the line was found within the slip tolerance
+    prominence_db: float  # 20 lg of how far the defect's lines stand over the local floor (signal to noise)
+    harmonics_found: int  # the fundamental and the harmonics that stand >= 3.5 x over their floor
     series: str = ""  # the line series matched: the name, or "2xBSF" when elements strike at twice BSF
-    sidebands_found: int = 0  # sidebands (1x shaft for race defects, FTF for elements) that stand out
+    sidebands_found: int = 0  # sidebands (1x shaft for race defects, FTF for elements) >= 3.5 x their floor
+    # RMS of the defect's lines in the envelope spectrum above the local floor, m/s^2 (of the envelope):
+    # grows with the defect; comparable between updates of one point and one demodulation band
+    severity_m_s2: float = float("nan")
+
+    def as_json(self, number: Callable[[float], float | None] | None = None) -> dict[str, Any]:
+        """The finding as every JSON output writes it (the CLI, MQTT, the status page, snapshots);
+        ``number`` rounds the floats (default: as they are, NaN and infinities as None)."""
+        num = number if number is not None else _finite
+        return {
+            "name": self.name,
+            "bearing": self.bearing,
+            "series": self.series or self.name,
+            "expected_hz": num(self.expected_hz),
+            "measured_hz": num(self.measured_hz),
+            "prominence_db": num(self.prominence_db),
+            "severity_m_s2": num(self.severity_m_s2),
+            "harmonics_found": int(self.harmonics_found),
+            "sidebands_found": int(self.sidebands_found),
+        }
+
+    # Names of the first release, kept for readers of this record (not in any published JSON).
+    @property
+    def frequency_hz(self) -> float:
+        """Deprecated name of :attr:`expected_hz`."""
+        return self.expected_hz
+
+    @property
+    def found_hz(self) -> float:
+        """Deprecated name of :attr:`measured_hz`."""
+        return self.measured_hz
+
+    @property
+    def prominence(self) -> float:
+        """The prominence as a plain ratio (10 ** (prominence_db / 20))."""
+        return 10.0 ** (self.prominence_db / 20.0)
+
+    @property
+    def strength(self) -> float:
+        """Deprecated name of :attr:`prominence` (a ratio, no unit)."""
+        return self.prominence
+
+
+@dataclass(frozen=True)
+class BandReview:
+    """A searched demodulation band set against the band a point keeps (see :mod:`rotorwatch.analysis.envelope`)."""
+
+    kept_hz: tuple[float, float]
+    kept_score: float  # the search criterion's score of the kept band on this block
+    best_hz: tuple[float, float]  # the band the search would choose on this block
+    best_score: float
+    criterion: str  # cyclic | kurtosis
+    clearly_better: bool  # the search's band lies elsewhere and scores clearly higher
 
 
 @dataclass(frozen=True)
@@ -63,4 +122,9 @@ class PointResult:
     envelope: Spectrum | None = None
     envelope_kurtosis: float | None = None  # spectral kurtosis of the demodulation band (when chosen by it)
     # peak / local floor of each defect's fundamental in the squared-envelope spectrum, "BPFO:<bearing>"
+    # (the highest line in its window that can be evidence for it: not one claimed by another finding)
     defect_prominence: dict[str, float] = field(default_factory=dict)
+    # where the demodulation band came from: fixed (configured), searched (this update), kept (chosen
+    # when the point's baseline learning began, persisted with the baselines)
+    envelope_band_source: str = "fixed"
+    envelope_band_review: BandReview | None = None  # set on updates where a kept band was reviewed

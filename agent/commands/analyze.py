@@ -12,8 +12,10 @@ b2, ...; or the four multiples ``bpfo=..,bpfi=..,bsf=..,ftf=..``), ``--blades``.
 fixes the demodulation band in both modes; ``--rpm`` also overrides a configuration's speed.
 
 Output: a summary for a person, or with ``--format json`` one JSON document whose ``findings`` list holds
-``name``, ``frequency_hz``, ``strength``, ``bearing``, ``found_hz``, ``harmonics`` (empty when nothing
-stands out). A file that cannot be read, is empty, too short or sampled too slowly for the asked analysis
+``name``, ``bearing``, ``series``, ``expected_hz`` (kinematic), ``measured_hz`` (where the line was found),
+``prominence_db`` (how far its lines stand over the local floor), ``severity_m_s2`` (the RMS of its lines
+in the envelope spectrum above the floor), ``harmonics_found`` and ``sidebands_found`` (empty when nothing
+stands out); ``defect_prominence`` gives every defect's peak / floor ratio, finding or not. A file that cannot be read, is empty, too short or sampled too slowly for the asked analysis
 gives one line naming the file and the limit, and exit code 2.
 """
 
@@ -264,7 +266,7 @@ def parse_band(text: str | None) -> tuple[float, float] | None:
 
 # ------------------------------------------------------------------------------------------- report
 def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dict[str, Any]:
-    from ..analysis.labels import kinematic_lines, name_line, strongest_peaks  # noqa: PLC0415
+    from ..analysis.labels import kinematic_lines, match_line, strongest_peaks  # noqa: PLC0415
 
     units = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
     band_q = {b.name: b.quantity for b in machine.bands_for(point.id)}
@@ -276,7 +278,10 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         lines = kinematic_lines(machine, shaft_hz, float(env.freqs_hz[-1]) * 1.05, bearing_ids)
         df = float(env.freqs_hz[1] - env.freqs_hz[0])
         for hz, amp in strongest_peaks(env.freqs_hz, env.amplitude, count=8, min_hz=max(2.0, 0.25 * shaft_hz)):
-            peaks.append({"frequency_hz": round(hz, 3), "amplitude_m_s2": amp, "matches": name_line(hz, lines, df)})
+            line = match_line(hz, lines, df)
+            peaks.append({"frequency_hz": round(hz, 3), "amplitude_m_s2": amp,
+                          "matches": line.label if line else None, "bearing": line.bearing if line else None,
+                          "electrical": bool(line and line.kind == "electrical")})
     w = result.waveform
     return {
         "file": path,
@@ -299,9 +304,7 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         "envelope_band_searched": machine.analysis.envelope.band_hz is None,
         "envelope_kurtosis": result.envelope_kurtosis,
         "bands": {name: {"value": v, "unit": units[band_q[name]], "quantity": band_q[name]} for name, v in result.bands.items()},
-        "findings": [{"name": f.name, "frequency_hz": f.frequency_hz, "strength": f.strength, "bearing": f.bearing,
-                      "found_hz": f.found_hz, "harmonics": f.harmonics_found, "series": f.series,
-                      "sidebands": f.sidebands_found} for f in result.findings],
+        "findings": [f.as_json() for f in result.findings],
         "defect_prominence": dict(result.defect_prominence),
         "envelope_peaks": peaks,
     }
@@ -331,15 +334,24 @@ def format_text(r: dict[str, Any]) -> str:
         lines.append("  findings (strongest first)")
         for f in r["findings"]:
             series = f" as {f['series']}" if f["series"] and f["series"] != f["name"] else ""
-            lines.append(f"    {f['name']:<5} bearing {f['bearing']}: expected {f['frequency_hz']:.2f} Hz, found "
-                         f"{f['found_hz']:.2f} Hz{series}, strength {f['strength']:.1f} "
-                         f"({f['harmonics']} harmonic{'s' if f['harmonics'] != 1 else ''}, {f['sidebands']} sideband{'s' if f['sidebands'] != 1 else ''})")
+            sev = f"{f['severity_m_s2']:.3g} m/s^2" if f["severity_m_s2"] is not None else "-"
+            h, s = f["harmonics_found"], f["sidebands_found"]
+            lines.append(f"    {f['name']:<5} bearing {f['bearing']}: severity {sev} (envelope), line at "
+                         f"{f['measured_hz']:.2f} Hz{series} (expected {f['expected_hz']:.2f} Hz), "
+                         f"{f['prominence_db']:.1f} dB over the local floor "
+                         f"({h} harmonic{'s' if h != 1 else ''}, {s} sideband{'s' if s != 1 else ''})")
     else:
         lines.append("  findings          none: no bearing defect line stands out clearly")
     if r["envelope_peaks"]:
         lines.append("  strongest envelope peaks")
+        several = len({p["bearing"] for p in r["envelope_peaks"] if p["bearing"]}) > 1
         for p in r["envelope_peaks"]:
-            lines.append(f"    {p['frequency_hz']:8.2f} Hz  {p['amplitude_m_s2']:.4g} m/s^2  {p['matches'] or '-'}")
+            name = p["matches"] or "-"
+            if p["bearing"] and several:
+                name += f", bearing {p['bearing']}"
+            if p["electrical"]:
+                name += " (electrical)"
+            lines.append(f"    {p['frequency_hz']:8.2f} Hz  {p['amplitude_m_s2']:.4g} m/s^2  {name}")
     return "\n".join(lines)
 
 

@@ -111,8 +111,13 @@ def _show(store: SnapshotStore, args: argparse.Namespace) -> int:
                          f" warning {_fmt(v.get('warning_level'))}  alarm {_fmt(v.get('alarm_level'))}"
                          f"  baseline {_fmt(v.get('baseline'))}")
         for f in e.get("findings", []):
-            lines.append(f"  finding {f.get('name')} ({f.get('bearing')}) at {_fmt(f.get('found_hz'))} Hz, "
-                         f"strength {_fmt(f.get('strength'))}, {f.get('harmonics_found')} harmonics")
+            if "measured_hz" in f:
+                lines.append(f"  finding {f.get('name')} ({f.get('bearing')}) at {_fmt(f.get('measured_hz'))} Hz "
+                             f"(expected {_fmt(f.get('expected_hz'))}), severity {_fmt(f.get('severity_m_s2'))} m/s^2, "
+                             f"prominence {_fmt(f.get('prominence_db'))} dB, {f.get('harmonics_found')} harmonics")
+            else:  # snapshots written before the findings' fields were renamed
+                lines.append(f"  finding {f.get('name')} ({f.get('bearing')}) at {_fmt(f.get('found_hz'))} Hz, "
+                             f"strength {_fmt(f.get('strength'))}, {f.get('harmonics_found')} harmonics")
     markers = [m for m in doc.get("markers", []) if m.get("harmonic", 1) == 1]
     if markers:
         lines.append("")

@@ -190,15 +190,22 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
             "mean_m_s2": num(w.mean_m_s2),
         },
         "envelope_band_hz": [num(r.envelope_band_hz[0]), num(r.envelope_band_hz[1])],
-        "findings": [
-            {"name": f.name, "bearing": f.bearing, "frequency_hz": num(f.frequency_hz),
-             "found_hz": num(f.found_hz), "strength": num(f.strength), "harmonics_found": f.harmonics_found}
-            for f in r.findings
-        ],
+        "envelope_band_source": r.envelope_band_source,
+        "envelope_band_review": band_review_payload(r.envelope_band_review),
+        "findings": [f.as_json(num) for f in r.findings],
         "sample_rate_hz": num(r.fs_hz),
         "n_samples": int(r.n_samples),
         "data_quality": data_quality_payload(point, quality),
     }
+
+
+def band_review_payload(review: Any) -> dict[str, Any] | None:
+    """A kept demodulation band set against this update's search (None when no review ran)."""
+    if review is None:
+        return None
+    return {"kept_hz": [num(review.kept_hz[0]), num(review.kept_hz[1])], "kept_score": num(review.kept_score),
+            "best_hz": [num(review.best_hz[0]), num(review.best_hz[1])], "best_score": num(review.best_score),
+            "criterion": review.criterion, "clearly_better": bool(review.clearly_better)}
 
 
 def event_payload(event: AlarmEvent, agent_id: str) -> dict[str, Any]:

@@ -96,6 +96,7 @@ def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[
     Shaft orders 1x..3x; blade pass and 2x blade pass when the machine has blades; BPFO, BPFI, BSF and
     FTF of every bearing with ``harmonics`` harmonics (kinematics in :mod:`rotorwatch.kinematics`).
     """
+    from ..analysis.labels import harmonic
     from ..kinematics import bearing_multiples
 
     out: list[dict[str, Any]] = []
@@ -109,7 +110,7 @@ def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[
     for b in machine.bearings:
         for defect, order in bearing_multiples(b).as_dict().items():
             for k in range(1, harmonics + 1):
-                label = defect.upper() if k == 1 else f"{k}x{defect.upper()}"
+                label = harmonic(k, defect.upper())
                 out.append({"name": label, "family": defect, "bearing": b.id, "harmonic": k,
                             "order": k * order, "frequency_hz": k * order * shaft_hz})
     return out
@@ -217,7 +218,7 @@ class SnapshotStore:
                     "fs_hz": res.fs_hz, "n_samples": res.n_samples, "rpm": res.rpm, "rpm_source": res.rpm_source,
                     "overall_velocity_mm_s": res.overall_velocity_mm_s, "iso_zone": res.iso_zone,
                     "band_values": dict(res.bands), "waveform": asdict(res.waveform),
-                    "envelope_band_hz": list(res.envelope_band_hz), "findings": [asdict(f) for f in res.findings],
+                    "envelope_band_hz": list(res.envelope_band_hz), "findings": [f.as_json() for f in res.findings],
                 })
                 wave = waveforms.get(pid)
                 if wave is not None:

@@ -20,7 +20,7 @@ from typing import Iterable, Sequence
 import numpy as np
 
 from .. import kinematics
-from ..analysis import severity
+from ..analysis import labels, severity
 from ..analysis.result import PointResult, Spectrum
 from ..settings.models import Machine
 
@@ -138,7 +138,7 @@ def defect_markers(machine: Machine, point_id: str, rpm: float | None) -> list[d
                 "family": family,
                 "bearing": bearing,
                 "k": k,
-                "label": (f"{k}x" if family == "shaft" else (label if k == 1 else f"{k}\u00d7{label}")),
+                "label": labels.harmonic(k, "1x" if family == "shaft" else label),
                 "freq_hz": sig(k * base_hz, 6),
             })
 
@@ -241,17 +241,8 @@ def waveform_stats(result: PointResult) -> dict:
 
 
 def findings_view(result: PointResult) -> list[dict]:
-    return [
-        {
-            "name": f.name,
-            "bearing": f.bearing,
-            "frequency_hz": sig(f.frequency_hz, 6),
-            "found_hz": sig(f.found_hz, 6),
-            "strength": sig(f.strength),
-            "harmonics_found": f.harmonics_found,
-        }
-        for f in result.findings
-    ]
+    return [{**f.as_json(sig), "expected_hz": sig(f.expected_hz, 6), "measured_hz": sig(f.measured_hz, 6)}
+            for f in result.findings]
 
 
 def event_view(event) -> dict:

@@ -85,9 +85,13 @@ def test_ball_fault_reads_abnormal_next_to_the_normal_baseline(extra, shared_dat
     # normal record, with the rig configuration's searched band and with the README's 2-5 kHz band.
     ball = next(p for p in FILES if _label(p)[0] == "ball")
     normal = next(p for p in FILES if _label(p)[0] == "normal")
+    # A line claimed by a finding's family is no evidence for another defect (findings.py rule 8): a
+    # window whose only lines a finding claimed reads 0, and is left out of the comparison.
     b, n = _configured(capsys, ball, *extra), _configured(capsys, normal, *extra)
-    print("ball", b["defect_prominence"], "normal", n["defect_prominence"])
-    assert min(b["defect_prominence"].values()) > max(n["defect_prominence"].values())
+    print("ball", b["defect_prominence"], [f["name"] for f in b["findings"]], "normal", n["defect_prominence"])
+    emptied = [k for k, v in b["defect_prominence"].items() if v == 0.0]
+    assert not emptied or b["findings"], emptied
+    assert min(v for v in b["defect_prominence"].values() if v > 0) > max(n["defect_prominence"].values())
 
 
 def test_check_table_matches_the_dataset_readme(shared_datasets, capsys):

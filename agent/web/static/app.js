@@ -585,8 +585,9 @@
     $("#values tbody").replaceChildren(...rows);
     const fnd = (pd.findings || []).map((f) => el("div", { class: "finding" }, [
       el("b", { text: f.name + " on " + f.bearing + ": " }),
-      document.createTextNode("peak at " + fmt(f.found_hz, 4) + " Hz (expected " + fmt(f.frequency_hz, 4) + " Hz), " +
-        f.harmonics_found + " harmonic(s), strength " + fmt(f.strength)),
+      document.createTextNode("severity " + fmt(f.severity_m_s2) + " " + unitText("m/s^2") + " (envelope), line at " +
+        fmt(f.measured_hz, 4) + " Hz (expected " + fmt(f.expected_hz, 4) + " Hz), " + f.harmonics_found +
+        " harmonic(s), " + fmt(f.prominence_db, 3) + " dB over the local floor"),
     ]));
     $("#findings").replaceChildren(...fnd);
   }

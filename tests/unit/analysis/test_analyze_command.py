@@ -41,9 +41,13 @@ def test_float_wav_in_g_finds_the_outer_race(tmp_path, capsys):
     doc = json.loads(out)
     assert doc["fs_hz"] == fs and doc["rpm_source"] == "fixed"
     assert doc["findings"][0]["name"] == "BPFO" and doc["findings"][0]["bearing"] == "b1"
-    assert doc["findings"][0]["found_hz"] == pytest.approx(rate, abs=0.2)
-    assert set(doc["findings"][0]) >= {"name", "frequency_hz", "strength", "bearing", "found_hz", "harmonics"}
-    assert doc["envelope_peaks"][0]["matches"] == "BPFO (b1)"
+    first = doc["findings"][0]
+    assert first["measured_hz"] == pytest.approx(rate, abs=0.2)
+    assert first["expected_hz"] == pytest.approx(BPFO_ORDER * float(f"{rpm:.3f}") / 60, rel=1e-9)
+    assert set(first) == {"name", "bearing", "series", "expected_hz", "measured_hz", "prominence_db", "severity_m_s2",
+                          "harmonics_found", "sidebands_found"}
+    assert first["prominence_db"] > 12.0 and first["severity_m_s2"] > 0
+    assert doc["envelope_peaks"][0]["matches"] == "BPFO" and doc["envelope_peaks"][0]["bearing"] == "b1"
 
 
 def test_unit_option_scales_wav_samples(tmp_path, capsys):

@@ -90,7 +90,7 @@ def test_impact_train_rate_shows_in_the_envelope_spectrum():
     f_peak = env.freqs_hz[above][np.argmax(env.amplitude[above])]
     assert f_peak == pytest.approx(rate, abs=env.freqs_hz[1])
     assert r.findings and r.findings[0].name == "BPFO"
-    assert r.findings[0].found_hz == pytest.approx(rate, abs=0.1)
+    assert r.findings[0].measured_hz == pytest.approx(rate, abs=0.1)
     assert r.findings[0].harmonics_found >= 2
 
 
@@ -151,7 +151,7 @@ def test_fast_analysis_agrees_with_the_scipy_reference():
     assert fast.bands["or"] == pytest.approx(ref.bands["or"], rel=0.05)  # ideal vs Butterworth band-pass
     assert fast.waveform.kurtosis == pytest.approx(ref.waveform.kurtosis, rel=1e-6)  # float32 samples
     assert [f.name for f in fast.findings] == [f.name for f in ref.findings] == ["BPFO"]
-    assert fast.findings[0].found_hz == pytest.approx(ref.findings[0].found_hz, abs=0.1)
+    assert fast.findings[0].measured_hz == pytest.approx(ref.findings[0].measured_hz, abs=0.1)
 
 
 def test_block_shorter_than_a_segment_names_the_limit():

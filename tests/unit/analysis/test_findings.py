@@ -48,8 +48,8 @@ def test_simulated_race_faults_are_named(rpm, defect, seed, slip):
     assert r.findings, r.defect_prominence
     first = r.findings[0]
     assert first.name == defect and first.bearing == "b1"
-    assert first.found_hz == pytest.approx(rate, rel=0.003)
-    assert first.frequency_hz == pytest.approx(order * shaft, rel=1e-9)
+    assert first.measured_hz == pytest.approx(rate, rel=0.003)
+    assert first.expected_hz == pytest.approx(order * shaft, rel=1e-9)
     assert [f.name for f in r.findings].count(defect) == 1
 
 
@@ -88,7 +88,7 @@ def test_spalled_element_at_twice_bsf_is_named_bsf():
     x = np.convolve(pulses, np.exp(-0.05 * 2 * np.pi * 4000 * t) * np.sin(2 * np.pi * 4000 * t))[:n]
     r = PointAnalyzer(m, m.points[0], FS).analyze(x + rng.normal(0, 0.6, n))
     assert r.findings and r.findings[0].name == "BSF" and r.findings[0].series == "2xBSF"
-    assert r.findings[0].found_hz == pytest.approx(rate, rel=0.003)
+    assert r.findings[0].measured_hz == pytest.approx(rate, rel=0.003)
 
 
 def _two_bearing_machine(second: dict, rpm: float):

@@ -15,7 +15,7 @@ def point_result(machine: str, point: str, t: float = T0, overall_mm_s: float = 
     w = Waveform(peak_m_s2=3.0, rms_m_s2=1.0, crest_factor=3.0, kurtosis=3.1, mean_m_s2=0.01)
     return PointResult(machine, point, t, 51200.0, 204800, 1482.0, "fixed", overall_mm_s, zone,
                        {"shaft-1x": 0.9, "bearing-hf": 0.5, "de-outer-race": 0.02}, w, (2000.0, 7000.0),
-                       [Finding("BPFO", "fan-de", 100.0, 100.5, 4.2, 3)])
+                       [Finding("BPFO", "fan-de", expected_hz=85.45, measured_hz=85.6, prominence_db=21.5, harmonics_found=3, severity_m_s2=0.031)])
 
 
 def machine_update(machine: str = "ef3", t: float = T0, state: str = "warning",

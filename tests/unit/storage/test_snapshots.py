@@ -116,7 +116,7 @@ def test_sidecar_contents(tmp_path):
     assert markers["BPFI"] == pytest.approx(162.19, abs=0.01)
     assert markers["FTF"] == pytest.approx(11.93, abs=0.01)
     assert markers["BSF"] == pytest.approx(70.58, abs=0.01)
-    assert markers["2xBPFO"] == pytest.approx(2 * 107.36, abs=0.02)
+    assert markers["2x BPFO"] == pytest.approx(2 * 107.36, abs=0.02)
     assert markers["1x"] == pytest.approx(29.95) and markers["2x"] == pytest.approx(59.9)
     assert markers["blade pass"] == pytest.approx(7 * 29.95)  # blade count x shaft (common practice)
 

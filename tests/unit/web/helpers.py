@@ -49,7 +49,7 @@ def point_result(config, point_id: str, time_s: float, fault: float, rpm: float 
         bands.update({"de-outer-race": 0.01 + 0.4 * fault, "de-inner-race": 0.01, "de-ball": 0.008})
     else:
         bands.update({"nde-outer-race": 0.01})
-    findings = [Finding("BPFO", bearing, bpfo, bpfo * 1.002, 8.0 * fault, 4)] if fault > 0.2 else []
+    findings = [Finding("BPFO", bearing, expected_hz=bpfo, measured_hz=bpfo * 1.002, prominence_db=18.0 + 6.0 * fault, harmonics_found=4, severity_m_s2=0.05 * fault)] if fault > 0.2 else []
     return PointResult(
         machine_id=machine.id, point_id=point_id, time_s=time_s, fs_hz=51200.0, n_samples=204800,
         rpm=rpm, rpm_source="fixed", overall_velocity_mm_s=overall,
