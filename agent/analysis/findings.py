@@ -232,13 +232,15 @@ def _floor_half_width(f0: float, df: float) -> float:
 
 
 def _series(reader: SesReader, d: DefectPlan, name: str, series: str, f0: float,
-            modulation_hz: float | None, allowed: Allowed) -> Candidate | None:
+            modulation_hz: float | None, allowed: Allowed, fundamental_only: bool = False) -> Candidate | None:
     if not reader.covers(f0 * (1 + d.tolerance)):
         return None
     floor_hw = _floor_half_width(f0, reader.df)
     fund = reader.peak(f0 * (1 - d.tolerance), f0 * (1 + d.tolerance), floor_hw, allowed)
     if fund is None:
         return None
+    if fundamental_only:
+        return Candidate(name, d.bearing_id, series, f0, fund, (), ())
     f1 = fund.found_hz
     harmonics = []
     for h in range(2, d.harmonics + 1):
@@ -264,20 +266,22 @@ def _defect_series(d: DefectPlan, shaft_hz: float, ftf_of: dict[str, float]) -> 
 
 
 def candidates(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[DefectPlan, ...],
-               evidence: Evidence | None = None, skip: frozenset[str] | set[str] = frozenset()) -> list[Candidate]:
+               evidence: Evidence | None = None, skip: frozenset[str] | set[str] = frozenset(),
+               only: frozenset[str] | set[str] | None = None, fundamental_only: bool = False) -> list[Candidate]:
     """Every defect series read from the SES (BSF as two series: BSF and 2xBSF), each among the lines
-    that can be evidence for it; defects whose key is in ``skip`` are left out."""
+    that can be evidence for it; defects whose key is in ``skip`` are left out, and with ``only`` all
+    but those."""
     reader = SesReader(ses, df_hz)
     evidence = evidence if evidence is not None else Evidence(shaft_hz, df_hz)
     out = []
     ftf_of = {d.bearing_id: d.order for d in defects if d.name == "ftf"}
     for d in defects:
         key = f"{d.name.upper()}:{d.bearing_id}"
-        if key in skip:
+        if key in skip or (only is not None and key not in only):
             continue
         allowed = evidence.allowed_for(key)
         for series, f0, mod in _defect_series(d, shaft_hz, ftf_of):
-            c = _series(reader, d, d.name.upper(), series, f0, mod, allowed)
+            c = _series(reader, d, d.name.upper(), series, f0, mod, allowed, fundamental_only)
             if c is not None:
                 out.append(c)
     return out
@@ -331,15 +335,23 @@ def decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[Defect
 
     ``evidence`` (updated in place with the accepted findings' claims) decides which lines count.
     """
-    evidence = evidence if evidence is not None else Evidence(shaft_hz, df_hz)
+    return _decide(ses, df_hz, shaft_hz, defects, evidence if evidence is not None else Evidence(shaft_hz, df_hz),
+                   envelope_psd)[0]
+
+
+def _decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[DefectPlan, ...], evidence: Evidence,
+            envelope_psd: np.ndarray | None) -> tuple[list[Finding], list[Candidate]]:
+    """The findings, and the candidates of the defects that are not findings as read after the last
+    claim (their prominences)."""
     top_hz = ses.size * df_hz
     settled: set[str] = set()
     findings: list[Finding] = []
     while True:
-        verdicts = [judge(c) for c in candidates(ses, df_hz, shaft_hz, defects, evidence, settled)]
+        cands = candidates(ses, df_hz, shaft_hz, defects, evidence, settled)
+        verdicts = [judge(c) for c in cands]
         passing = [v for v in verdicts if v.passes]
         if not passing:
-            break
+            return findings, cands
         best = max(passing, key=lambda v: v.prominence)
         # Defects of different bearings (or kinds) may claim the same line: the one whose kinematic
         # frequency the line matches most closely takes it (ties: the earlier, i.e. the point's bearing).
@@ -360,7 +372,6 @@ def decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[Defect
         ))
         settled.add(c.key)  # the other series of the same defect (BSF / 2xBSF) is settled too
         evidence.claim(c, defects, top_hz)
-    return findings
 
 
 def assess(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[DefectPlan, ...], *,
@@ -375,10 +386,14 @@ def assess(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[Defect
         return [], {}
     ses = np.asarray(ses, dtype=float)
     evidence = Evidence(shaft_hz, df_hz, line_frequency_hz)
-    findings = decide(ses, df_hz, shaft_hz, defects, evidence=evidence, envelope_psd=envelope_psd)
+    findings, rest = _decide(ses, df_hz, shaft_hz, defects, evidence, envelope_psd)
+    # the findings' own fundamentals, read again after every claim (a later finding may claim them)
+    found = {f"{f.name}:{f.bearing}" for f in findings}
+    if found:
+        rest = rest + candidates(ses, df_hz, shaft_hz, defects, evidence, only=found, fundamental_only=True)
     # 0.0: no line at all (no local maximum that can be evidence) within the defect's window
     prominence: dict[str, float] = {f"{d.name.upper()}:{d.bearing_id}": 0.0 for d in defects}
-    for c in candidates(ses, df_hz, shaft_hz, defects, evidence):
+    for c in rest:
         prominence[c.key] = max(prominence.get(c.key, 0.0), float(c.fundamental.ratio))
     return findings, prominence
 
