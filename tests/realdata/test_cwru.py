@@ -64,12 +64,12 @@ def test_first_finding_matches_the_label(path, mode, shared_datasets, capsys):
     doc = _quick(capsys, path) if mode == "quick" else _configured(capsys, path)
     names = [f["name"] for f in doc["findings"]]
     print(f"{path.name} [{mode}] rpm {doc['rpm']:.1f} ({doc['rpm_source']}), band {doc['envelope_band_hz']}, "
-          f"findings {[(f['name'], round(f['strength'], 1)) for f in doc['findings']]}")
+          f"findings {[(f['name'], round(f['prominence_db'], 1), round(f['severity_m_s2'], 3)) for f in doc['findings']]}")
     if fault in EXPECTED_FIRST:
         assert names and names[0] == EXPECTED_FIRST[fault], names
         first = doc["findings"][0]
-        assert first["found_hz"] == pytest.approx(first["frequency_hz"], rel=0.03)  # slip + speed (references.md s.3)
-        assert first["harmonics"] >= 2
+        assert first["measured_hz"] == pytest.approx(first["expected_hz"], rel=0.03)  # slip + speed (references.md s.3)
+        assert first["harmonics_found"] >= 2
     elif fault == "normal":
         assert "BPFO" not in names and "BPFI" not in names, names
     if mode == "config":
@@ -106,3 +106,47 @@ def test_check_table_matches_the_dataset_readme(shared_datasets, capsys):
         row = re.search(rf"^\s+{name}\s+([0-9.]+)\s+([0-9.]+)\s*$", out, re.M)
         assert row, name
         assert float(row.group(1)) == pytest.approx(value, abs=5e-4)  # tolerance: references.md section 2
+
+
+def _by_fault_and_size(fault: str, size: str) -> Path:
+    return next(p for p in FILES if _label(p)[0] == fault and f"_{size}_" in p.name and p.name.endswith("_12k.npz"))
+
+
+@pytest.mark.parametrize("band", ["2000,5000", "1000,3000"])
+def test_severity_and_prominence_on_the_0007_and_0021_recordings(band, shared_datasets, capsys):
+    # Pairs of the dataset (README): inner race 0.007 in (105) and 0.021 in (209), outer race at 6:00 0.007 in
+    # (130) and 0.021 in (234), all at 12 kHz and 0 hp, each analysed in one fixed demodulation band.
+    # What the data shows in the 2-5 kHz and 1-3 kHz bands (printed): the prominence (signal to noise) of
+    # the race line falls from 0.007 in to 0.021 in, for both faults, so it is no measure of defect size;
+    # the severity (envelope line level) of the inner-race fault grows. The outer-race severity does not:
+    # it falls in 2-5 kHz (5.6 -> 4.2 m/s^2) and stays level in 1-3 kHz (2.45 -> 2.43). In 500-2500 Hz it
+    # is the other way round (outer race 0.18 -> 0.62, inner race 0.60 -> 0.29 m/s^2). The seeded faults
+    # sit in different bearings mounted one after the other, so these records do not show a severity
+    # that grows with the fault in every band, and the test claims only what they show.
+    rows = {}
+    for fault, name in (("inner_race", "BPFI"), ("outer_race", "BPFO")):
+        for size in ("007", "021"):
+            doc = _quick(capsys, _by_fault_and_size(fault, size), "--envelope-band", band)
+            assert doc["findings"] and doc["findings"][0]["name"] == name, doc["findings"]
+            rows[fault, size] = doc["findings"][0]
+    print(f"band {band} Hz: " + "; ".join(f"{fault} {size}: severity {f['severity_m_s2']:.3g} m/s^2, prominence "
+                                          f"{f['prominence_db']:.1f} dB" for (fault, size), f in rows.items()))
+    assert rows["outer_race", "021"]["prominence_db"] < rows["outer_race", "007"]["prominence_db"] - 6.0
+    assert rows["inner_race", "021"]["prominence_db"] < rows["inner_race", "007"]["prominence_db"] - 3.0
+    assert rows["inner_race", "021"]["severity_m_s2"] > 1.3 * rows["inner_race", "007"]["severity_m_s2"]
+
+
+@pytest.mark.parametrize("path", [p for p in FILES if _label(p)[0] in EXPECTED_FIRST], ids=lambda p: p.stem)
+def test_bsf_prominence_is_not_a_line_of_the_race_fault(path, shared_datasets, capsys):
+    # On outer-race records the BPFO + 1x line falls inside the 2 x BSF window (3.5848 + 1 = 4.5848 vs
+    # 4.7135 x shaft, within 3 %), on inner-race records BPFI - 3x inside the BSF window (2.4152 vs
+    # 2.3566, published multiples in the dataset README). Those lines belong to the race fault's family
+    # and must not be reported as the BSF prominence: without them the BSF prominence is that of some
+    # unrelated line, below a tenth of the race line's own (the records have no element fault).
+    fault, _ = _label(path)
+    seen = []
+    for extra in ((), ("--envelope-band", "2000,5000")):
+        doc = _configured(capsys, path, *extra)
+        seen.append((extra, doc["defect_prominence"][f"{EXPECTED_FIRST[fault]}:de"], doc["defect_prominence"]["BSF:de"]))
+    print(path.name, [(e, round(race, 1), round(bsf, 1)) for e, race, bsf in seen])
+    assert all(bsf < 0.1 * race for _, race, bsf in seen), seen
