@@ -133,7 +133,7 @@ def _segment_length(fs_hz: float, fmax_hz: float, lines: int) -> int:
     return 1 << max(need - 1, 1).bit_length()
 
 
-def _defects(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
+def defect_plans(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
     """Defects of every bearing of the machine, the point's own bearing first.
 
     A fault travels through the housings: a sensor on one bearing also sees its neighbour's defects, and
@@ -238,7 +238,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     overall_bins = slice(int(np.searchsorted(freqs, ov.low_hz, side="left")),
                          int(np.searchsorted(freqs, ov.high_hz, side="right")))
 
-    defects = _defects(machine, point)
+    defects = defect_plans(machine, point)
     env_cfg = an.envelope
     env_fmax = env_cfg.fmax_hz if env_cfg.fmax_hz is not None else _envelope_span_hz(machine, point, defects, fast_hz)
     if env_cfg.band_hz is not None and env_cfg.band_hz[1] >= nyquist:

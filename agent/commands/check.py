@@ -5,8 +5,10 @@ analysis plan of every point at the acquisition's sampling rate (bands, spans an
 must fit below Nyquist). Nothing is opened or probed: no devices, no network.
 
 For a valid file it prints, per machine, the kinematic frequencies at the configured (or nominal) speed in
-orders and Hz: 1x, 2x, blade pass, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing; then per point the
-spectrum and envelope set-up and each band's edges in Hz. Exit 0 when valid, 2 otherwise.
+orders and Hz: 1x, 2x, blade pass, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing, with a warning where two
+defects of one bearing search overlapping lines or a defect sits on a 2xLF line
+(:mod:`rotorwatch.analysis.overlaps`); then per point the spectrum and envelope set-up and each band's
+edges in Hz. Exit 0 when valid, 2 otherwise.
 """
 
 from __future__ import annotations
@@ -60,6 +62,14 @@ def _speed_line(m: Machine, rpm: float, given: bool) -> str:
     return f"speed {rpm:g} r/min ({where}), shaft frequency {rpm / 60.0:.3f} Hz"
 
 
+def _bearing_warnings(m: Machine, rpm: float, out: TextIO) -> None:
+    """Defect lines of one bearing that stand in each other's way, or on 2xLF lines (analysis/overlaps.py)."""
+    from ..analysis.overlaps import defect_overlaps  # noqa: PLC0415
+
+    for o in defect_overlaps(m, rpm):
+        out.write(f"  warning: {o.text()}\n")
+
+
 def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool = False) -> None:
     from ..analysis.plan import build_plan  # noqa: PLC0415
     from ..analysis.severity import boundaries  # noqa: PLC0415
@@ -83,6 +93,7 @@ def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool
         for name, order in (("BPFO", mult.bpfo), ("BPFI", mult.bpfi), ("BSF", mult.bsf),
                             ("2xBSF", 2 * mult.bsf), ("FTF", mult.ftf)):
             out.write(f"    {name:<20}{order:>10.5f}{order * f:>12.2f}\n")
+    _bearing_warnings(m, rpm, out)
     for p in m.points:
         plan = build_plan(m, p, fs_hz)
         env = plan.envelope
