@@ -14,6 +14,12 @@ Baselines live in ``<state_dir>/baselines/<machine_id>.json``, written atomicall
 the definition of its value (the band placement and quantity, the analysis settings, the sensor, the
 bearing geometry or blade count it depends on, but not its alarm levels): a changed definition re-learns,
 a changed level does not. An unreadable file is moved aside (``.corrupt-<time>``), never deleted.
+
+The same file keeps, per point whose demodulation band is searched, the band chosen on the first update
+of its learning (``envelope_bands``): the analysis then demodulates in that band on every update instead
+of searching again, so envelope values stay comparable from update to update, whatever order or
+process analyses them. The kept band is part of the envelope values' definition; relearning a point (all
+its values) forgets it and the next update searches again.
 """
 
 from __future__ import annotations
@@ -68,7 +74,8 @@ def definition(machine: Machine, point_id: str, value_name: str) -> dict[str, An
     point = machine.point(point_id)
     out: dict[str, Any] = {
         "value": value_name,
-        "analysis": machine.analysis.model_dump(mode="json"),
+        # how often a kept envelope band is reviewed changes no number
+        "analysis": machine.analysis.model_dump(mode="json", exclude={"envelope": {"band_review_hours"}}),
         "sensor": point.sensor.model_dump(mode="json", exclude={"direction"}),
     }
     if value_name == OVERALL:
@@ -83,9 +90,35 @@ def definition(machine: Machine, point_id: str, value_name: str) -> dict[str, An
     return out
 
 
-def definition_hash(machine: Machine, point_id: str, value_name: str) -> str:
-    text = json.dumps(definition(machine, point_id, value_name), sort_keys=True, separators=(",", ":"))
+def definition_hash(machine: Machine, point_id: str, value_name: str,
+                    envelope_band_hz: tuple[float, float] | None = None) -> str:
+    """Hash of a value's definition; an envelope value on a searched band also hashes the band the point
+    keeps (``envelope_band_hz``), so a band chosen anew re-learns the envelope values."""
+    doc = definition(machine, point_id, value_name)
+    if envelope_band_hz is not None:
+        doc["kept_envelope_band_hz"] = [round(float(x), 3) for x in envelope_band_hz]
+    text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def band_definition_hash(machine: Machine, point_id: str) -> str:
+    """What a searched envelope band's choice depends on: the envelope settings and the point's sensor."""
+    point = machine.point(point_id)
+    doc = {"envelope": machine.analysis.envelope.model_dump(mode="json", exclude={"band_review_hours"}),
+           "sensor": point.sensor.model_dump(mode="json", exclude={"direction"})}
+    text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+@dataclass
+class KeptBand:
+    """The demodulation band a point keeps when its band is searched (persisted with the baselines)."""
+
+    definition_hash: str
+    band_hz: list[float]
+    chosen_at_s: float
+    criterion: str
+    score: float | None = None  # the search criterion's score of the band when it was chosen
 
 
 def robust_stats(samples: list[float] | np.ndarray) -> tuple[float, float]:
@@ -117,6 +150,7 @@ class BaselineStore:
         self.max_samples = max_samples
         self.checkpoint_s = checkpoint_s
         self.entries: dict[str, Entry] = {}
+        self.bands: dict[str, KeptBand] = {}  # point id -> kept envelope band (searched bands only)
         self._hashes: dict[str, str] = {}
         self._dirty = False
         self._urgent = False  # a baseline was learned or reset: save at the next checkpoint
@@ -139,8 +173,38 @@ class BaselineStore:
     def _hash(self, point_id: str, value_name: str) -> str:
         k = self.key(point_id, value_name)
         if k not in self._hashes:
-            self._hashes[k] = definition_hash(self.machine, point_id, value_name)
+            band = self.envelope_band(point_id) if self._on_kept_band(value_name) else None
+            self._hashes[k] = definition_hash(self.machine, point_id, value_name, band)
         return self._hashes[k]
+
+    def _on_kept_band(self, value_name: str) -> bool:
+        if self.machine.analysis.envelope.band_hz is not None:
+            return False
+        return any(b.name == value_name and b.quantity == "envelope" for b in self.machine.bands)
+
+    # ------------------------------------------------------------------------------- envelope band
+    def envelope_band(self, point_id: str) -> tuple[float, float] | None:
+        """The searched demodulation band ``point_id`` keeps, or None (not chosen yet, or chosen under
+        other envelope settings or another sensor)."""
+        kept = self.bands.get(point_id)
+        if kept is None or kept.definition_hash != band_definition_hash(self.machine, point_id):
+            return None
+        return (float(kept.band_hz[0]), float(kept.band_hz[1]))
+
+    def keep_envelope_band(self, point_id: str, band_hz: tuple[float, float], time_s: float, criterion: str,
+                           score: float | None = None) -> None:
+        """Keep ``band_hz`` as the point's demodulation band (saved at the next checkpoint)."""
+        self.bands[point_id] = KeptBand(band_definition_hash(self.machine, point_id),
+                                        [float(band_hz[0]), float(band_hz[1])], float(time_s), criterion,
+                                        None if score is None or not math.isfinite(score) else float(score))
+        self._forget_hashes(point_id)
+        self._dirty = self._urgent = True
+        log.info("envelope band kept machine=%s point=%s band=%.0f-%.0f Hz criterion=%s",
+                 self.machine.id, point_id, band_hz[0], band_hz[1], criterion)
+
+    def _forget_hashes(self, point_id: str) -> None:
+        for k in [k for k in self._hashes if k.startswith(f"{point_id}/")]:
+            del self._hashes[k]
 
     def _entry(self, point_id: str, value_name: str) -> Entry:
         k = self.key(point_id, value_name)
@@ -211,6 +275,9 @@ class BaselineStore:
         for p in self.machine.points:
             if point_id is not None and p.id != point_id:
                 continue
+            if value_name is None and self.bands.pop(p.id, None) is not None:
+                self._forget_hashes(p.id)  # the band is searched again on the point's next update
+                log.info("envelope band forgotten machine=%s point=%s", self.machine.id, p.id)
             names = [OVERALL] + [b.name for b in self.machine.bands_for(p.id)]
             for name in names:
                 if value_name is not None and name != value_name:
@@ -244,6 +311,7 @@ class BaselineStore:
             "machine_id": self.machine.id,
             "saved_unix_s": time.time(),
             "entries": {k: asdict(e) for k, e in sorted(self.entries.items())},
+            "envelope_bands": {k: asdict(b) for k, b in sorted(self.bands.items())},
         }
         tmp = None
         try:
@@ -273,6 +341,7 @@ class BaselineStore:
             if not isinstance(doc, dict) or doc.get("format") != FORMAT:
                 raise ValueError(f"format {doc.get('format') if isinstance(doc, dict) else None!r}, expected {FORMAT}")
             entries = {str(k): Entry(**v) for k, v in doc.get("entries", {}).items()}
+            bands = {str(k): KeptBand(**v) for k, v in doc.get("envelope_bands", {}).items()}
         except (OSError, ValueError, TypeError) as e:
             aside = self.path.with_name(f"{self.path.name}.corrupt-{int(time.time())}")
             log.warning("baselines unreadable, moved aside path=%s to=%s error=%s", self.path, aside, e)
@@ -282,5 +351,7 @@ class BaselineStore:
                 pass
             return
         self.entries = entries
+        self.bands = bands
+        self._hashes.clear()
         learned = sum(1 for e in entries.values() if e.status == "learned")
         log.info("baselines loaded machine=%s path=%s learned=%d of %d", self.machine.id, self.path, learned, len(entries))

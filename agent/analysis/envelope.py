@@ -233,7 +233,7 @@ class EnvelopeKernel:
             raise ValueError(f"criterion {criterion!r}: choose one of {', '.join(CRITERIA)}")
         df = bs.df_hz
         k_lo = max(int(round(band_hz[0] / df)), 1)
-        k_w = min(int(round((band_hz[1] - band_hz[0]) / df)), bs.spec.size - k_lo)
+        k_w = min(int(round(band_hz[1] / df)) + 1, bs.spec.size) - k_lo  # the lines lo..hi, both included
         if k_w < 8:
             raise InputError(f"envelope band {band_hz[0]:g}..{band_hz[1]:g} Hz holds fewer than 8 lines at this block length")
         score, _ = self._scores(bs, np.array([k_lo]), k_w, shaft_hz, criterion)
@@ -283,10 +283,14 @@ class EnvelopeKernel:
                 f"{plan.auto_min_hz:g} Hz and {plan.auto_max_hz:g} Hz"
             )
         score, sk, k_lo, k_w = best
-        return BandChoice((k_lo * df, (k_lo + k_w) * df), sk, score)
+        return BandChoice((k_lo * df, (k_lo + k_w - 1) * df), sk, score)  # its first and last line
 
     def band_signal(self, bs: BlockSpectrum, band_hz: tuple[float, float]) -> tuple[np.ndarray, float, tuple[float, float]]:
         """Analytic signal of the band, shifted down by its low edge, at the reduced rate: (z, fs_c, band).
+
+        The band holds the lines from ``band_hz[0]`` to ``band_hz[1]``, both included (rounded inwards to
+        whole lines); the band returned is the frequency of its first and of its last line, so passing it
+        back selects the same lines.
 
         |z| is the envelope in m/s^2. The tapered ends of the block are already cut off; z[0] is the
         sample at time ``n_trim / fs`` of the block.
@@ -304,7 +308,7 @@ class EnvelopeKernel:
         z *= 2.0 / bs.n_fft * m  # ifft's 1/m, the one-sided doubling and the rfft's n_fft
         n_valid = int(bs.n_samples * m / bs.n_fft)
         cut = int(math.ceil(bs.n_trim * m / bs.n_fft))
-        return z[cut: n_valid - cut], m * df, (float(k_lo * df), float(k_hi * df))
+        return z[cut: n_valid - cut], m * df, (float(k_lo * df), float((k_hi - 1) * df))  # first and last line
 
     def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan")) -> EnvelopeOutput:
         """Envelope and squared-envelope spectra of the block in ``band_hz``."""

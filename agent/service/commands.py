@@ -9,6 +9,9 @@ A command is a JSON object::
 - ``snapshot``: write the newest window of a machine's points to the state folder as evidence;
   ``machine`` optional (default: all machines).
 - ``reload``: re-read the configuration file, as SIGHUP does.
+- ``relearn``: forget the learned baselines of a machine (``machine`` required; ``point`` and ``value``
+  narrow it) and learn them again from the next updates; relearning whole points also forgets their
+  kept envelope bands, which are then searched again.
 
 ``id`` (a string or an integer) is echoed in the reply on ``<prefix>/<agent>/command/result``.
 Anything else (not JSON, not an object, unknown keys, an unknown command, a machine or point the
@@ -26,7 +29,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from ..settings.loading import format_location
 from ..settings.models import Config
 
-COMMANDS = ("acknowledge", "snapshot", "reload")
+COMMANDS = ("acknowledge", "snapshot", "reload", "relearn")
 MAX_PAYLOAD_BYTES = 4096
 
 
@@ -42,7 +45,7 @@ class CommandRejected(Exception):
 class _Request(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    command: Literal["acknowledge", "snapshot", "reload"]
+    command: Literal["acknowledge", "snapshot", "reload", "relearn"]
     machine: str | None = Field(None, min_length=1, max_length=64)
     point: str | None = Field(None, min_length=1, max_length=64)
     value: str | None = Field(None, min_length=1, max_length=64)
@@ -89,12 +92,12 @@ def parse_command(payload: bytes, config: Config) -> Command:
 
     cmd = Command(req.command, req.machine, req.point, req.value, req.id)
     machines = {m.id: m for m in config.machines}
-    if cmd.name == "acknowledge" and cmd.machine is None:
-        raise CommandRejected("acknowledge needs 'machine'", cmd.request_id, cmd.name)
+    if cmd.name in ("acknowledge", "relearn") and cmd.machine is None:
+        raise CommandRejected(f"{cmd.name} needs 'machine'", cmd.request_id, cmd.name)
     if cmd.machine is not None and cmd.machine not in machines:
         raise CommandRejected(f"unknown machine {cmd.machine!r} (known: {', '.join(machines)})",
                               cmd.request_id, cmd.name)
-    if cmd.name != "acknowledge" and (cmd.point is not None or cmd.value is not None):
+    if cmd.name not in ("acknowledge", "relearn") and (cmd.point is not None or cmd.value is not None):
         raise CommandRejected(f"{cmd.name} takes no 'point' or 'value'", cmd.request_id, cmd.name)
     if cmd.name == "reload" and cmd.machine is not None:
         raise CommandRejected("reload takes no 'machine'", cmd.request_id, cmd.name)

@@ -718,6 +718,11 @@ class Daemon:
             cleared = sorted({f"{e.point_id}/{e.value_name}" for e in events if e.value_name not in ("point", "machine")})
             message = f"cleared {len(cleared)} latched value(s)" if cleared else "nothing latched to clear"
             return True, message, {"machine": rt.machine.id, "cleared": cleared}
+        if cmd.name == "relearn":
+            rt = self.runtimes[cmd.machine]  # type: ignore[index]  # checked by parse_command
+            relearn = getattr(rt.pipeline, "relearn", None) or monitor_of(rt.pipeline).relearn
+            reset = list(relearn(cmd.point, cmd.value) or [])
+            return True, f"learning {len(reset)} baseline(s) again", {"machine": rt.machine.id, "reset": reset}
         if cmd.name == "snapshot":
             targets = [cmd.machine] if cmd.machine is not None else list(self.runtimes)
             saved = []

@@ -337,8 +337,10 @@ class Envelope(Model):
     """Envelope (demodulation) analysis for rolling bearings.
 
     ``band_hz = [low, high]`` fixes the demodulation band around a structural resonance; when absent,
-    the band is searched each update between ``auto_min_hz`` and the Nyquist limit on a kurtogram-like
-    grid of candidate bands, picked by ``auto_criterion``.
+    the band is searched between ``auto_min_hz`` and the Nyquist limit on a kurtogram-like grid of
+    candidate bands, picked by ``auto_criterion``: once, on the first update of a point's baseline
+    learning, and kept from then on (with the baselines, so band values stay comparable and can be
+    trended); ``rotorwatch analyze`` searches its recording.
     """
 
     band_hz: tuple[PositiveFloat, PositiveFloat] | None = None
@@ -349,6 +351,10 @@ class Envelope(Model):
     auto_criterion: Literal["cyclic", "kurtosis"] = "cyclic"
     fmax_hz: PositiveFloat | None = Field(None, description="envelope-spectrum span (default: covers the defect harmonics)")
     lines: int = Field(1600, ge=100, le=51200)
+    # A searched band is chosen when a point starts learning its baseline and kept with the baselines
+    # (re-searched on relearn); every band_review_hours of updates the search runs again and reports
+    # when it would choose a clearly better band (0: never).
+    band_review_hours: float = Field(6.0, ge=0, le=8760, allow_inf_nan=False)
 
     @model_validator(mode="after")
     def _band(self) -> "Envelope":

@@ -222,6 +222,12 @@ def test_malformed_commands_are_rejected_and_the_daemon_carries_on(mosquitto_bro
 
         wave, fs = soundfile.read(folder / "de-h.wav", dtype="float32")
         assert fs == 51200 and wave.shape == (51200,)  # window_s 1.0 at 51200 Hz, in m/s^2
+        # and relearn: the point's baselines are learned again
+        listener.client.publish(f"{root}/command", json.dumps(
+            {"command": "relearn", "machine": "ef3", "point": "de-h", "id": "r1"}), qos=1)
+        res = wait_message(listener, f"{root}/command/result", json_pred(id="r1"), 10)
+        assert res is not None and as_json(res)["ok"], res and as_json(res)
+        assert "de-h/overall" in as_json(res)["reset"] and not [k for k in as_json(res)["reset"] if k.startswith("nde-h/")]
     finally:
         listener.close()
     assert d.stop() == 0

@@ -20,6 +20,14 @@ def test_acknowledge_with_point_and_value():
     assert (cmd.name, cmd.machine, cmd.point, cmd.value, cmd.request_id) == ("acknowledge", "ef3", "de-h", "de-outer-race", "a1")
 
 
+def test_relearn_needs_a_machine_and_may_name_a_point_or_value():
+    cmd = parse({"command": "relearn", "machine": "ef3", "point": "de-h", "id": 9})
+    assert (cmd.name, cmd.machine, cmd.point, cmd.value) == ("relearn", "ef3", "de-h", None)
+    assert parse({"command": "relearn", "machine": "ef3", "value": "overall"}).value == "overall"
+    with pytest.raises(CommandRejected, match="relearn needs 'machine'"):
+        parse({"command": "relearn"})
+
+
 def test_snapshot_and_reload():
     assert parse({"command": "snapshot"}).machine is None
     assert parse({"command": "snapshot", "machine": "ef3", "id": 3}).request_id == 3
