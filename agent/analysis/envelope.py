@@ -33,6 +33,13 @@ batched inverse FFT of critically-sampled band signals c(t). Two measures are co
   infogram, MSSP 74 (2016) 73-94, from memory). It is large when the envelope holds a few strong
   *periodic* lines, i.e. repetitive impacts, and it ignores the beating of shaft-order tones.
 
+A band searched anew on every update moves from update to update on a healthy machine (nothing
+impulsive to find), and its values cannot be trended; so the daemon and replay search once per point,
+when its baseline learning starts, keep the band with the baselines and pass it back
+(:meth:`EnvelopeKernel.analyze` with ``kept_hz``); :meth:`EnvelopeKernel.review_band` runs the search on
+a later block and says whether it would choose a clearly better band (elsewhere, and scoring at least
+max(50 % of the kept band's score, 0.5) more). :meth:`EnvelopeKernel.choose_band` stays callable alone.
+
 ``criterion="kurtosis"`` picks the band of highest SK. The default, ``"cyclic"``, picks the band of
 highest cyclic content: on the shared bearing recordings SK alone chose bands dominated by bursts that are
 not periodic (10-12 kHz in the 48 kHz records), where the inner-race line read only 6 x its floor, against

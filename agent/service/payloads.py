@@ -26,7 +26,7 @@ ADVISORY = ("condition monitoring only: not a protection or trip system; act on 
 #: Unit of each band quantity, as the analysis reports band values (agent/analysis/result.py).
 QUANTITY_UNITS = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
 
-SCHEMA = 1  # bumped when a payload changes incompatibly
+SCHEMA = 2  # bumped when a payload changes incompatibly (2: findings' fields renamed, see deploy/mqtt-topics.md)
 
 
 def num(x: Any, digits: int = 6) -> float | None:

@@ -163,6 +163,9 @@ def test_page_follows_the_growing_fault(page):
     title = browser.js("return document.title")
     assert title.startswith("Alarm")
 
+    # the finding reads with its severity and where its line was found (agent/analysis/findings.py)
+    finding = browser.js("return document.getElementById('findings').textContent")
+    assert "BPFO on fan-de" in finding and "severity" in finding and "dB over the local floor" in finding, finding
     # the envelope view of the faulty bearing: BPFO region now in alarm, markers drawn
     browser.click('#quantity-seg button[data-q="envelope"]')
     spec = _spectrum(browser)

@@ -88,7 +88,7 @@ def test_event_payload():
 
 def test_command_result_and_agent_event():
     body = roundtrip(payloads.command_result_payload("a", T0, "acknowledge", False, "nope", 7))
-    assert body == {"schema": 1, "agent": "a", "id": 7, "command": "acknowledge", "ok": False,
+    assert body == {"schema": 2, "agent": "a", "id": 7, "command": "acknowledge", "ok": False,
                     "message": "nope", "time": "2023-11-14T22:13:20.000Z"}
     ev = roundtrip(payloads.agent_event_payload("command_rejected", "bad", "a", T0, command=None))
     assert ev["kind"] == "command_rejected" and ev["message"] == "bad" and ev["command"] is None
