@@ -23,10 +23,10 @@ own bearing first: a sensor also hears its neighbour) at the speed used:
 6. A defect is a *finding* when its fundamental stands >= 4 x its floor (12 dB) AND at least one other
    line of its family confirms it: one harmonic or sideband >= 5 x its floor (14 dB), or two >= 3.5 x
    (10.9 dB). One lone line is never enough. The thresholds come from measured null distributions
-   (``tests/bench/bench_findings_null.py`` prints them): in the least-averaged SES the analysis
-   produces (two half-overlapping envelope segments per update), noise alone lifts some harmonic or
-   sideband window of a lone line to 2.5 x in about one update in five, to 5 x in fewer than 1 in
-   30 000, and two windows to 3.5 x in fewer than 1 in 30 000.
+   (``tests/bench/bench_findings.py`` prints them): in the least-averaged SES the analysis
+   produces (two half-overlapping envelope segments per update), noise alone lifts one of the four
+   harmonic and sideband windows of a lone line to 2.5 x in one update in four (the earlier rule),
+   to 5 x in 1 of 10 000, and two of them to 3.5 x in none of 10 000.
 7. Prominence of a finding (``prominence_db``): 20 lg of the root-sum-square of the peak / floor ratios of
    the fundamental and of the harmonics >= 3.5 x: how far the defect's lines stand over the local floor,
    a signal-to-noise figure that ranks findings and is not a measure of how large the defect is.

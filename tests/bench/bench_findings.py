@@ -12,6 +12,7 @@
 3. Band-value spread over healthy updates of the demo fan (``config/scenarios/healthy.toml``, searched
    band): the configured fixed band against a band searched on every update and a band kept from the
    first update (what the pipeline does now).
+4. Severity and prominence along the demo's growing outer-race spall (``demo-outer-race.toml``).
 """
 
 from __future__ import annotations
@@ -140,6 +141,25 @@ def spread(updates: int = 40) -> None:
                   f"{len({res.envelope_band_hz for res in results}):>12}")
 
 
+def growing(days=(10, 13, 16, 19, 22, 25, 28, 30)) -> None:
+    from rotorwatch.analysis.point import PointAnalyzer
+    from rotorwatch.simulators.render import ScenarioRenderer
+    from rotorwatch.simulators.scenario import load_scenario
+
+    sc = load_scenario(REPO / "config" / "scenarios" / "demo-outer-race.toml")
+    r = ScenarioRenderer(sc)
+    m = sc.machine
+    p = m.point("de-h")
+    a = PointAnalyzer(m, p, 51200.0)
+    print("\n4. The demo's growing outer-race spall on fan-de (de-h, configured 2-7 kHz band)")
+    print(f"   {'day':>5}{'finding':>9}{'severity m/s^2':>16}{'prominence dB':>15}{'BPFO prominence':>17}")
+    for day in days:
+        res = a.analyze(r.snapshot(86400.0 * day, m.analysis.window_s, 51200.0)["de-h"] / p.sensor.volts_per_m_s2)
+        f = next((x for x in res.findings if x.name == "BPFO"), None)
+        sev = f"{f.severity_m_s2:>16.4f}{f.prominence_db:>15.1f}" if f else f"{'-':>16}{'-':>15}"
+        print(f"   {day:>5}{(f.name if f else 'none'):>9}{sev}{res.defect_prominence.get('BPFO:fan-de', 0.0):>17.1f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--updates", type=int, default=5000, help="updates per null case (default 5000)")
@@ -151,6 +171,7 @@ def main() -> None:
     recordings()
     if not args.skip_spread:
         spread()
+    growing()
 
 
 if __name__ == "__main__":
