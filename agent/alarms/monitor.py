@@ -372,8 +372,9 @@ class MachineMonitor:
     def _finding_text(f: Finding) -> str:
         series = f" ({f.series})" if f.series and f.series != f.name else ""
         return (
-            f"{f.name}{series} of bearing {f.bearing} at {f.found_hz:.1f} Hz (expected {f.frequency_hz:.1f} Hz), "
-            f"strength {f.strength:.3g}, {f.harmonics_found} harmonic{'s' if f.harmonics_found != 1 else ''}"
+            f"{f.name}{series} of bearing {f.bearing} at {f.measured_hz:.1f} Hz (expected {f.expected_hz:.1f} Hz), "
+            f"severity {f.severity_m_s2:.3g} m/s^2, {f.prominence_db:.1f} dB over the local floor, "
+            f"{f.harmonics_found} harmonic{'s' if f.harmonics_found != 1 else ''}"
         )
 
     def _finding_status(self, fs: _FindingSlot, state: str, reason: str) -> FindingStatus:
