@@ -8,9 +8,9 @@ For each point: sensor checks on the raw volts -> calibration to m/s^2 (volts / 
 the machine, :class:`~rotorwatch.alarms.monitor.MachineMonitor`. A point whose demodulation band is
 searched keeps the band of the first update its baselines learn from (running, healthy sensor), stored
 with the baselines; every ``band_review_hours`` the search runs again and a clearly better band is
-reported in the log (once) and in the point's result; :meth:`relearn` of the point searches anew. A point missing from ``blocks_v``
-reads ``no_data``; a block the analysis cannot take (too short, not finite) reads ``no_data`` with the
-reason, or ``sensor_fault`` when the sensor checks failed. Replay and the daemon run exactly this code.
+reported in the log (once) and in the point's result; :meth:`relearn` of the point searches anew. A
+point missing from ``blocks_v`` reads ``no_data``; a block the analysis cannot take (too short, not
+finite) reads ``no_data`` with the reason, or ``sensor_fault`` when the sensor checks failed. Replay and the daemon run exactly this code.
 
 Not thread-safe: one owner calls :meth:`step`.
 """

@@ -242,7 +242,8 @@ class EnvelopeKernel:
         k_lo = max(int(round(band_hz[0] / df)), 1)
         k_w = min(int(round(band_hz[1] / df)) + 1, bs.spec.size) - k_lo  # the lines lo..hi, both included
         if k_w < 8:
-            raise InputError(f"envelope band {band_hz[0]:g}..{band_hz[1]:g} Hz holds fewer than 8 lines at this block length")
+            raise InputError(f"envelope band {band_hz[0]:g}..{band_hz[1]:g} Hz holds fewer than 8 lines "
+                             "at this block length")
         score, _ = self._scores(bs, np.array([k_lo]), k_w, shaft_hz, criterion)
         return float(score[0])
 
