@@ -26,9 +26,8 @@ import numpy as np
 from .alarms.records import AlarmEvent, MachineUpdate
 from .errors import InputError
 from .expectations import Sample
-from .settings.models import G_N, Config, Machine
-
-UNITS = ("volts", "g", "m/s2")
+from .recordings import UNITS  # noqa: F401  (re-exported for the replay command)
+from .settings.models import Config, Machine
 
 
 @dataclass(frozen=True)
@@ -95,48 +94,68 @@ def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None, worke
 # ----------------------------------------------------------------------------------------- recordings
 @dataclass
 class Recording:
-    """An opened recording: its rate, length, and a reader of consecutive windows in volts."""
+    """An opened recording: its rate, length, unit, and a reader of consecutive windows in volts."""
 
     path: Path
     fs_hz: float
     n_frames: int
-    kind: str  # "wav" or "npz"
+    kind: str  # "sound" or "npz"
     windows: Iterator[dict[str, np.ndarray]]
     window_frames: int
     dropped_frames: int
     unmapped: list[str] = field(default_factory=list)
+    unit: str = "volts"
+    unit_from: str = ""
 
 
-def _to_volts(x: np.ndarray, machine: Machine, point_id: str, unit: str) -> np.ndarray:
-    sensor = machine.point(point_id).sensor
-    if unit == "volts":
-        return x
-    accel = x * G_N if unit == "g" else x
-    return accel * sensor.volts_per_m_s2
+def open_recording(path: str | Path, machine: Machine, unit: str | None, window_s: float) -> Recording:
+    """Open a recording for replay (see :mod:`rotorwatch.recordings`), cut into ``window_s`` windows.
 
-
-def open_recording(path: str | Path, machine: Machine, unit: str, window_s: float) -> Recording:
-    """Open a WAV or ``.npz`` recording for replay, cut into ``window_s`` windows.
-
-    WAV: channel c feeds the point whose ``sensor.channel`` is c. ``unit`` says what the samples are:
-    ``volts`` (the sensor output; an integer PCM file holds fractions of full scale, and full scale is the
-    sensor's ``input_range_v``), or ``g`` / ``m/s2`` (acceleration, float files only), converted to volts
-    through the sensor's sensitivity so the sensor checks and the calibration run as for a live input.
-
-    NPZ: ``fs_hz`` (a scalar) and the samples, either one 1-D array per point named by the point id, or
-    one 2-D array ``channels`` of shape (frames, channels) mapped by ``sensor.channel``; same ``unit``.
+    Channel c feeds the point whose ``sensor.channel`` is c; a ``.npz`` may instead hold one 1-D array
+    per point, named by the point id. The unit is the file's own (WAV metadata, sidecar, ``.npz``
+    ``unit``; a ``.npz`` without one is g), else ``unit`` (``--unit``). Volts are the sensor output (an
+    integer PCM file holds fractions of full scale, and full scale is the sensor's ``input_range_v``);
+    g and m/s^2 (float files only) go through the sensor's sensitivity to volts, so the sensor checks
+    and the calibration run as for a live input.
     """
+    from .recordings import decide_unit, open_recording as open_file, to_volts
+
     p = Path(path)
-    if unit not in UNITS:
-        raise InputError(f"--unit = {unit!r}: expected one of {', '.join(UNITS)}")
-    if not p.is_file():
-        raise InputError(f"{p}: no such file")
-    suffix = p.suffix.lower()
-    if suffix == ".npz":
-        return _open_npz(p, machine, unit, window_s)
-    if suffix in (".wav", ".wave"):
-        return _open_wav(p, machine, unit, window_s)
-    raise InputError(f"{p}: unknown recording type {p.suffix or '(no suffix)'!r}: expected .wav or .npz")
+    rec = open_file(p, names=[pt.id for pt in machine.points])
+    fs = rec.fs_hz
+    try:
+        n_win = _window_frames(p, fs, rec.n_frames, window_s)
+        name, how = decide_unit(rec, unit)
+        if rec.integer and name != "volts":
+            raise InputError(
+                f"{p}: integer {rec.sample_format} samples hold fractions of full scale; use --unit volts (full "
+                f"scale = the sensor's input_range_v) or write the recording as a float WAV"
+            )
+        if rec.channel_names:
+            mapped = {pid: i for i, pid in enumerate(rec.channel_names)}
+            unmapped = [pt.id for pt in machine.points if pt.id not in mapped]
+        else:
+            mapped, unmapped = _channel_map(p, machine, rec.n_channels)
+    except InputError:
+        rec.close()
+        raise
+
+    def windows() -> Iterator[dict[str, np.ndarray]]:
+        with rec:
+            while True:
+                data = rec.read(n_win)
+                if data.shape[0] < n_win:
+                    return
+                out = {}
+                for pid, ch in mapped.items():
+                    sensor = machine.point(pid).sensor
+                    x = data[:, ch].copy()
+                    if rec.integer:
+                        x *= sensor.input_range_v
+                    out[pid] = to_volts(x, name, sensor.volts_per_m_s2)
+                yield out
+
+    return Recording(p, fs, rec.n_frames, rec.kind, windows(), n_win, rec.n_frames % n_win, unmapped, name, how)
 
 
 def _window_frames(p: Path, fs_hz: float, n_frames: int, window_s: float) -> int:
@@ -156,89 +175,6 @@ def _channel_map(p: Path, machine: Machine, n_channels: int) -> tuple[dict[str, 
         chans = ", ".join(f"{pt.id}: {pt.sensor.channel}" for pt in machine.points)
         raise InputError(f"{p}: has {n_channels} channel(s), but the points of machine {machine.id!r} use channels {chans}")
     return mapped, unmapped
-
-
-def _open_wav(p: Path, machine: Machine, unit: str, window_s: float) -> Recording:
-    import soundfile
-
-    try:
-        info = soundfile.info(str(p))
-    except (RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
-        raise InputError(f"{p}: cannot read as WAV: {e}") from None
-    integer = info.subtype.startswith("PCM") or info.subtype in ("ULAW", "ALAW")
-    if integer and unit != "volts":
-        raise InputError(
-            f"{p}: integer {info.subtype} samples hold fractions of full scale; use --unit volts (full scale = "
-            f"the sensor's input_range_v) or write the recording as a float WAV"
-        )
-    fs = float(info.samplerate)
-    n_win = _window_frames(p, fs, info.frames, window_s)
-    mapped, unmapped = _channel_map(p, machine, info.channels)
-
-    def windows() -> Iterator[dict[str, np.ndarray]]:
-        try:
-            with soundfile.SoundFile(str(p)) as f:
-                while True:
-                    data = f.read(n_win, dtype="float64", always_2d=True)
-                    if data.shape[0] < n_win:
-                        return
-                    out = {}
-                    for pid, ch in mapped.items():
-                        x = data[:, ch].copy()
-                        if integer:
-                            x *= machine.point(pid).sensor.input_range_v
-                        out[pid] = _to_volts(x, machine, pid, unit)
-                    yield out
-        except (RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
-            raise InputError(f"{p}: read failed: {e}") from None
-
-    return Recording(p, fs, info.frames, "wav", windows(), n_win, info.frames % n_win, unmapped)
-
-
-def _open_npz(p: Path, machine: Machine, unit: str, window_s: float) -> Recording:
-    try:
-        archive = np.load(p, allow_pickle=False)
-        keys = set(archive.files)
-    except (OSError, ValueError) as e:
-        raise InputError(f"{p}: cannot read as .npz: {e}") from None
-    if "fs_hz" not in keys:
-        raise InputError(f"{p}: no 'fs_hz' entry (the sample rate in Hz); entries: {', '.join(sorted(keys)) or 'none'}")
-    try:
-        fs = float(np.asarray(archive["fs_hz"]).reshape(()))
-    except (ValueError, TypeError):
-        raise InputError(f"{p}: fs_hz must be one number") from None
-    if not (math.isfinite(fs) and fs > 0):
-        raise InputError(f"{p}: fs_hz = {fs:g}: must be a positive sample rate")
-    columns: dict[str, np.ndarray] = {}
-    if "channels" in keys:
-        data = np.asarray(archive["channels"], dtype=float)
-        if data.ndim != 2:
-            raise InputError(f"{p}: 'channels' has shape {data.shape}: expected (frames, channels)")
-        mapped, _ = _channel_map(p, machine, data.shape[1])
-        columns = {pid: data[:, ch] for pid, ch in mapped.items()}
-    else:
-        for pt in machine.points:
-            if pt.id in keys:
-                x = np.asarray(archive[pt.id], dtype=float)
-                if x.ndim != 1:
-                    raise InputError(f"{p}: {pt.id!r} has shape {x.shape}: expected one channel (1-D)")
-                columns[pt.id] = x
-        if not columns:
-            ids = ", ".join(pt.id for pt in machine.points)
-            raise InputError(f"{p}: no samples for any point: expected arrays named {ids}, or a 2-D 'channels'")
-    lengths = {len(x) for x in columns.values()}
-    if len(lengths) != 1:
-        raise InputError(f"{p}: the point arrays differ in length ({', '.join(map(str, sorted(lengths)))} frames)")
-    n_frames = lengths.pop()
-    n_win = _window_frames(p, fs, n_frames, window_s)
-    unmapped = [pt.id for pt in machine.points if pt.id not in columns]
-
-    def windows() -> Iterator[dict[str, np.ndarray]]:
-        for i in range(n_frames // n_win):
-            sl = slice(i * n_win, (i + 1) * n_win)
-            yield {pid: _to_volts(x[sl].copy(), machine, pid, unit) for pid, x in columns.items()}
-
-    return Recording(p, fs, n_frames, "npz", windows(), n_win, n_frames % n_win, unmapped)
 
 
 def recording_frames(rec: Recording, rpm: float | None = None) -> Iterator[Frame]:

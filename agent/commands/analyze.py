@@ -1,9 +1,12 @@
 """``rotorwatch analyze FILE``: run the point analysis over one recording and report what it finds.
 
-Input: a WAV file (read with soundfile; calibrated float samples in g, or m/s^2 with ``--unit m/s2``;
-``--channel`` picks the channel) or a numpy ``.npz`` archive with ``signal`` (acceleration in g) and
-``fs`` (Hz). The recording is analysed as one block, up to ``--max-seconds`` (default 120 s) from its
-start.
+Input: a sound file (WAV, ...) or a numpy ``.npz`` archive, read by :mod:`rotorwatch.recordings`. The
+unit of the samples comes from the file (WAV metadata, a ``FILE.json`` sidecar, a ``.npz`` ``unit``
+entry; a ``.npz`` without one is g, and the output says so) or from ``--unit g|m/s2|volts``; a file
+that names no unit needs ``--unit``. Volts are turned into acceleration with the sensitivity of the
+point's sensor (``--config``) or, failing that, the sensitivity the file records. ``--channel`` picks
+the channel (default: the point's ``sensor.channel`` with ``--config``, else 0). The recording is
+analyzed as one block, up to ``--max-seconds`` (default 120 s) from its start.
 
 The machine comes either from a configuration (``--config C --point P``, ``--machine M`` when the file
 describes more than one machine) or from the command line (quick mode): ``--rpm``, one ``--bearing`` per
@@ -26,12 +29,13 @@ import json
 import math
 import re
 import sys
-from pathlib import Path
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from ..errors import ConfigError, InputError
+from ..recordings import UNITS, decide_unit, open_recording, to_m_s2
 from ..settings.models import G_N
 
 MIN_RATE_HZ = 1000.0
@@ -50,78 +54,72 @@ def add_parser(p: argparse.ArgumentParser) -> None:
                        help="n=9,d=0.3126in,D=1.537in,angle=0[,name=de] or bpfo=..,bpfi=..,bsf=..,ftf=.. (repeatable)")
     quick.add_argument("--blades", type=int, help="fan or impeller blade count")
     p.add_argument("--envelope-band", metavar="LO,HI", help="fixed demodulation band in Hz (default: searched)")
-    p.add_argument("--unit", choices=("g", "m/s2"), default="g", help="unit of WAV samples (default g; .npz is always g)")
-    p.add_argument("--channel", type=int, default=0, help="WAV channel, 0-based (default 0)")
+    p.add_argument("--unit", choices=UNITS, default=None,
+                   help="unit of the samples when the file does not name it (volts: with --config for the sensitivity)")
+    p.add_argument("--channel", type=int, default=None,
+                   help="channel, 0-based (default: the point's sensor.channel with --config, else 0)")
     p.add_argument("--format", choices=("text", "json"), default="text", help="output format (default text)")
     p.add_argument("--max-seconds", type=float, default=MAX_SECONDS,
-                   help=f"analyse at most this many seconds from the start (default {MAX_SECONDS:g})")
+                   help=f"analyze at most this many seconds from the start (default {MAX_SECONDS:g})")
 
 
 # ------------------------------------------------------------------------------------------- reading
-def read_recording(path: str, unit: str = "g", channel: int = 0) -> tuple[np.ndarray, float]:
-    """Samples in m/s^2 and the sampling rate of a WAV or .npz recording; InputError naming the file."""
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"{path}: no such file")
-    if p.is_dir():
-        raise InputError(f"{path}: is a directory, expected a recording")
-    if p.suffix.lower() == ".npz":
-        x, fs = _read_npz(p)
-        scale = G_N
-    else:
-        x, fs = _read_sound(p, channel)
-        scale = G_N if unit == "g" else 1.0
-    if x.size == 0:
-        raise InputError(f"{path}: holds no samples")
-    if not (math.isfinite(fs) and fs >= MIN_RATE_HZ):
-        raise InputError(f"{path}: sample rate {fs:g} Hz is too low: the analysis needs at least {MIN_RATE_HZ:g} Hz")
-    bad = int(np.count_nonzero(~np.isfinite(x)))
+@dataclass(frozen=True)
+class Samples:
+    """One channel of a recording in m/s^2, with what was read and how its unit is known."""
+
+    x_m_s2: np.ndarray
+    fs_hz: float
+    n_file: int  # frames in the file
+    channel: int
+    unit: str
+    unit_from: str
+
+
+def read_recording(path: str, unit: str | None = None, channel: int | None = None, point: Any = None,
+                   max_seconds: float | None = None) -> Samples:
+    """Up to ``max_seconds`` of one channel of a recording, in m/s^2; InputError naming the file.
+
+    ``point`` (a configured point, optional) gives the default channel and the sensor's sensitivity
+    for volts.
+    """
+    rec = open_recording(path, names=[point.id] if point is not None else None)
+    with rec:
+        if not rec.fs_hz >= MIN_RATE_HZ:
+            raise InputError(f"{path}: sample rate {rec.fs_hz:g} Hz is too low: the analysis needs at least {MIN_RATE_HZ:g} Hz")
+        if channel is None:
+            if rec.channel_names and point is not None and point.id in rec.channel_names:
+                channel = rec.channel_names.index(point.id)
+            elif point is not None and point.sensor.channel < rec.n_channels:
+                channel = point.sensor.channel
+            else:
+                channel = 0
+        if not 0 <= channel < rec.n_channels:
+            raise InputError(f"{path}: --channel {channel}: the file has {rec.n_channels} channel(s), 0..{rec.n_channels - 1}")
+        name, how = decide_unit(rec, unit)
+        sens = None
+        if name == "volts":
+            recorded = rec.unit.volts_per_m_s2[channel] if channel < len(rec.unit.volts_per_m_s2) else None
+            sens = point.sensor.volts_per_m_s2 if point is not None else recorded
+            if sens is None:
+                raise InputError(f"{path}: samples in volts ({how}) and no sensitivity to turn them into "
+                                 "acceleration: give --config C --point P (the sensor's sensitivity), or --unit g or "
+                                 "--unit m/s2 if the samples are acceleration")
+            if point is not None and recorded is not None and abs(recorded / sens - 1.0) > 0.01:
+                print(f"rotorwatch: note: {path} records a sensitivity of {recorded:.4g} V/(m/s^2) on channel "
+                      f"{channel}; using the configured {sens:.4g} V/(m/s^2) of point {point.id}", file=sys.stderr)
+        limit = rec.n_frames if max_seconds is None else min(rec.n_frames, int(max_seconds * rec.fs_hz))
+        data = rec.read_all(limit)[:, channel]
+    if rec.integer:
+        if name == "volts" and point is not None:
+            data = data * point.sensor.input_range_v  # full scale = the input range
+        else:
+            print(f"rotorwatch: note: {path} holds {rec.sample_format} integer samples, read with full scale = 1 "
+                  f"{name}; calibrated recordings are float WAVs", file=sys.stderr)
+    bad = int(np.count_nonzero(~np.isfinite(data)))
     if bad:
         raise InputError(f"{path}: {bad} samples are not finite numbers (NaN or inf)")
-    return x.astype(float) * scale, fs
-
-
-def _read_npz(p: Path) -> tuple[np.ndarray, float]:
-    import zipfile  # noqa: PLC0415
-
-    try:
-        with np.load(p, allow_pickle=False) as z:
-            missing = [k for k in ("signal", "fs") if k not in z.files]
-            if missing:
-                raise InputError(f"{p}: .npz lacks {' and '.join(missing)} (has: {', '.join(z.files) or 'nothing'})")
-            x = np.asarray(z["signal"])
-            fs_arr = np.asarray(z["fs"])
-    except InputError:
-        raise
-    except (OSError, ValueError, zipfile.BadZipFile, EOFError) as e:
-        raise InputError(f"{p}: cannot read as .npz: {e}") from None
-    if fs_arr.size != 1 or not np.issubdtype(fs_arr.dtype, np.number):
-        raise InputError(f"{p}: fs must be one number (Hz), got shape {fs_arr.shape} of {fs_arr.dtype}")
-    if not np.issubdtype(x.dtype, np.number) or np.iscomplexobj(x):
-        raise InputError(f"{p}: signal must hold real numbers, got {x.dtype}")
-    x = np.squeeze(x)
-    if x.ndim > 1:
-        raise InputError(f"{p}: signal has shape {x.shape}: expected one channel")
-    return x.reshape(-1), float(fs_arr.reshape(-1)[0])
-
-
-def _read_sound(p: Path, channel: int) -> tuple[np.ndarray, float]:
-    import soundfile  # noqa: PLC0415
-
-    try:
-        info = soundfile.info(str(p))
-        data, fs = soundfile.read(str(p), dtype="float64", always_2d=True)
-    except (RuntimeError, soundfile.LibsndfileError, OSError) as e:
-        raise InputError(f"{p}: cannot read as a sound file: {e}") from None
-    from ..sources.recording import open_sound_file  # noqa: PLC0415
-
-    open_sound_file(p).close()  # the recording source's checks: a file cut short is an error, not half an analysis
-    if not 0 <= channel < data.shape[1]:
-        raise InputError(f"{p}: --channel {channel}: the file has {data.shape[1]} channel(s), 0..{data.shape[1] - 1}")
-    if not info.subtype.startswith(("FLOAT", "DOUBLE")):
-        print(f"rotorwatch: note: {p} holds {info.subtype} integer samples, read with full scale = 1; "
-              "calibrated recordings are float WAVs", file=sys.stderr)
-    return data[:, channel], float(fs)
+    return Samples(to_m_s2(data, name, sens), rec.fs_hz, rec.n_frames, channel, name, how)
 
 
 # ------------------------------------------------------------------------------------- quick machine
@@ -319,6 +317,7 @@ def format_text(r: dict[str, Any]) -> str:
     lines = [
         f"{r['file']}: {r['duration_s']:.2f} s at {r['fs_hz']:g} Hz ({r['n_samples']} samples){cut}, "
         f"machine {r['machine']} point {r['point']}",
+        f"  samples           channel {r['channel']} in {r['unit']} ({r['unit_from']})",
         f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz",
         f"  overall velocity  {r['overall_velocity_mm_s']:.3f} mm/s RMS ({r['overall_band_hz'][0]:g}-{r['overall_band_hz'][1]:g} Hz): "
         f"ISO 20816-3 zone {r['iso_zone']} (group {r['iso_group']}, {r['support']})",
@@ -370,9 +369,9 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--rpm {args.rpm:g}: must be a speed above 0")
     if not (math.isfinite(args.max_seconds) and args.max_seconds > 0):
         raise InputError(f"--max-seconds {args.max_seconds:g}: must be a positive number of seconds")
-    x, fs = read_recording(args.file, args.unit, args.channel)
-    n_file = x.size
-    x = x[: int(args.max_seconds * fs)]
+    rec = read_recording(args.file, args.unit, args.channel, point if args.config is not None else None,
+                         args.max_seconds)
+    x, fs, n_file = rec.x_m_s2, rec.fs_hz, rec.n_file
     # the recording is one update: its length is the window (envelope lines are sized to fit it)
     machine = machine.model_copy(update={"analysis": machine.analysis.model_copy(update={"window_s": x.size / fs})})
     try:
@@ -382,6 +381,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"{args.file}: {e}") from None
     report = build_report(args.file, machine, point, result, fs, x.size)
     report["file_duration_s"] = n_file / fs
+    report.update(channel=rec.channel, unit=rec.unit, unit_from=rec.unit_from)
     if args.format == "json":
         json.dump(report, sys.stdout, indent=2, allow_nan=False, default=_json_default)
         sys.stdout.write("\n")

@@ -67,17 +67,20 @@ def find_point(config: Config, wanted: str, source: str):
 
 
 def record_from_file(path: Path, channel: int, seconds: float, settle_s: float) -> tuple[np.ndarray, float, str]:
-    from ..sources.recording import open_sound_file
+    from ..recordings import open_recording
 
-    with open_sound_file(path) as f:
-        if channel >= f.channels:
-            raise InputError(f"{path}: has {f.channels} channel(s), the point uses channel {channel}")
-        fs = float(f.samplerate)
+    with open_recording(path) as f:
+        if f.unit.name not in (None, "volts"):
+            raise InputError(f"{path}: samples in {f.unit.name} ({f.unit.origin}); a calibration needs the "
+                             "sensor's output in volts")
+        if channel >= f.n_channels:
+            raise InputError(f"{path}: has {f.n_channels} channel(s), the point uses channel {channel}")
+        fs = float(f.fs_hz)
         skip = int(settle_s * fs)
-        if f.frames <= skip:
+        if f.n_frames <= skip:
             skip = 0
         f.seek(skip)
-        data = f.read(int(seconds * fs), dtype="float64", always_2d=True)
+        data = f.read(int(seconds * fs))
     return data[:, channel], fs, f"recording {str(path)!r}"
 
 

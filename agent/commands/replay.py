@@ -1,7 +1,7 @@
 """``rotorwatch replay``: a scenario or a recording through the alarm logic, with a timeline and checks.
 
     rotorwatch replay --scenario config/scenarios/demo-outer-race.toml
-    rotorwatch replay --config config/university-rig.toml --input rec.wav --unit g --learning-updates 5
+    rotorwatch replay --config config/university-rig.toml --input rec.npz --learning-updates 5
     rotorwatch replay --scenario S --expect "machine never alarm" --format jsonl
 
 With only ``--scenario`` the machine configuration is the one the scenario names; ``--config`` replaces
@@ -37,8 +37,9 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     src.add_argument("--input", metavar="FILE", help="recording to replay: .wav or .npz (needs --config)")
     p.add_argument("--config", metavar="FILE", help="machine configuration (default with --scenario: the scenario's)")
     p.add_argument("--machine", metavar="ID", help="machine id, when the configuration has several")
-    p.add_argument("--unit", choices=UNITS, default="volts",
-                   help="what the recording's samples are (default volts; integer WAV: full scale = input_range_v)")
+    p.add_argument("--unit", choices=UNITS, default=None,
+                   help="what the recording's samples are, when the file does not say (integer WAV: volts, "
+                        "full scale = input_range_v)")
     p.add_argument("--rpm", type=float, metavar="R/MIN", help="recording: the speed, as a tach or drive would report it")
     p.add_argument("--expect", action="append", default=[], metavar="TEXT",
                    help='an expectation, e.g. "de-outer-race on de-h reaches alarm between day 10 and day 20" (repeatable)')
@@ -136,7 +137,7 @@ def run(args: argparse.Namespace) -> int:
         fs_hz = rec.fs_hz
         frames = recording_frames(rec, args.rpm)
         total = rec.n_frames // rec.window_frames
-        source = f"recording {args.input} ({args.unit}), config {args.config}"
+        source = f"recording {args.input} (samples in {rec.unit}: {rec.unit_from}), config {args.config}"
         cadence = f"consecutive {window_s:g} s windows"
         if rec.unmapped:
             print(f"rotorwatch: {args.input}: no channel for point(s) {', '.join(rec.unmapped)}: they read no_data", file=sys.stderr)

@@ -4,9 +4,11 @@ One WAV per requested day, named ``<scenario>-day<D>.wav``: float32, one column 
 (column c is the sensor on channel c, as a sound interface would record it; channels without a sensor
 carry the input's noise floor). Samples are the sensor output in VOLTS by default, with every sensor
 fault of the scenario applied; ``--quantity accel`` writes the housing acceleration in m/s^2 instead,
-before the sensor (no faults). A JSON file beside each WAV records the channel map, sensitivities, unit,
-sample rate, the true speed and what each point carried at that moment, so the file can be analysed or
-replayed (``rotorwatch replay --recording FILE.wav``) without the scenario.
+before the sensor (no faults). The unit travels with the file twice: in the WAV's own metadata (with
+the sensitivity of each channel's sensor, see :mod:`rotorwatch.recordings`) and in a JSON file beside
+it that also records the channel map, sample rate, the true speed and what each point carried at that
+moment, so the file can be analyzed (``rotorwatch analyze FILE.wav``) or replayed (``rotorwatch replay
+--config C --input FILE.wav``) without the scenario and without saying its unit again.
 """
 
 from __future__ import annotations
@@ -34,9 +36,9 @@ def add_parser(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import soundfile
-
     from rotorwatch.simulators.render import ScenarioRenderer
+
+    from ..recordings import write_wav
     from rotorwatch.simulators.scenario import DAY_S, load_scenario
 
     scenario = load_scenario(args.scenario)
@@ -72,10 +74,11 @@ def run(args: argparse.Namespace) -> int:
         for p in machine.points:
             frames[:, p.sensor.channel] = signals[p.id]
         wav = out / f"{stem}-day{d:06.2f}.wav"
-        try:
-            soundfile.write(str(wav), frames, int(round(fs)), subtype="FLOAT")
-        except (OSError, RuntimeError, soundfile.LibsndfileError) as e:
-            raise InputError(f"{wav}: cannot write: {e}") from None
+        unit = "volts" if args.quantity == "volts" else "m/s2"
+        sens: list[float | None] = [None] * channels
+        for p in machine.points:
+            sens[p.sensor.channel] = p.sensor.volts_per_m_s2
+        write_wav(wav, frames, fs, unit, sens if unit == "volts" else None)
         meta = {
             "scenario": str(scenario.path),
             "machine": machine.id,
@@ -83,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
             "time_s": t_s,
             "seconds": seconds,
             "sample_rate_hz": fs,
-            "unit": "volts" if args.quantity == "volts" else "m/s2",
+            "unit": unit,
             "true_rpm": renderer.true_rpm(t_s),
             "channels": {
                 str(p.sensor.channel): {"point": p.id, "volts_per_m_s2": p.sensor.volts_per_m_s2} for p in machine.points

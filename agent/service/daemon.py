@@ -77,11 +77,13 @@ def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) 
 
 
 def default_source_factory(config: Config, config_dir: Path) -> Any:
-    from ..sources.base import channel_full_scale_v, open_source
+    from ..sources.base import channel_full_scale_v, channel_sensitivity_v_per_m_s2, open_source
 
     options: dict[str, Any] = {}
     if config.acquisition.source == "simulated":
         options["segment_s"] = simulated_segment_s(config)
+    elif config.acquisition.source == "recording":
+        options["volts_per_m_s2"] = channel_sensitivity_v_per_m_s2(config)
     return open_source(config.acquisition, config_dir, full_scale_v=channel_full_scale_v(config), **options)
 
 

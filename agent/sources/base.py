@@ -325,6 +325,18 @@ def channel_full_scale_v(config: Any) -> list[float]:
     return scale
 
 
+def channel_sensitivity_v_per_m_s2(config: Any) -> list[float | None]:
+    """Per input channel, the sensitivity (V per m/s^2) of the sensor wired to it, None where no point
+    uses the channel. A recording in g or m/s^2 plays through these into volts at the input."""
+    sens: list[float | None] = [None] * int(config.acquisition.channels)
+    for machine in config.machines:
+        for point in machine.points:
+            ch = point.sensor.channel
+            if ch < len(sens):
+                sens[ch] = float(point.sensor.volts_per_m_s2)
+    return sens
+
+
 # ------------------------------------------------------------------------------------------- registry
 #: acquisition.source name -> module implementing ``from_settings(acquisition, config_dir, **options)``
 BUILTIN_SOURCES: dict[str, str] = {

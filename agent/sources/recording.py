@@ -1,8 +1,12 @@
-"""A sound file (WAV, FLAC, ... anything libsndfile reads) played as if it were a device.
+"""A recording (a sound file or a .npz archive) played as if it were a device.
 
-Samples are read as float32 and taken as volts at the input: a float WAV holds volts directly; an
-integer PCM file's full scale reads as +-1 V (libsndfile normalises it). The file must have the
-configured sample rate and channel count: a mismatch is a one-line error, not a silent resample.
+The file is read by :mod:`rotorwatch.recordings`, the reader every command uses, and handed out in
+volts at the input. The unit is the file's own (WAV metadata, a ``FILE.json`` sidecar, a ``.npz``
+``unit`` entry; a ``.npz`` without one is g): volts pass as they are, g and m/s^2 become volts through
+the sensitivity of the sensor configured on each channel (``volts_per_m_s2``, one per channel). A file
+that names no unit is taken as volts, as a sound interface would have recorded it; an integer PCM
+file's full scale reads as +-1 V (libsndfile normalises it). The file must have the configured sample
+rate and channel count: a mismatch is a one-line error, not a silent resample.
 
 Paced (the default) a chunk is handed out when it is due at ``speedup`` times real time (see
 :mod:`rotorwatch.sources.pacing`); ``pace=False`` hands chunks out as fast as they are read (tests,
@@ -19,63 +23,32 @@ Missing, unreadable, empty and truncated files raise :class:`InputError` with on
 from __future__ import annotations
 
 import logging
-import re
 import time
 from pathlib import Path
-from typing import Any
+from typing import Any, Sequence
 
 import numpy as np
 
 from ..errors import InputError
+from ..recordings import Recording, open_recording
+from ..settings.models import G_N
 from .base import Chunk, Source, resolve_path
 from .pacing import Pacer
 
 log = logging.getLogger(__name__)
-
-# libsndfile's own header check: "data : 384000 (should be 191959)" when the file is cut short.
-_TRUNCATED = re.compile(r"^\s*data\s*:\s*(\d+)\s*\(should be (\d+)\)", re.MULTILINE)
-
-
-def open_sound_file(path: Path):
-    """Open ``path`` with soundfile, turning every failure into a one-line InputError."""
-    import soundfile
-
-    if not path.exists():
-        raise InputError(f"{path}: no such file")
-    if path.is_dir():
-        raise InputError(f"{path}: is a directory, expected a sound file")
-    try:
-        handle = soundfile.SoundFile(str(path))
-    except soundfile.LibsndfileError as exc:
-        reason = str(exc).split(":", 1)[-1].strip() if ":" in str(exc) else str(exc)
-        raise InputError(f"{path}: not a readable sound file ({reason})") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read: {exc.strerror or exc}") from None
-    try:
-        info = soundfile.info(str(path)).extra_info
-    except Exception:  # extra_info is advisory
-        info = ""
-    cut = _TRUNCATED.search(info)
-    if cut is not None:
-        declared, held = int(cut.group(1)), int(cut.group(2))
-        handle.close()
-        raise InputError(
-            f"{path}: truncated: the header declares {declared} bytes of samples, the file holds {held} "
-            "(the recording was cut short; rewrite it or use a complete copy)"
-        )
-    if handle.frames == 0:
-        handle.close()
-        raise InputError(f"{path}: holds no samples")
-    return handle
 
 
 class RecordingSource(Source):
     kind = "recording"
 
     def __init__(self, path: Path, fs_hz: float, channels: int, block_frames: int, *,
-                 loop: bool = False, pace: bool = True, speedup: float = 1.0) -> None:
+                 loop: bool = False, pace: bool = True, speedup: float = 1.0,
+                 volts_per_m_s2: Sequence[float | None] | None = None) -> None:
         super().__init__(fs_hz, channels, block_frames)
         self.path = Path(path)
+        self.volts_per_m_s2 = list(volts_per_m_s2) if volts_per_m_s2 is not None else None
+        self.unit: str | None = None  # the unit of the file's samples, once opened
+        self._scale: np.ndarray | None = None  # per channel: file unit -> volts
         self.loop = loop
         self.pace = pace
         self.speedup = float(speedup)
@@ -86,17 +59,40 @@ class RecordingSource(Source):
         self._frames_out = 0
         self._gap_next = False
 
-    def _open(self) -> None:
-        handle = open_sound_file(self.path)
+    def check(self) -> None:
+        """What ``start()`` would refuse, without starting: the file, its rate, channels and unit."""
+        self._open_file().close()
+
+    def _open_file(self) -> Recording:
+        rec = open_recording(self.path)
         problems = []
-        if abs(handle.samplerate - self.fs_hz) > 1e-6:
-            problems.append(f"sample rate {handle.samplerate} Hz but acquisition.sample_rate_hz = {self.fs_hz:g}")
-        if handle.channels != self.channels:
-            problems.append(f"{handle.channels} channel(s) but acquisition.channels = {self.channels}")
+        if abs(rec.fs_hz - self.fs_hz) > 1e-6:
+            problems.append(f"sample rate {rec.fs_hz:g} Hz but acquisition.sample_rate_hz = {self.fs_hz:g}")
+        if rec.n_channels != self.channels:
+            problems.append(f"{rec.n_channels} channel(s) but acquisition.channels = {self.channels}")
         if problems:
-            handle.close()
+            rec.close()
             raise InputError(f"{self.path}: {'; '.join(problems)} (set acquisition to match the file)")
-        self._file = handle
+        unit = rec.unit.name or "volts"
+        scale = np.ones(self.channels)
+        if unit != "volts":
+            per_unit = G_N if unit == "g" else 1.0
+            sens = self.volts_per_m_s2 or []
+            missing = [c for c in range(self.channels) if c >= len(sens) or sens[c] is None]
+            if missing:
+                rec.close()
+                raise InputError(f"{self.path}: samples in {unit} ({rec.unit.origin}) but no sensor is configured "
+                                 f"on channel(s) {', '.join(map(str, missing))} to turn them into volts")
+            scale = np.array([per_unit * float(sens[c]) for c in range(self.channels)])  # type: ignore[arg-type]
+        self.unit = unit
+        self._scale = None if unit == "volts" else scale.astype(np.float32)
+        if rec.unit.name is None:
+            log.info("recording %s names no unit: its samples are taken as volts at the input", self.path)
+        return rec
+
+    def _open(self) -> None:
+        self._file = self._open_file()
+        self._file.seek(0)
         self._pacer = Pacer(self.fs_hz, rate=self.speedup) if self.pace else None
         self._t_start = time.time()
         self._frames_out = 0
@@ -106,7 +102,7 @@ class RecordingSource(Source):
         f = self._file
         if f is None or self._ended:
             return None
-        remaining = f.frames - f.tell()
+        remaining = f.remaining
         if remaining <= 0:
             if not self.loop:
                 self._ended = True
@@ -115,22 +111,21 @@ class RecordingSource(Source):
             f.seek(0)
             self.passes += 1
             self._gap_next = True
-            remaining = f.frames
+            remaining = f.n_frames
         n = min(self.block_frames, remaining)
         if self._pacer is not None and not self._pacer.wait(n, timeout_s):
             return None
-        try:
-            data = f.read(n, dtype="float32", always_2d=True)
-        except Exception as exc:  # libsndfile error on a damaged block
-            raise InputError(f"{self.path}: read failed at frame {f.tell()}: {exc}") from None
+        data = f.read(n, dtype=np.float32)
         if data.shape[0] == 0:
-            raise InputError(f"{self.path}: no samples at frame {f.tell()} of {f.frames} (damaged file)")
+            raise InputError(f"{self.path}: no samples at frame {f.tell()} of {f.n_frames} (damaged file)")
+        if self._scale is not None:
+            data = data * self._scale
         if self._pacer is not None:
             self._pacer.advance(data.shape[0])
         t0 = self._t_start + self._frames_out / self.fs_hz
         self._frames_out += data.shape[0]
         gap, self._gap_next = self._gap_next, False
-        return Chunk(t0_s=t0, frames=np.ascontiguousarray(data), gap=gap)
+        return Chunk(t0_s=t0, frames=np.ascontiguousarray(data, dtype=np.float32), gap=gap)
 
     def _close(self) -> None:
         f, self._file = self._file, None
@@ -144,7 +139,8 @@ class RecordingSource(Source):
 def from_settings(acquisition: Any, config_dir: Path | None = None, *, pace: bool = True,
                   full_scale_v: Any = None, **options: Any) -> RecordingSource:
     if not acquisition.recording:
-        raise InputError("acquisition.recording: source 'recording' needs the path of a sound file")
+        raise InputError("acquisition.recording: source 'recording' needs the path of a recording "
+                         "(a sound file or .npz), e.g. --set 'acquisition.recording=\"rec.wav\"'")
     path = resolve_path(acquisition.recording, config_dir)
     return RecordingSource(path, acquisition.sample_rate_hz, acquisition.channels, acquisition.block_frames,
                            loop=acquisition.loop, pace=pace, speedup=acquisition.speedup, **options)

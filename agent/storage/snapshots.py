@@ -201,7 +201,7 @@ class SnapshotStore:
 
     def _write_files(self, folder: Path, snap_id: str, update: MachineUpdate, waveforms: Mapping[str, np.ndarray],
                      reason: str, machine: Any, config_hash: str, detail: str) -> dict[str, Any]:
-        import soundfile as sf
+        from ..recordings import write_wav
 
         rpm = update.rpm
         shaft_hz = rpm / 60.0 if rpm else None
@@ -227,7 +227,7 @@ class SnapshotStore:
                         raise ValueError(f"snapshot {snap_id}: waveform of point {pid!r} must be 1-D and not empty, "
                                          f"got shape {data.shape}")
                     name = f"{pid}.wav"
-                    sf.write(folder / name, data, samplerate=int(round(res.fs_hz)), subtype="FLOAT", format="WAV")
+                    write_wav(folder / name, data, res.fs_hz, "m/s2")
                     entry["waveform_file"] = name
                     entry["waveform_unit"] = "m/s^2"
                 arrays: dict[str, np.ndarray] = {}
@@ -299,13 +299,15 @@ class SnapshotStore:
 
     def read_waveform(self, snap_id: str, point_id: str) -> tuple[np.ndarray, float]:
         """(samples in m/s^2 as float32, sample rate in Hz) of one point."""
-        import soundfile as sf
+        from ..recordings import open_recording, to_m_s2
 
         entry = self._point(snap_id, point_id)
         if not entry.get("waveform_file"):
             raise StorageError(f"snapshot {snap_id!r}: point {point_id!r} has no waveform")
-        data, rate = sf.read(self.root / snap_id / entry["waveform_file"], dtype="float32")
-        return data, float(entry.get("fs_hz", rate))
+        with open_recording(self.root / snap_id / entry["waveform_file"]) as rec:
+            data = rec.read_all()[:, 0]
+            unit, rate = rec.unit.name or "m/s2", rec.fs_hz  # snapshots from before units were written: m/s^2
+        return to_m_s2(data, unit).astype(np.float32), float(entry.get("fs_hz", rate))
 
     def read_spectra(self, snap_id: str, point_id: str) -> dict[str, Spectrum]:
         """quantity -> :class:`Spectrum` of one point (only the quantities that were saved)."""

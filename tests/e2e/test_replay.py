@@ -188,7 +188,7 @@ def test_wav_in_volts_and_in_g_read_the_same(tmp_path, capsys, recorded_volts):
 
 def test_npz_recording_by_point_id(tmp_path, capsys, recorded_volts):
     volts, fs, _ = recorded_volts
-    np.savez(tmp_path / "rec.npz", fs_hz=fs, **{"de-h": volts["de-h"]})
+    np.savez(tmp_path / "rec.npz", fs_hz=fs, unit="volts", **{"de-h": volts["de-h"]})
     rc, lines, err = replay(capsys, "--config", str(DEMO_CONFIG), "--input", str(tmp_path / "rec.npz"), "--learning-updates", "3")
     assert rc == 0
     last = [x for x in lines if x["type"] == "update"][-1]

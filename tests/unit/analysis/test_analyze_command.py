@@ -36,7 +36,7 @@ def test_float_wav_in_g_finds_the_outer_race(tmp_path, capsys):
     f = tmp_path / "rec.wav"
     soundfile.write(f, _faulty(fs, rate=rate).astype(np.float32), fs, subtype="FLOAT")
     rpm = rate / BPFO_ORDER * 60
-    rc, out, err = _run(capsys, f, "--rpm", f"{rpm:.3f}", "--bearing", BEARING, "--format", "json")
+    rc, out, err = _run(capsys, f, "--rpm", f"{rpm:.3f}", "--bearing", BEARING, "--unit", "g", "--format", "json")
     assert rc == 0, err
     doc = json.loads(out)
     assert doc["fs_hz"] == fs and doc["rpm_source"] == "fixed"
@@ -87,7 +87,7 @@ def _error(capsys, *argv):
 def test_unreadable_empty_short_and_slow_files(tmp_path, capsys):
     garbage = tmp_path / "garbage.wav"
     garbage.write_bytes(b"RIFF0000WAVEnot really")
-    assert str(garbage) in _error(capsys, garbage, "--rpm", 1500) and "cannot read" in _error(capsys, garbage, "--rpm", 1500)
+    assert str(garbage) in _error(capsys, garbage, "--rpm", 1500) and "not a readable sound file" in _error(capsys, garbage, "--rpm", 1500)
     empty = tmp_path / "empty.wav"
     soundfile.write(empty, np.zeros(0, np.float32), 25600, subtype="FLOAT")
     assert _error(capsys, empty, "--rpm", 1500) == f"rotorwatch: {empty}: holds no samples"

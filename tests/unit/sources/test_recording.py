@@ -178,3 +178,34 @@ def test_restart_after_close_counts_and_replays(tmp_path):
     src.start(); second = _drain(src); src.close()
     assert src.stats.restarts == 1 and len(first) == len(second) == 3
     assert second[0].gap  # a reopened stream does not continue the previous one
+
+
+def test_acceleration_recordings_play_as_volts_through_the_configured_sensitivity(tmp_path):
+    """A file that names its unit (the one reader, rotorwatch.recordings) is turned into volts at the
+    input: g x 9.80665 (standard gravity) x V per m/s^2, per channel."""
+    from rotorwatch.recordings import write_wav
+    from rotorwatch.settings.models import G_N
+
+    x = _signal(6000)
+    sens = [0.0102, 0.0051]
+    npz = tmp_path / "g.npz"
+    np.savez(npz, channels=x, fs=float(FS))  # no unit entry: g
+    wav = tmp_path / "accel.wav"
+    write_wav(wav, x, FS, "m/s2")
+    for path, per_unit in ((npz, G_N), (wav, 1.0)):
+        src = RecordingSource(path, FS, 2, 1024, pace=False, volts_per_m_s2=sens)
+        with src:
+            got = np.concatenate([c.frames for c in _drain(src)])
+        assert src.unit == ("g" if path is npz else "m/s2")
+        np.testing.assert_allclose(got, x * per_unit * np.array(sens), rtol=1e-6)
+    with pytest.raises(InputError) as err:
+        RecordingSource(npz, FS, 2, 1024, pace=False, volts_per_m_s2=[0.0102, None]).start()
+    assert "no sensor is configured on channel(s) 1" in str(err.value) and "\n" not in str(err.value)
+
+
+def test_check_reports_what_start_would_refuse(tmp_path):
+    sf.write(tmp_path / "mono.wav", _signal(1000, channels=1), 44100, subtype="FLOAT")
+    with pytest.raises(InputError, match="sample rate 44100 Hz"):
+        RecordingSource(tmp_path / "mono.wav", FS, 2, 1024).check()
+    with pytest.raises(InputError, match="no such file"):
+        RecordingSource(tmp_path / "missing.wav", FS, 2, 1024).check()
