@@ -93,9 +93,12 @@ class TrendSettings(_Model):
 class SnapshotSettings(_Model):
     """Evidence snapshots (``snapshots/``): when they are taken and how much disk they may use.
 
-    A snapshot is taken when a value or point of a machine enters one of ``on_transition_to`` (at most
-    once per ``min_interval_s`` per machine), once a day at ``daily_at_utc`` (``HH:MM``, UTC; absent:
-    never) and on request. The oldest snapshots are deleted when the total passes ``quota_bytes``.
+    A snapshot is taken when a value, point or machine enters one of ``on_transition_to``, once a day at
+    ``daily_at_utc`` (``HH:MM``, UTC; absent: never) and on request. Every transition is kept except a
+    repeat: the same value (or point, or machine) entering the same state again within
+    ``min_interval_s`` of its last snapshot (a flapping value). Times are the data's (sped-up simulated
+    or replayed input counts in its own time; see :mod:`rotorwatch.storage.snapshot_policy`). The oldest
+    snapshots are deleted when the total passes ``quota_bytes``.
     """
 
     quota_bytes: int = Field(512 * MIB, ge=MIB)

@@ -4,21 +4,33 @@
 ``(reason, detail)`` or ``None``:
 
 - ``transition``: an event of the update moves a value, point or machine into one of
-  ``on_transition_to`` (``warning``, ``alarm``, ``sensor_fault``), at most once per ``min_interval_s``
-  per machine (an alarm that flaps does not fill the disk; the quota still bounds it);
+  ``on_transition_to`` (``warning``, ``alarm``, ``sensor_fault``);
 - ``schedule``: the daily slot ``daily_at_utc`` has passed and no scheduled snapshot of the machine
   was taken since (see :class:`DailySchedule`).
 
+The rule for transitions: **every transition is evidence, only a repeat is not.** A transition is
+kept unless the same subject (the same value, point or machine) entered the same state within
+``min_interval_s`` of the snapshot that already holds that entry. So an escalation (warning, then
+alarm), a second value crossing its level or another point going wrong is always kept, however soon it
+comes, while a value that flaps across a level stores one snapshot per interval (the disk quota bounds
+the rest).
+
+Time is the update's own (``update.time_s``, the time of the data): the wall clock for live input, the
+scenario's or the recording's clock for simulated or replayed input. A simulation sped up 8640 times
+runs a month in five minutes; measured on the wall clock, ten minutes between snapshots would have
+dropped everything after the first transition, and a day-long slot would never come.
+
 The policy remembers what it answered (it assumes the caller saves the snapshot) and, when given the
-store, starts from the newest snapshots on disk, so a restart neither repeats nor skips the day's one.
-Requests from an operator (``command``) need no policy: save with ``reason="command"``.
+store, starts from the newest snapshots on disk, so a restart neither repeats nor skips the day's one,
+nor a flapping value's. Requests from an operator (``command``) need no policy: save with
+``reason="command"``.
 """
 
 from __future__ import annotations
 
-import time
+import math
 from datetime import datetime, timedelta, timezone
-from typing import Any, Callable
+from typing import Any
 
 from ..alarms.records import MachineUpdate
 
@@ -63,13 +75,13 @@ class SnapshotPolicy:
     :class:`~rotorwatch.storage.settings.SnapshotSettings`; ``store``: a
     :class:`~rotorwatch.storage.snapshots.SnapshotStore` to resume from, optional)."""
 
-    def __init__(self, settings: Any, store: Any = None, *, clock: Callable[[], float] = time.time) -> None:
+    def __init__(self, settings: Any, store: Any = None) -> None:
         self.states = tuple(settings.on_transition_to)
         self.min_interval_s = float(settings.min_interval_s)
         self.schedule = DailySchedule(settings.daily_at_utc) if settings.daily_at_utc else None
         self._store = store
-        self._clock = clock
         self._last: dict[tuple[str, str], float | None] = {}
+        self._entries: dict[str, dict[tuple[str | None, str, str], float]] = {}  # machine -> entry -> time
 
     def _last_time(self, machine_id: str, reason: str) -> float | None:
         key = (machine_id, reason)
@@ -77,14 +89,39 @@ class SnapshotPolicy:
             self._last[key] = self._store.last_time(machine_id, reason) if self._store is not None else None
         return self._last[key]
 
+    def _entries_of(self, machine_id: str) -> dict[tuple[str | None, str, str], float]:
+        """(point, value, state) -> time of the newest transition snapshot holding that entry."""
+        if machine_id not in self._entries:
+            seen: dict[tuple[str | None, str, str], float] = {}
+            if self._store is not None:
+                for info in self._store.list(machine_id):
+                    if info.reason != "transition":
+                        continue
+                    try:
+                        events = self._store.load(info.id).get("events", [])
+                    except Exception:  # noqa: BLE001 - a damaged sidecar only loses its memory
+                        continue
+                    for e in events:
+                        if e.get("new_state") in self.states:
+                            key = (e.get("point_id"), str(e.get("value_name")), str(e.get("new_state")))
+                            seen[key] = max(seen.get(key, info.time_s), info.time_s)
+            self._entries[machine_id] = seen
+        return self._entries[machine_id]
+
     def decide(self, update: MachineUpdate, now_s: float | None = None) -> tuple[str, str] | None:
-        """``(reason, detail)`` when a snapshot of this update should be saved, else None."""
-        now = self._clock() if now_s is None else float(now_s)
+        """``(reason, detail)`` when a snapshot of this update should be saved, else None.
+
+        ``now_s`` defaults to the update's own time (see the module docstring)."""
+        now = float(update.time_s) if now_s is None else float(now_s)
         mid = update.machine_id
         entering = [e for e in update.events if e.new_state in self.states and e.new_state != e.old_state]
         if entering:
-            last = self._last_time(mid, "transition")
-            if last is None or now - last >= self.min_interval_s:
+            seen = self._entries_of(mid)
+            new = [e for e in entering
+                   if now - seen.get((e.point_id, e.value_name, e.new_state), -math.inf) >= self.min_interval_s]
+            if new:
+                for e in entering:
+                    seen[(e.point_id, e.value_name, e.new_state)] = now
                 self._last[(mid, "transition")] = now
                 detail = "; ".join(
                     f"{e.point_id or 'machine'}/{e.value_name} {e.old_state}->{e.new_state}" for e in entering)

@@ -267,3 +267,37 @@ def test_cli_errors_are_one_line(state_dir, tmp_path):
         done = subprocess.run(argv, capture_output=True, text=True, timeout=60)
         assert done.returncode == 2, done.stderr
         assert done.stderr.count("\n") == 1 and needle in done.stderr and "Traceback" not in done.stderr
+
+
+def test_policy_keeps_every_escalation_and_drops_only_repeats(tmp_path):
+    """Warning then alarm of the same value, seconds apart: both are evidence. The same value entering
+    the same state again within min_interval_s (flapping) is not kept twice."""
+    policy = SnapshotPolicy(SnapshotSettings(min_interval_s=600, daily_at_utc=None), SnapshotStore(tmp_path / "s"))
+    t = T0 + 12 * 3600
+    assert policy.decide(update(t, events=[transition(t, new="warning")]))[0] == "transition"
+    esc = transition(t + 5, new="alarm")
+    assert policy.decide(update(t + 5, events=[esc])) == ("transition", "de/overall normal->alarm")
+    other = transition(t + 6, point_id="nde", new="warning")
+    assert policy.decide(update(t + 6, events=[other]))[0] == "transition"  # another point: kept
+    assert policy.decide(update(t + 60, events=[transition(t + 60, new="warning")])) is None  # a repeat
+    assert policy.decide(update(t + 700, events=[transition(t + 700, new="warning")]))[0] == "transition"
+
+
+def test_policy_counts_in_the_time_of_the_data(tmp_path):
+    """A sped-up simulation: updates 9.6 h apart in their own time arrive seconds apart on the wall clock.
+    The interval and the daily slot are measured on the data's clock (update.time_s)."""
+    policy = SnapshotPolicy(SnapshotSettings(min_interval_s=600, daily_at_utc="03:00"), SnapshotStore(tmp_path / "s"))
+    step = 9.6 * 3600
+    answers = [policy.decide(update(T0 + k * step, events=[transition(T0 + k * step, new="warning")]))
+               for k in range(4)]
+    assert [a[0] for a in answers] == ["transition"] * 4  # a repeat, but 9.6 h later in the data's time
+    slot = datetime(2026, 1, 3, 3, 30, tzinfo=timezone.utc).timestamp()
+    assert policy.decide(update(slot)) == ("schedule", "daily at 03:00 UTC")
+
+
+def test_policy_remembers_entries_across_a_restart(tmp_path):
+    store = SnapshotStore(tmp_path / "snapshots")
+    save_one(store, t=T0)  # holds de/overall normal->alarm
+    policy = SnapshotPolicy(SnapshotSettings(min_interval_s=600, daily_at_utc=None), store)
+    assert policy.decide(update(T0 + 30, events=[transition(T0 + 30)])) is None  # the same entry, 30 s later
+    assert policy.decide(update(T0 + 40, events=[transition(T0 + 40, new="warning")]))[0] == "transition"
