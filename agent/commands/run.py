@@ -12,7 +12,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--state-dir", metavar="DIR",
                    help="folder for baselines and snapshots (default: storage.state_dir of the config)")
     bounded = p.add_mutually_exclusive_group()
-    bounded.add_argument("--once", action="store_true", help="stop after the first update round")
+    bounded.add_argument("--once", action="store_true",
+                         help="stop after the first update round; an input that cannot start is an error (exit 2)")
     bounded.add_argument("--max-updates", type=int, metavar="N", help="stop after N update rounds")
     p.add_argument("--duration", type=float, metavar="S", help="stop after S seconds (wall clock)")
     p.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
@@ -34,6 +35,7 @@ def run(args: argparse.Namespace) -> int:
     options = RunOptions(
         state_dir=args.state_dir,
         max_updates=1 if args.once else args.max_updates,
+        fail_fast=bool(args.once),
         duration_s=args.duration,
         overrides=tuple(args.overrides),
     )

@@ -12,6 +12,9 @@ Faults, all reported through :attr:`Capture.status` and counted in :class:`SelfS
 - the source delivers nothing for longer than ``stall_after_s`` (wall clock): ``stalled``; the source
   is closed and reopened with back-off;
 - ``read()`` raises (a device unplugged): closed and reopened with back-off;
+- the input ends (a scenario or a recording without ``loop``): ``ended``, and it stays ended (it is not
+  started again, so a finished simulation never turns back into a healthy machine unannounced); a raw
+  stream that ends is reopened after ``backoff_max_s``;
 - a chunk with ``gap`` set: the rings restart filling, so no window splices the two sides of a gap;
 - a chunk with ``overflow`` set (samples lost in the driver or on a full queue): counted, and its mapped
   start time kept in :attr:`Capture.last_overflow_s`, so the daemon reports every window that holds
@@ -41,6 +44,7 @@ from ..settings.models import Acquisition
 log = logging.getLogger(__name__)
 
 POSIX_PLAUSIBLE_S = 1e9  # chunk times below this are not wall-clock (a scenario clock from 0)
+FINITE_SOURCES = ("simulated", "recording")  # inputs that end for good (without acquisition.loop)
 
 
 @dataclass(frozen=True)
@@ -150,6 +154,15 @@ class Capture:
                 log.warning("capture thread did not stop in time", extra=fields(timeout_s=timeout_s))
         self._set_status("stopped", "daemon stopping")
 
+    def end_reason(self) -> str:
+        """Why the input ended, in the words of its kind."""
+        kind = self.acquisition.source
+        if kind == "simulated":
+            return "the simulated scenario has ended (acquisition.loop = false); the last state is held"
+        if kind == "recording":
+            return "the recording has ended (acquisition.loop = false); the last state is held"
+        return "the input stream has ended; waiting for it to come back"
+
     def _close_source(self) -> None:
         src, self.source = self.source, None
         if src is not None:
@@ -191,9 +204,12 @@ class Capture:
                 now = time.monotonic()
                 if chunk is None:
                     if getattr(self.source, "ended", False):
-                        self._set_status("ended", "the input has ended (a recording without loop)")
+                        self._set_status("ended", self.end_reason())
                         self._close_source()
-                        self._stop.wait(self.backoff_max_s)
+                        if self.acquisition.source in FINITE_SOURCES:
+                            self._stop.wait()  # a scenario or a recording is over: never start it again unasked
+                            break
+                        self._stop.wait(self.backoff_max_s)  # a raw stream's writer may come back
                         continue
                     if self.last_data_monotonic is not None and now - self.last_data_monotonic > self.stall_after_s:
                         self.stats.inc("source_stalls")

@@ -37,7 +37,7 @@ from .. import __version__
 from ..alarms.records import MachineUpdate, SensorHealth
 from ..errors import ConfigError, RotorwatchError
 from . import payloads
-from .capture import Capture
+from .capture import FINITE_SOURCES, Capture
 from .commands import Command, CommandRejected, parse_command
 from .evidence import Evidence
 from .logs import RepeatLimiter, fields
@@ -64,6 +64,9 @@ class RunOptions:
     duration_s: float | None = None  # stop after this many wall seconds (tests)
     overrides: tuple[str, ...] = ()  # --set section.key=value, applied at start and on every reload
     stop_timeout_s: float = 5.0
+    # --once: an input that cannot be opened before the first update ends the run (exit 2) instead of
+    # being retried with back-off as a long-running daemon does
+    fail_fast: bool = False
     # READY=1 goes out after the first good update; if the input stays away this long after start,
     # it goes out anyway (the daemon is up and reporting the fault), so systemd does not kill it.
     ready_grace_s: float = 30.0
@@ -187,6 +190,7 @@ class Daemon:
         self.collector = UpdateCollector(config, self.stats)
         self.runtimes = self._build_runtimes(config)  # ConfigError from the pipelines: exit non-zero
         self._warn_exposed_secrets(config)
+        self._preflight(config)  # what the source would refuse, before anything starts (exit 2)
         self.evidence = Evidence(config, self.state_dir)  # StorageError (one line) if the stores cannot open
         self._open_spool(config)
         log.info("rotorwatch starting", extra=fields(
@@ -206,6 +210,15 @@ class Daemon:
         finally:
             self._shutdown()
         return 0
+
+    def _preflight(self, config: Config) -> None:
+        """Build the source and let it check what ``start()`` would refuse (a recording without a path,
+        a file of the wrong rate): a ConfigError or InputError here ends the start-up in one line.
+        Nothing is opened: a device that is missing now is retried by the capture thread."""
+        source = self._source_factory(config, self.config_dir)
+        check = getattr(source, "check", None)
+        if check is not None:
+            check()
 
     def _warn_exposed_secrets(self, config: Config) -> None:
         from .secret_files import readable_by_all, warning_line
@@ -378,6 +391,13 @@ class Daemon:
         if cap is None:
             return
         status = cap.status
+        if self.status_board is not None:
+            self.status_board.set_input(status.state, status.reason)
+        if status.state == "ended" and self.config is not None and self.config.acquisition.source in FINITE_SOURCES:
+            self._input_ended(status)
+            return
+        if status.state == "unavailable" and self.options.fail_fast and self.rounds == 0:
+            raise RotorwatchError(f"input {self.config.acquisition.source if self.config else ''}: {status.reason}")
         if status.state in ("stalled", "unavailable", "ended"):
             self._report_no_input(status)
             if not self.notifier.ready_sent and time.monotonic() - self._started > self.options.ready_grace_s:
@@ -528,6 +548,21 @@ class Daemon:
             if fault is not None and self._faults_now.get(key) != fault:
                 self.stats.inc("sensor_faults", machine=update.machine_id, point=pid, fault=fault)
             self._faults_now[key] = fault
+
+    def _input_ended(self, status) -> None:
+        """A scenario or a recording is over: the last state stays as it was (published, on the page),
+        not replaced by no_data; a bounded run (--once, --max-updates) stops here."""
+        if not getattr(self, "_end_logged", False):
+            self._end_logged = True
+            log.info(f"input ended: {status.reason}", extra=fields(updates=self.rounds, states=",".join(
+                f"{m}={rt.last_update.state}" for m, rt in self.runtimes.items() if rt.last_update)))
+            if not self.notifier.ready_sent:
+                self.notifier.ready(f"input ended: {status.reason}")
+        if self.options.max_updates is not None:
+            if self.rounds == 0:
+                raise RotorwatchError(f"the input ended before the first update ({status.reason}); "
+                                      "is it shorter than one analysis window?")
+            self.request_stop(f"the input ended after {self.rounds} update rounds")
 
     def _report_no_input(self, status) -> None:
         """While the source is stalled or gone, every machine's points read sensor_fault / no_data."""

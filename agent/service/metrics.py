@@ -107,6 +107,14 @@ class UpdateCollector:
                                 labels=["agent"])
         info.add_metric([config.site.agent_id], {"version": __version__, "python": platform.python_version()})
         yield info
+        from ..sources.base import input_clock
+
+        clock = input_clock(config.acquisition)
+        time_info = InfoMetricFamily(f"{P}clock", "whose time the readings carry: wall, simulated or recording, "
+                                     "and how many times faster than the wall clock it runs", labels=["agent"])
+        time_info.add_metric([config.site.agent_id], {"clock": clock["clock"], "speedup": f"{clock['speedup']:g}",
+                                                      "notice": clock["notice"] or "wall clock"})
+        yield time_info
 
     def _measurements(self, config: Config, latest: dict[str, MachineUpdate]) -> Iterator[Metric]:
         agent = config.site.agent_id

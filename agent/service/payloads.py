@@ -255,7 +255,13 @@ def command_result_payload(agent_id: str, time_s: float, command: str | None, ok
     }
 
 
-def hello_payload(agent_id: str, site_name: str, machines: list[str]) -> dict[str, Any]:
-    """Retained description of the agent (``<prefix>/<agent>/info``)."""
-    return {"schema": SCHEMA, "agent": agent_id, "site": site_name, "version": __version__,
-            "machines": machines, "notice": ADVISORY}
+def hello_payload(agent_id: str, site_name: str, machines: list[str],
+                  clock: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Retained description of the agent (``<prefix>/<agent>/info``); ``clock``: whose time the
+    payloads carry (:func:`rotorwatch.sources.base.input_clock`: simulated or recorded input may run
+    faster than the wall clock)."""
+    out = {"schema": SCHEMA, "agent": agent_id, "site": site_name, "version": __version__,
+           "machines": machines, "notice": ADVISORY}
+    if clock is not None:
+        out["clock"] = clock
+    return out

@@ -39,7 +39,10 @@ class UpdatePublisher:
         self._machines = {m.id: m for m in config.machines}
 
     def publish_info(self) -> None:
-        info = payloads.hello_payload(self.agent_id, self.config.site.name, [m.id for m in self.config.machines])
+        from ..sources.base import input_clock
+
+        info = payloads.hello_payload(self.agent_id, self.config.site.name, [m.id for m in self.config.machines],
+                                      input_clock(self.config.acquisition))
         self.link.publish(self.topics.info, payloads.encode(info), retain=True)
         self.publish_discovery()
 

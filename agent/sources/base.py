@@ -325,6 +325,25 @@ def channel_full_scale_v(config: Any) -> list[float]:
     return scale
 
 
+def input_clock(acquisition: Any) -> dict[str, Any]:
+    """How the times of this input relate to the wall clock, for people (page, metrics, MQTT).
+
+    ``clock`` is ``wall`` for live input (a sound interface, a raw stream), ``simulated`` for a
+    scenario and ``recording`` for a file; ``speedup`` is how many times faster than the wall clock
+    those times run; ``notice`` says it in a few words (empty for the wall clock).
+    """
+    kind = acquisition.source
+    speedup = float(acquisition.speedup)
+    x = f"x{speedup:g}"
+    if kind == "simulated":
+        return {"clock": "simulated", "speedup": speedup,
+                "notice": f"simulated time, {x}" if speedup != 1 else "simulated input, real time"}
+    if kind == "recording":
+        return {"clock": "recording", "speedup": speedup,
+                "notice": f"recorded input, played {x}" if speedup != 1 else "recorded input, real time"}
+    return {"clock": "wall", "speedup": 1.0, "notice": ""}
+
+
 def channel_sensitivity_v_per_m_s2(config: Any) -> list[float | None]:
     """Per input channel, the sensitivity (V per m/s^2) of the sensor wired to it, None where no point
     uses the channel. A recording in g or m/s^2 plays through these into volts at the input."""

@@ -93,6 +93,7 @@ class StatusBoard:
         self._machines: dict[str, _MachineEntry] = {m.id: _MachineEntry() for m in config.machines}
         self._events: deque = deque(maxlen=int(events_length))
         self._revision = 0
+        self._input = ("starting", "")  # the capture's state and reason (set_input)
 
     # ------------------------------------------------------------------------------ writing side
     def reconfigure(self, config: Config) -> None:
@@ -101,6 +102,13 @@ class StatusBoard:
             self._config = config
             self._machines = {m.id: self._machines.get(m.id, _MachineEntry()) for m in config.machines}
             self._revision += 1
+
+    def set_input(self, state: str, reason: str) -> None:
+        """The input's state (``running``, ``stalled``, ``ended``, ...) and why, for the page."""
+        with self._lock:
+            if self._input != (state, reason):
+                self._input = (state, reason)
+                self._revision += 1
 
     def publish(self, update: MachineUpdate, blocks_v: Mapping[str, np.ndarray] | None = None) -> None:
         """Take one machine's update (and, optionally, the point's raw blocks in volts for the waveform).
@@ -182,6 +190,14 @@ class StatusBoard:
             return (self._config, {mid: dataclasses.replace(e, points=dict(e.points)) for mid, e in self._machines.items()},
                     list(self._events), self._revision)
 
+    def _input_view(self, config: Config) -> dict:
+        from ..sources.base import input_clock
+
+        with self._lock:
+            state, reason = self._input
+        return {"source": config.acquisition.source, "state": state, "reason": reason,
+                **input_clock(config.acquisition)}
+
     def _freshness(self, config: Config, received_s: float | None, now: float) -> tuple[float | None, bool]:
         if received_s is None:
             return None, True
@@ -237,6 +253,7 @@ class StatusBoard:
             "now_s": now,
             "revision": revision,
             "update_interval_s": config.acquisition.update_interval_s / config.acquisition.speedup,
+            "input": self._input_view(config),
             "machines": out,
             "events": [views.event_view(e) for e in reversed(events)],
         }

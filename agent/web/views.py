@@ -83,14 +83,18 @@ def minmax_downsample(values: np.ndarray, max_points: int) -> tuple[np.ndarray, 
 
 # --------------------------------------------------------------------------------------- spectra
 def spectrum_view(spectrum: Spectrum, max_points: int) -> dict:
+    """A spectrum for the page. ``n_lines`` counts lines the way the configuration and ``rotorwatch
+    check`` do: ``fmax / resolution``, the lines above 0 Hz (the DC bin is not a line)."""
     f, a = peak_downsample(spectrum.freqs_hz, spectrum.amplitude, max_points)
-    n_lines = int(np.asarray(spectrum.amplitude).size)
-    df = float(spectrum.freqs_hz[1] - spectrum.freqs_hz[0]) if n_lines > 1 else None
+    freqs = np.asarray(spectrum.freqs_hz, dtype=float)
+    n_bins = int(freqs.size)
+    n_lines = int(np.count_nonzero(freqs > 0))
+    df = float(freqs[1] - freqs[0]) if n_bins > 1 else None
     return {
         "unit": spectrum.unit,
         "n_lines": n_lines,
         "resolution_hz": sig(df),
-        "fmax_hz": sig(float(spectrum.freqs_hz[-1])) if n_lines else None,
+        "fmax_hz": sig(float(freqs[-1])) if n_bins else None,
         "freqs_hz": sig_list(f, 6),
         "amplitude": sig_list(a, 4),
     }
@@ -200,8 +204,22 @@ def value_quantity(machine: Machine, name: str) -> str:
     return "other"
 
 
+def pending_level(status) -> str | None:
+    """``alarm`` (or ``warning``) when the value is at or above that level but its state has not risen
+    to it yet: the on-delay is running. The tracker raises a level as soon as its on-delay has run out,
+    so a value at or above a level in a lower state is exactly one that waits out its on-delay
+    (:class:`rotorwatch.alarms.levels.LevelTracker`)."""
+    rank = {"learning": 0, "normal": 0, "warning": 1, "alarm": 2}
+    if status.state not in rank or status.value is None or not math.isfinite(status.value):
+        return None
+    for kind, level in (("alarm", status.alarm_level), ("warning", status.warning_level)):
+        if level is not None and status.value >= level and rank[status.state] < rank[kind]:
+            return kind
+    return None
+
+
 def value_rows(machine: Machine, values: dict) -> list[dict]:
-    """One row per trended value: the value, its effective levels and its state."""
+    """One row per trended value: the value, its effective levels, its state and a pending level."""
     rows = []
     order = ["overall"] + [b.name for b in machine.bands]
     for name in sorted(values, key=lambda n: (order.index(n) if n in order else len(order), n)):
@@ -212,6 +230,7 @@ def value_rows(machine: Machine, values: dict) -> list[dict]:
             "value": sig(v.value),
             "unit": v.unit,
             "state": v.state,
+            "pending": pending_level(v),
             "warning": sig(v.warning_level),
             "alarm": sig(v.alarm_level),
             "baseline": sig(v.baseline),

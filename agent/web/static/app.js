@@ -21,6 +21,7 @@
   };
   const QUANTITY_WORD = { acceleration: "acceleration", velocity: "velocity", envelope: "envelope" };
   const SPANS_HZ = [50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000];
+  const LABEL_ROWS = 4, LABEL_ROW_PX = 14, LABEL_FONT_PX = 11, LABEL_GAP_PX = 5;  // marker labels above the spectrum
 
   const ui = {
     overview: null,
@@ -142,9 +143,10 @@
     return r.json();
   }
 
-  function setLink(state, text) {
+  function setLink(state, text, title) {
     const link = $("#link");
     link.dataset.link = state;
+    link.title = title || "";
     // restart the beat animation on every good poll
     if (state === "live") { const b = $(".beat", link); b.style.animation = "none"; void b.offsetWidth; b.style.animation = ""; }
     $("#link-text").textContent = text;
@@ -161,8 +163,11 @@
     }
     ui.overview = ov;
     ui.lastOk = Date.now();
+    const inp = ov.input || {};
+    renderClockNotice(inp);
     const anyStale = ov.machines.some((m) => m.stale && m.age_s !== null);
-    setLink(anyStale ? "stale" : "live", anyStale ? "agent answers, data stale" : "live · " + clock(ov.now_s));
+    if (inp.state === "ended") setLink("ended", "input ended · last state held", inp.reason);
+    else setLink(anyStale ? "stale" : "live", anyStale ? "agent answers, data stale" : "live · " + clock(ov.now_s));
     renderOverview(ov);
     ensureSelection(ov);
     const m = ov.machines.find((x) => x.id === ui.machine);
@@ -191,6 +196,25 @@
     } catch (err) {
       setLink("lost", "point data unavailable");
     }
+  }
+
+  // Simulated or recorded input carries its own time, faster than the wall clock: say so wherever a
+  // date or time of the data is shown.
+  function renderClockNotice(inp) {
+    const box = $("#clock-notice");
+    const sped = inp.clock && inp.clock !== "wall";
+    box.hidden = !sped;
+    box.dataset.clock = inp.clock || "wall";
+    if (!sped) { $("#events-hint").textContent = "newest first"; return; }
+    box.textContent = inp.notice;
+    box.title = "Dates and times of readings on this page are the " + (inp.clock === "simulated" ? "simulation's" : "recording's") +
+      " own" + (inp.speedup > 1 ? ", running " + fmt(inp.speedup, 6) + " times faster than the wall clock" : "") +
+      "; the clock in the corner is the wall clock.";
+    $("#events-hint").textContent = "newest first · " + inp.notice;
+  }
+  function dataTimeNote() {
+    const inp = (ui.overview && ui.overview.input) || {};
+    return inp.clock === "simulated" ? " (simulated time)" : inp.clock === "recording" ? " (recording time)" : "";
   }
 
   // --------------------------------------------------------------- selection
@@ -241,7 +265,8 @@
         tile(p.state),
         el("span", { class: "pt-name", text: p.name }),
         el("div", { class: "pt-sub" }, [
-          el("span", { class: "pt-state" }, [word(p.state), document.createTextNode(p.sensor && !p.sensor.ok && p.sensor.fault ? " · " + p.sensor.fault : "")]),
+          el("span", { class: "pt-state" }, [word(p.state), document.createTextNode(p.sensor && !p.sensor.ok && p.sensor.fault ? " · " + p.sensor.fault : ""),
+            pendingNote(p.values, "inline")]),
           el("span", { class: "pt-overall", text: p.overall_mm_s === null ? "–" : fmt(p.overall_mm_s) + " mm/s" }),
           zoneRuler(p.overall_mm_s, m.iso, p.zone),
         ]),
@@ -309,9 +334,9 @@
     ]);
     head.replaceChildren(
       tile(pd.state, true),
-      el("div", {}, [
-        el("div", { class: "title" }, [document.createTextNode(pd.name + "  "), word(pd.state)]),
-        el("div", { class: "reason", text: unitText(pd.reason) + (pd.time_s ? " · analysed " + when(pd.time_s) : "") }),
+      el("div", { class: "ph-text" }, [
+        el("div", { class: "title" }, [document.createTextNode(pd.name + "  "), word(pd.state), pendingNote(pd.values, "inline")]),
+        el("div", { class: "reason", text: unitText(pd.reason) + (pd.time_s ? " · analyzed " + when(pd.time_s) + dataTimeNote() : "") }),
       ]),
       overall,
     );
@@ -400,8 +425,11 @@
     ctx.fillStyle = css("--ink-2");
     ctx.textAlign = "right"; ctx.textBaseline = "bottom";
     if (xLabel) ctx.fillText(xLabel, box.x1, box.y1 + 26);
-    ctx.textAlign = "left"; ctx.textBaseline = "bottom";
-    if (yLabel) ctx.fillText(yLabel, box.x0 - 44, box.y0 - 6);
+    if (yLabel) {  // along the axis, left of the tick labels: the space above the plot is the markers'
+      ctx.save(); ctx.translate(12, (box.y0 + box.y1) / 2); ctx.rotate(-Math.PI / 2);
+      ctx.textAlign = "center"; ctx.textBaseline = "middle"; ctx.fillText(yLabel, 0, 0);
+      ctx.restore();
+    }
     ctx.restore();
   }
   function linearTicks(lo, hi, target, toPx, digits) {
@@ -435,7 +463,9 @@
       $("#spectrum-info").textContent = "";
       return;
     }
-    const box = { x0: 58, x1: w - 12, y0: 34, y1: h - 30 };
+    const fams = ui.families[ui.quantity];
+    const shown = (pd.markers || []).filter((m) => fams.includes(m.family) && m.freq_hz > 0 && m.freq_hz <= spanFor(spec, pd));
+    const box = { x0: 62, x1: w - 12, y0: 22 + LABEL_ROW_PX, y1: h - 30 };  // y0 grows with the label rows
     const fmax = spanFor(spec, pd);
     const f = spec.freqs_hz, a = spec.amplitude;
     let ymax = 0, ymin = Infinity, nIn = 0;
@@ -455,6 +485,27 @@
       yLo = Math.max(isFinite(ymin) ? Math.pow(10, Math.floor(Math.log10(ymin))) : yHi / 1e4, yHi / 1e5);
     } else { yLo = 0; yHi = ymax * 1.12; }
     const X = (v) => box.x0 + (box.x1 - box.x0) * v / fmax;
+    // marker labels above the plot: fundamentals first, each on the first of at most LABEL_ROWS rows
+    // where it overlaps nothing, kept inside the canvas; the plot starts below the rows used. A label
+    // that finds no room is left out (its flag and line stay) and counted.
+    const placed = [];
+    let hidden = 0;
+    ctx.save();
+    ctx.font = LABEL_FONT_PX + "px " + css("--sans");
+    for (const m of shown.slice().sort((p, q) => (p.k - q.k) || (p.freq_hz - q.freq_hz))) {
+      const px = Math.round(X(m.freq_hz)) + 0.5;
+      const tw = ctx.measureText(m.label).width;
+      const left = Math.min(Math.max(px - tw / 2, 2), w - 2 - tw);
+      let row = -1;
+      for (let r = 0; r < LABEL_ROWS && row < 0; r++) {
+        if (!placed.some((l) => l.row === r && left < l.x + l.w + LABEL_GAP_PX && l.x < left + tw + LABEL_GAP_PX)) row = r;
+      }
+      if (row < 0) { hidden++; continue; }
+      placed.push({ row, x: left, w: tw, label: m.label, k: m.k, family: m.family, px });
+    }
+    ctx.restore();
+    box.y0 = 22 + LABEL_ROW_PX * Math.max(1, ...placed.map((l) => l.row + 1));
+    for (const l of placed) { l.base = box.y0 - 9 - l.row * LABEL_ROW_PX; l.y = l.base - LABEL_FONT_PX; l.h = LABEL_FONT_PX + 2; }
     const Y = log
       ? (v) => box.y1 - (box.y1 - box.y0) * (Math.log10(Math.max(v, yLo)) - Math.log10(yLo)) / (Math.log10(yHi) - Math.log10(yLo))
       : (v) => box.y1 - (box.y1 - box.y0) * (v - yLo) / (yHi - yLo);
@@ -492,6 +543,19 @@
     } else yt = linearTicks(0, yHi, 5, Y);
     axes(ctx, box, xt, yt, "Hz", unitText(spec.unit) + " RMS");
 
+    // marker lines BEHIND the trace, light: a marker never hides the peak it marks
+    ctx.save();
+    ctx.beginPath(); ctx.rect(box.x0, box.y0, box.x1 - box.x0, box.y1 - box.y0); ctx.clip();
+    for (const m of shown) {
+      const px = Math.round(X(m.freq_hz)) + 0.5;
+      ctx.strokeStyle = FAMILY[m.family].color;
+      ctx.globalAlpha = m.k === 1 ? 0.55 : 0.35;
+      ctx.setLineDash(m.k === 1 ? [] : [3, 3]);
+      ctx.lineWidth = 1;
+      ctx.beginPath(); ctx.moveTo(px, box.y0); ctx.lineTo(px, box.y1); ctx.stroke();
+    }
+    ctx.restore();
+
     // trace
     ctx.save();
     ctx.beginPath(); ctx.rect(box.x0, box.y0, box.x1 - box.x0, box.y1 - box.y0); ctx.clip();
@@ -505,31 +569,32 @@
     ctx.strokeStyle = css("--trace"); ctx.lineWidth = 1.3; ctx.lineJoin = "round"; ctx.stroke();
     ctx.restore();
 
-    // markers of the families switched on
-    const fams = ui.families[ui.quantity];
-    let nMarkers = 0;
+    // flags on top of the plot edge, then the labels placed above
     ctx.save();
-    ctx.font = "11px " + css("--sans"); ctx.textAlign = "center"; ctx.textBaseline = "bottom";
-    const labelled = [];
-    for (const m of pd.markers || []) {
-      if (!fams.includes(m.family) || m.freq_hz > fmax || m.freq_hz <= 0) continue;
-      nMarkers++;
+    ctx.font = LABEL_FONT_PX + "px " + css("--sans"); ctx.textBaseline = "alphabetic"; ctx.textAlign = "left";
+    for (const m of shown) {
       const px = Math.round(X(m.freq_hz)) + 0.5;
-      ctx.strokeStyle = FAMILY[m.family].color;
-      ctx.globalAlpha = m.k === 1 ? 0.95 : 0.6;
-      ctx.setLineDash(m.k === 1 ? [] : [3, 3]);
-      ctx.lineWidth = m.k === 1 ? 1.4 : 1;
-      ctx.beginPath(); ctx.moveTo(px, box.y0); ctx.lineTo(px, box.y1); ctx.stroke();
-      // a small flag on top; labels only where they do not collide
-      ctx.setLineDash([]); ctx.globalAlpha = 1; ctx.fillStyle = FAMILY[m.family].color;
+      ctx.fillStyle = FAMILY[m.family].color;
       ctx.beginPath(); ctx.moveTo(px - 3.5, box.y0 - 7); ctx.lineTo(px + 3.5, box.y0 - 7); ctx.lineTo(px, box.y0); ctx.closePath(); ctx.fill();
-      const tw = ctx.measureText(m.label).width;
-      if (!labelled.some((l) => Math.abs(l - px) < tw + 4)) { ctx.fillText(m.label, px, box.y0 - 9); labelled.push(px); }
+    }
+    for (const l of placed) {
+      ctx.fillStyle = FAMILY[l.family].color;
+      ctx.globalAlpha = l.k === 1 ? 1 : 0.8;
+      ctx.fillText(l.label, l.x, l.base);
+      if (l.row > 0) {  // a thin leader from the label down to its flag, past the rows below
+        ctx.globalAlpha = 0.45; ctx.strokeStyle = FAMILY[l.family].color; ctx.lineWidth = 1;
+        ctx.beginPath(); ctx.moveTo(l.px, l.base + 2); ctx.lineTo(l.px, box.y0 - 7); ctx.stroke();
+      }
+      ctx.globalAlpha = 1;
     }
     ctx.restore();
+    const nMarkers = shown.length;
 
     Object.assign(plot.dataset, { drawn: "1", quantity: ui.quantity, scale: ui.scale, points: String(nIn),
-      markers: String(nMarkers), regions: String(nRegions), spanHz: String(fmax), revision: String(pd.revision) });
+      markers: String(nMarkers), regions: String(nRegions), spanHz: String(fmax), revision: String(pd.revision),
+      labels: JSON.stringify(placed.map((l) => ({ label: l.label, k: l.k, family: l.family, x: l.x, y: l.y, w: l.w, h: l.h, px: l.px }))),
+      labelsHidden: String(hidden),
+      geometry: JSON.stringify({ x0: box.x0, x1: box.x1, y0: box.y0, y1: box.y1, fmax, yLo, yHi, log, width: w, height: h }) });
     $("#spectrum-info").textContent = spec.n_lines + " lines · Δf " + fmt(spec.resolution_hz) + " Hz · " +
       (pd.rpm ? fmt(pd.rpm, 4) + " r/min" : "speed unknown");
     ui.spectrumGeom = { box, X, fmax, f, a, unit: spec.unit };
@@ -568,16 +633,29 @@
     if (row.alarm) s += '<rect x="' + (x(row.alarm) - 1) + '" y="1" width="2" height="14" fill="' + stateColor("alarm") + '"/>';
     return s + "</svg>";
   }
+  // A value at or above a level whose on-delay is still running: "alarm pending".
+  function pendingNote(rows, how) {
+    const p = (rows || []).filter((r) => r.pending);
+    if (!p.length) return null;
+    const kind = p.some((r) => r.pending === "alarm") ? "alarm" : "warning";
+    const names = p.filter((r) => r.pending === kind).map((r) => r.name).join(", ");
+    return el("span", { class: "pending pending-" + kind + (how === "inline" ? " inline" : ""), "data-pending": kind,
+      title: names + " at or above its " + kind + " level, waiting out the on-delay",
+      text: (how === "inline" ? " · " : "") + kind + " pending" });
+  }
   function renderValues() {
     const pd = ui.pointData;
     const rows = (pd.values || []).map((r) => el("tr", {
       "data-value": r.name, "data-state": r.state, "data-reading": r.value === null ? "" : r.value,
+      "data-pending": r.pending || "",
       "aria-selected": String(r.name === ui.trendValue),
       title: r.baseline !== null ? "baseline " + fmt(r.baseline) + " " + unitText(r.unit) : "no baseline yet",
       onclick: () => { ui.trendValue = r.name; if (pd.spectra && pd.spectra[r.quantity]) ui.quantity = r.quantity; renderPoint(); },
     }, [
       el("td", {}, [tile(r.state)]),
-      el("td", {}, [el("span", { class: "vname", text: r.name }), el("span", { class: "vq", text: QUANTITY_WORD[r.quantity] || r.quantity })]),
+      el("td", {}, [el("span", { class: "vname", text: r.name }), el("span", { class: "vq", text: QUANTITY_WORD[r.quantity] || r.quantity }),
+        r.pending ? el("span", { class: "pending pending-" + r.pending, title: "at or above its " + r.pending +
+          " level, waiting out the on-delay", text: r.pending + " pending (on-delay)" }) : null]),
       el("td", { class: "num" }, [el("span", { class: "reading", text: fmt(r.value) }), document.createTextNode(" "), el("span", { class: "unit", text: unitText(r.unit) })]),
       el("td", { html: gaugeSVG(r) }),
       el("td", { class: "num levels", text: fmt(r.warning) + " / " + fmt(r.alarm) + (r.latched ? " · held" : "") }),
@@ -659,7 +737,7 @@
     const offset = new Date(t0 * 1000).getTimezoneOffset() * 60;
     const xt = [];
     for (let v = Math.ceil((t0 - offset) / step) * step + offset; v <= t1 && xt.length < 40; v += step) xt.push([v, X(v), label(v)]);
-    axes(ctx, box, xt, linearTicks(0, ymax, 4, Y), "", unitText(s.unit));
+    axes(ctx, box, xt, linearTicks(0, ymax, 4, Y), dataTimeNote().trim(), unitText(s.unit));
     ctx.save();
     const stepLine = (arr, color) => {
       ctx.beginPath(); let on = false;

@@ -11,6 +11,7 @@ import pytest
 
 from rotorwatch.alarms.records import ValueStatus
 from rotorwatch.web import views
+from rotorwatch.analysis.plan import build_plan
 from rotorwatch.web.board import StatusBoard
 
 from . import helpers
@@ -102,6 +103,10 @@ def test_overview_carries_states_reasons_speed_overall_and_zone(config):
     assert board.health() == (True, "ok")
 
 
+def full_fs_hz(update) -> float:
+    return update.points["de-h"].result.fs_hz
+
+
 def test_point_view_spectra_are_bounded_and_markers_follow_the_speed(config):
     board = StatusBoard(config, max_spectrum_points=2000, clock=FakeClock())
     update, raw = helpers.machine_update(config, 1000.0, fault=0.5)
@@ -111,7 +116,11 @@ def test_point_view_spectra_are_bounded_and_markers_follow_the_speed(config):
     for q, spec in pv["spectra"].items():
         assert len(spec["freqs_hz"]) == len(spec["amplitude"]) <= 2000
         full = getattr(update.points["de-h"].result, q)
-        assert spec["n_lines"] == full.amplitude.size
+        # one line count everywhere: the page says what the plan (and `rotorwatch check`) says
+        plan = build_plan(config.machine("ef3"), config.machine("ef3").point("de-h"), full_fs_hz(update))
+        if q != "envelope":  # (envelope lines follow the speed and the block's length)
+            assert spec["n_lines"] == plan.lines
+        assert spec["n_lines"] == full.amplitude.size - 1  # the 0 Hz bin is not a line
         # the largest line survives downsampling (to 4 significant digits)
         assert max(spec["amplitude"]) == pytest.approx(full.amplitude.max(), rel=1e-3)
     markers = {(m["family"], m["k"]): m for m in pv["markers"]}
