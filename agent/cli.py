@@ -18,7 +18,7 @@ from .errors import RotorwatchError
 # command name -> module under rotorwatch.commands, with a one-line summary for --help
 COMMANDS: dict[str, tuple[str, str]] = {
     "check": ("check", "validate a configuration file and print the derived frequencies"),
-    "analyze": ("analyze", "analyse a recording (WAV or .npz) and report bearing findings"),
+    "analyze": ("analyze", "analyze a recording (WAV or .npz) and report bearing findings"),
     "replay": ("replay", "run a simulated scenario or a recording through the alarm logic"),
     "run": ("run", "run the monitoring daemon"),
     "devices": ("devices", "list audio input devices"),

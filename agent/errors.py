@@ -26,7 +26,7 @@ class ConfigError(RotorwatchError):
 
 
 class InputError(RotorwatchError):
-    """A recording or sample block cannot be analysed (unreadable, empty, too short, rate too low)."""
+    """A recording or sample block cannot be analyzed (unreadable, empty, too short, rate too low)."""
 
 
 class SourceUnavailable(RotorwatchError):

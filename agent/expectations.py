@@ -355,14 +355,31 @@ def entering(samples: list[Sample], subject: Subject, state: str) -> list[Sample
     return out
 
 
+#: States that judge the machine's condition, most severe first. The others say why there is no
+#: judgement (learning the baseline, a sensor fault, no data, stopped, a suppressed value) and are not
+#: ranked against them: "learning" is not worse than "normal", only not yet judged.
+CONDITION_ORDER = ("alarm", "warning", "normal")
+
+
 def _worst_seen(samples: list[Sample], subject: Subject) -> str:
+    """What the subject went through, ranked by meaning: the most severe condition (or zone) seen, then
+    the states without a judgement and how many updates each held, e.g. ``normal (also learning: 18)``."""
     seen = [st for st in (_state_of(s, subject) for s in samples) if st is not None]
     if not seen:
         return "none"
     if subject.kind == "zone":
-        return max(seen, key=lambda z: ZONES.index(z) if z in ZONES else -1)
-    order = {"alarm": 0, "warning": 1}
-    return min(seen, key=lambda st: (order.get(st, 2), STATES.index(st) if st in STATES else 99))
+        return "zone " + max(seen, key=lambda z: ZONES.index(z) if z in ZONES else -1)
+    judged = [st for st in seen if st in CONDITION_ORDER]
+    others: dict[str, int] = {}
+    for st in seen:
+        if st not in CONDITION_ORDER:
+            others[st] = others.get(st, 0) + 1
+    also = ", ".join(f"{st}: {n}" for st, n in sorted(others.items(), key=lambda kv: STATES.index(kv[0])
+                                                         if kv[0] in STATES else 99))
+    if not judged:
+        return f"no judgement ({also})"
+    worst = min(judged, key=CONDITION_ORDER.index)
+    return worst + (f" (also {also})" if also else "")
 
 
 def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:

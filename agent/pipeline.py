@@ -32,7 +32,7 @@ from .settings.models import AlarmPolicy, Config, Machine
 
 log = logging.getLogger(__name__)
 
-# Faults after which the samples are not worth analysing (nothing but NaN, or one constant value).
+# Faults after which the samples are not worth analyzing (nothing but NaN, or one constant value).
 UNANALYSABLE = ("invalid", "flatline")
 
 
@@ -103,7 +103,7 @@ class MachinePipeline:
                 )
             except InputError as e:
                 results[p.id] = None
-                notes[p.id] = f"cannot analyse this block: {e}"
+                notes[p.id] = f"cannot analyze this block: {e}"
                 continue
             self._envelope_band(p.id, results[p.id], h, analyzer, time_s)  # type: ignore[arg-type]
         return self.monitor.update(time_s, results, health, rpm=rpm, rpm_source=rpm_source or "", notes=notes)

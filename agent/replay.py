@@ -352,7 +352,7 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
     for p in m.points:
         series = log.overall.get(p.id, [])
         if not series:
-            lines.append(f"  {p.id:<6} no overall velocity (no analysed update)")
+            lines.append(f"  {p.id:<6} no overall velocity (no analyzed update)")
             continue
         first_t, first_v, first_z = series[0]
         parts = [f"zone {first_z} at the start ({first_v:.3g} mm/s)"]

@@ -3,7 +3,7 @@
 For each sampling rate (default 51.2 and 48 kHz) and channel count (1, and 4 points of one machine) it
 runs the full :class:`~rotorwatch.analysis.point.PointAnalyzer` over 4 s blocks of a synthetic signal
 (noise, shaft tones, and an impact train ringing a 3 kHz resonance), 3200 lines to 10 kHz, envelope band
-2-7 kHz, and reports the real-time factor: seconds of signal analysed per CPU second
+2-7 kHz, and reports the real-time factor: seconds of signal analyzed per CPU second
 (``time.process_time``, so other processes on the box do not count, but every thread of this one does;
 each row is timed ``--repeat`` times, the repeats going round all rows in turn, and the fastest kept,
 since contention only ever adds time). Peak RSS is read after the fast rows (that figure includes the
@@ -196,7 +196,7 @@ def run(args: argparse.Namespace) -> int:
         ref_txt = f"{ref:19.1f}" if ref is not None else f"{'-':>19}"
         ratio = f"{ref / r.ms_per_block:8.1f}" if ref is not None else f"{'-':>8}"
         out.write(f"{r.fs_hz:>8g}  {r.channels:>2}  {r.band:<9}{r.ms_per_block:>9.2f}  {r.rtf_per_channel:>12.0f}  {ref_txt}  {ratio}\n")
-    out.write("x real time = seconds of signal analysed per CPU second, per channel (4 channels: total signal / CPU)\n")
+    out.write("x real time = seconds of signal analyzed per CPU second, per channel (4 channels: total signal / CPU)\n")
     out.write(f"peak RSS: {rss_start:.0f} MB before, {rss_fast:.0f} MB after the fast analysis, "
               f"{rss_ref:.0f} MB after the reference\n")
     return 0

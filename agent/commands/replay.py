@@ -43,8 +43,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rpm", type=float, metavar="R/MIN", help="recording: the speed, as a tach or drive would report it")
     p.add_argument("--expect", action="append", default=[], metavar="TEXT",
                    help='an expectation, e.g. "de-outer-race on de-h reaches alarm between day 10 and day 20" (repeatable)')
-    p.add_argument("--format", choices=("human", "jsonl"), default="human",
-                   help="human timeline (default) or one JSON object per line: every update and event")
+    p.add_argument("--format", choices=("text", "jsonl"), default="text",
+                   help="text: a timeline for people (default); jsonl: one JSON object per line, every update and event")
     p.add_argument("--state-dir", metavar="DIR", help="where baselines go (default: a fresh temporary directory)")
     p.add_argument("--start", default=DEFAULT_START, metavar="DATE",
                    help=f"date and time (UTC) the replay starts at, ISO 8601 (default {DEFAULT_START})")
@@ -155,7 +155,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         pipeline = MachinePipeline(config, machine, state_dir=state_dir, policy=policy)
         log = ReplayLog(machine, start)
-        progress = sys.stderr.isatty() and args.format == "human"
+        progress = sys.stderr.isatty() and args.format == "text"
         t_wall = time.perf_counter()
         for i, frame in enumerate(frames):
             update = pipeline.step(start + frame.elapsed_s, frame.blocks_v, rpm=frame.rpm, fs_hz=fs_hz)

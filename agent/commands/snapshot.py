@@ -1,6 +1,7 @@
 """``rotorwatch snapshot list|show ID|plot ID --out PNG``: look at evidence snapshots.
 
-``list`` prints the snapshots in ``<state-dir>/snapshots`` oldest first (``--machine`` filters);
+``list`` prints the snapshots in ``<state-dir>/snapshots`` oldest first (``--machine`` and ``--reason``
+filter);
 ``show ID`` prints one snapshot's sidecar as a summary (``--format json``: the sidecar itself);
 ``plot ID --out PNG [--point P]`` draws the point's spectra with band regions and defect-frequency
 markers (needs the ``plot`` extra: ``pip install 'rotorwatch[plot]'``). Times are UTC.
@@ -26,10 +27,13 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     sub.required = True
     ls = sub.add_parser("list", parents=[common], help="list snapshots, oldest first")
     ls.add_argument("--machine", metavar="M", help="only this machine")
-    ls.add_argument("--format", choices=("table", "json"), default="table")
+    ls.add_argument("--reason", choices=("transition", "schedule", "command"), help="only snapshots taken for this reason")
+    ls.add_argument("--format", choices=("text", "json"), default="text",
+                    help="text: a table for people (default); json: one JSON document")
     show = sub.add_parser("show", parents=[common], help="summarise one snapshot")
     show.add_argument("id", metavar="ID")
-    show.add_argument("--format", choices=("text", "json"), default="text")
+    show.add_argument("--format", choices=("text", "json"), default="text",
+                      help="text: a summary for people (default); json: the sidecar itself")
     plot = sub.add_parser("plot", parents=[common], help="plot one snapshot point to a PNG")
     plot.add_argument("id", metavar="ID")
     plot.add_argument("--out", metavar="PNG", required=True, help="output file")
@@ -54,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _list(store: SnapshotStore, args: argparse.Namespace) -> int:
-    infos = store.list(args.machine)
+    infos = [i for i in store.list(args.machine) if args.reason is None or i.reason == args.reason]
     if args.format == "json":
         print(json.dumps([{"id": i.id, "machine": i.machine_id, "time_s": i.time_s, "reason": i.reason,
                            "detail": i.detail, "points": list(i.points), "size_bytes": i.size_bytes}

@@ -33,7 +33,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     when.add_argument("--days", metavar="N", type=float, help="the last N days")
     p.add_argument("--until", metavar="ISO", help="up to this UTC time")
     p.add_argument("--limit", metavar="N", type=int, help="only the newest N rows")
-    p.add_argument("--format", choices=("table", "csv"), default="table", help="output format (default table)")
+    p.add_argument("--format", choices=("text", "csv"), default="text",
+                   help="text: a table for people (default); csv: a header and one row per value")
     p.add_argument("--series", action="store_true", help="list the stored series instead of values")
 
 

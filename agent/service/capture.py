@@ -18,7 +18,7 @@ Faults, all reported through :attr:`Capture.status` and counted in :class:`SelfS
 - a chunk with ``gap`` set: the rings restart filling, so no window splices the two sides of a gap;
 - a chunk with ``overflow`` set (samples lost in the driver or on a full queue): counted, and its mapped
   start time kept in :attr:`Capture.last_overflow_s`, so the daemon reports every window that holds
-  the discontinuity as a sensor fault (``overflow``) instead of analysing it.
+  the discontinuity as a sensor fault (``overflow``) instead of analyzing it.
 
 Clock: chunk times are on the source clock (``Chunk.t0_s``). :class:`SourceClock` maps them onto a
 time line that never runs backwards: for simulated input (scenario seconds from 0) it anchors the

@@ -110,7 +110,7 @@ class MachineRuntime:
     channels: dict[str, int]  # point -> input channel
     tach_channel: int | None
     last_update: MachineUpdate | None = None
-    last_blocks: dict[str, np.ndarray] | None = None  # the windows of the last analysed update (volts)
+    last_blocks: dict[str, np.ndarray] | None = None  # the windows of the last analyzed update (volts)
 
 
 @dataclass
@@ -445,7 +445,7 @@ class Daemon:
             blocks, end_s = self._windows(rt)
             span_end = end_s if blocks is not None else t
             if lost_at is not None and span_end - rt.machine.analysis.window_s < lost_at < span_end:
-                # samples were lost inside this window (or it is refilling after the loss): not analysed
+                # samples were lost inside this window (or it is refilling after the loss): not analyzed
                 self._report_overflow(rt, span_end, lost_at, cap.overflows)
                 updated += 1
                 continue
@@ -533,7 +533,7 @@ class Daemon:
         ago_s = time_s - lost_at_s
         health = SensorHealth(ok=False, fault="overflow", reason=(
             f"input overflow {ago_s:.2f} s before the end of the window: samples were lost in the driver or "
-            f"the capture queue ({n_overflows} overflows since start); this window is not analysed"))
+            f"the capture queue ({n_overflows} overflows since start); this window is not analyzed"))
         pids = list(rt.channels)
         update = monitor_of(rt.pipeline).update(time_s, {p: None for p in pids}, {p: health for p in pids},
                                                 rpm=None, rpm_source="", notes={})
@@ -766,7 +766,7 @@ class Daemon:
             for mid in targets:
                 rt = self.runtimes[mid]
                 if rt.last_update is None or rt.last_blocks is None or self.evidence is None:
-                    raise RotorwatchError(f"snapshot of machine {mid!r}: no analysed update yet (the first window is still filling)")
+                    raise RotorwatchError(f"snapshot of machine {mid!r}: no analyzed update yet (the first window is still filling)")
                 info = self.evidence.save(rt.last_update, rt.last_blocks, rt.machine, "command",
                                           f"requested through {origin}")
                 if info is None:

@@ -8,7 +8,7 @@ A row is ``(time_s, machine, point, value name, value, unit, state)``. From each
   count so far, state ``-``) on every update from its first chatter on;
 - every finding named in the machine's ``alarms.findings``, as value ``finding:<NAME>`` (unit ``1``,
   the finding's strength, NULL in an update without it) with the state it raises;
-- the waveform figures of every analysed point: ``rms_m_s2``, ``peak_m_s2``, ``crest_factor``,
+- the waveform figures of every analyzed point: ``rms_m_s2``, ``peak_m_s2``, ``crest_factor``,
   ``kurtosis`` (state ``-``: they are trended, not alarmed here);
 - the machine's speed as value ``speed`` (unit ``rpm``) on point ``""`` (machine level), with the
   machine state.

@@ -97,3 +97,20 @@ def test_bad_expectations_are_one_line_errors(text, problem):
         parse(text, M, where="--expect[1]")
     msg = str(e.value)
     assert "\n" not in msg and problem in msg and msg.startswith(f"--expect[1] = {text!r}: ")
+
+
+def test_verdicts_rank_states_by_meaning():
+    """"learning" (not judged yet) and "sensor_fault" (no judgement of the machine) are not worse than
+    "normal": a verdict names the most severe condition seen and lists the others beside it."""
+    quiet = samples([(0, "learning", "learning", "learning", "A"), (1, "learning", "learning", "learning", "A"),
+                     (5, "normal", "normal", "normal", "A"), (6, "sensor_fault", "sensor_fault", "suppressed", "A"),
+                     (7, "normal", "normal", "normal", "A")])
+    v = evaluate(parse("machine never alarm", M), quiet)
+    assert v.passed and v.detail.startswith("worst: normal (also sensor_fault: 1, learning: 2)"), v.detail
+    assert "worst: learning" not in v.detail
+    v = evaluate(parse("outer on p1 reaches warning", M), quiet)
+    assert not v.passed and "worst: normal (also learning: 2, suppressed: 1)" in v.detail, v.detail
+    v = evaluate(parse("machine never alarm before day 2", M), quiet)
+    assert v.detail.startswith("worst: no judgement (learning: 2)"), v.detail
+    v = evaluate(parse("zone on p1 stays below C", M), HISTORY[:5])
+    assert "worst: zone B" in v.detail
