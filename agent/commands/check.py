@@ -1,20 +1,29 @@
-"""``rotorwatch check CONFIG``: validate a configuration and print what the analysis derives from it.
+"""``rotorwatch check FILE``: validate a configuration (or a scenario) and print what the analysis derives.
 
-Validation is the configuration models' (one line per problem: file, field path, what is wrong) plus the
+Validation is the configuration models' (one line per problem: file, field path, what is wrong), the
 analysis plan of every point at the acquisition's sampling rate (bands, spans and the demodulation band
-must fit below Nyquist). Nothing is opened or probed: no devices, no network.
+must fit below Nyquist), and what ``rotorwatch run`` would refuse at start: the input the file names is
+built the way the daemon builds it and checked without being started (a recording needs a path, and
+that file its rate and channel count; a simulated input its scenario). No device is probed, nothing
+goes on the network. ``--set`` overrides values as ``run --set`` does.
 
 For a valid file it prints, per machine, the kinematic frequencies at the configured (or nominal) speed in
 orders and Hz: 1x, 2x, blade pass, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing, with a warning where two
 defects of one bearing search overlapping lines or a defect sits on a 2xLF line
 (:mod:`rotorwatch.analysis.overlaps`); then per point the spectrum and envelope set-up and each band's
-edges in Hz. Exit 0 when valid, 2 otherwise.
+edges in Hz. When only ``run`` would refuse the file, the table is printed and the refusal follows.
+Exit 0 when valid, 2 otherwise.
+
+A scenario file (a ``[scenario]`` table, see ``config/scenarios/``) is recognised: it is validated as a
+scenario together with the machine configuration it names, and the command to replay it is printed.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+from pathlib import Path
 from typing import TextIO
 
 from .. import kinematics
@@ -23,8 +32,61 @@ from ..settings.models import Config, Machine
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
-    p.add_argument("config", metavar="CONFIG", help="machine configuration file (TOML)")
+    p.add_argument("config", metavar="FILE", help="machine configuration or scenario file (TOML)")
     p.add_argument("--rpm", type=float, default=None, help="print the frequency table at this speed instead of the configured one")
+    p.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a config value as 'run --set' does, e.g. --set 'acquisition.recording=\"rec.wav\"'")
+
+
+def _run_problems(path: str, cfg: Config) -> list[str]:
+    """What ``rotorwatch run`` would refuse at start: the configured input, built and checked."""
+    from ..errors import RotorwatchError  # noqa: PLC0415
+    from ..sources.base import configured_source  # noqa: PLC0415
+
+    hint = "; rotorwatch run would refuse this file"
+    try:
+        source = configured_source(cfg, Path(path).resolve().parent)
+        source.check()
+    except ConfigError as e:
+        return [f"{path}: {line}{hint}" for line in e.problems]
+    except (RotorwatchError, ValueError) as e:
+        return [f"{path}: {str(e).splitlines()[0]}{hint}"]
+    return []
+
+
+def _is_scenario(path: str) -> bool:
+    from ..settings.loading import read_toml  # noqa: PLC0415
+
+    try:
+        doc = read_toml(path)
+    except ConfigError:
+        return False  # the configuration loader reports it
+    return isinstance(doc.get("scenario"), dict) and "machines" not in doc
+
+
+def _check_scenario(args: argparse.Namespace) -> int:
+    from rotorwatch.simulators.scenario import load_scenario  # noqa: PLC0415
+
+    if args.overrides:
+        raise ConfigError([f"{args.config}: a scenario file: --set applies to machine configurations"])
+    scenario = load_scenario(args.config)  # validates the scenario and the configuration it names
+    cfg = scenario.config
+    problems = _plan_problems(str(scenario.config_path), cfg)
+    if problems:
+        raise ConfigError(problems)
+    spec = scenario.spec.scenario
+    out = sys.stdout
+    out.write(f"{args.config}: valid scenario {scenario.name!r}: {spec.duration_days:g} days of machine "
+              f"{scenario.machine.id} ({os.path.relpath(scenario.config_path)}), {len(scenario.spec.change)} change(s), "
+              f"{len(spec.expect)} expectation(s)\n")
+    config_path = os.path.relpath(scenario.config_path)
+    in_config = os.path.relpath(Path(args.config).resolve(), Path(scenario.config_path).resolve().parent)
+    out.write(f"  replay it:   rotorwatch replay --scenario {args.config}\n")
+    out.write(f"  stream it:   rotorwatch run --config {config_path} --set 'acquisition.source=\"simulated\"' "
+              f"--set 'acquisition.scenario=\"{in_config}\"'\n")
+    rpm = args.rpm if args.rpm is not None else scenario.machine.speed.nominal_rpm
+    print_machine(scenario.machine, rpm, cfg.acquisition.sample_rate_hz, out, given=args.rpm is not None)
+    return 0
 
 
 def _plan_problems(path: str, cfg: Config) -> list[str]:
@@ -122,12 +184,21 @@ def run(args: argparse.Namespace) -> int:
     from ..settings.loading import load_config  # noqa: PLC0415
 
     path = args.config
-    cfg = load_config(path)
+    if args.rpm is not None and not args.rpm > 0:
+        raise ConfigError([f"--rpm = {args.rpm:g}: must be a speed above 0"])
+    if _is_scenario(path):
+        return _check_scenario(args)
+    try:
+        cfg = load_config(path, tuple(args.overrides))
+    except ConfigError as e:
+        if any(p.endswith("machines: Field required") for p in e.problems):
+            raise ConfigError([p + " (check takes a machine configuration, with [[machines]], or a scenario file, "
+                               "with a [scenario] table)" if p.endswith("machines: Field required") else p
+                               for p in e.problems]) from None
+        raise
     problems = _plan_problems(path, cfg)
     if problems:
         raise ConfigError(problems)
-    if args.rpm is not None and not args.rpm > 0:
-        raise ConfigError([f"--rpm = {args.rpm:g}: must be a speed above 0"])
     out = sys.stdout
     n_points = sum(len(m.points) for m in cfg.machines)
     out.write(f"{path}: valid ({len(cfg.machines)} machine{'s' if len(cfg.machines) != 1 else ''}, "
@@ -135,4 +206,8 @@ def run(args: argparse.Namespace) -> int:
     for m in cfg.machines:
         rpm = args.rpm if args.rpm is not None else m.speed.nominal_rpm
         print_machine(m, rpm, cfg.acquisition.sample_rate_hz, out, given=args.rpm is not None)
+    refused = _run_problems(path, cfg)
+    if refused:
+        out.flush()
+        raise ConfigError(refused)
     return 0

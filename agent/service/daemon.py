@@ -80,21 +80,15 @@ def default_pipeline_factory(config: Config, machine: Machine, state_dir: Path) 
 
 
 def default_source_factory(config: Config, config_dir: Path) -> Any:
-    from ..sources.base import channel_full_scale_v, channel_sensitivity_v_per_m_s2, open_source
+    from ..sources.base import configured_source
 
-    options: dict[str, Any] = {}
-    if config.acquisition.source == "simulated":
-        options["segment_s"] = simulated_segment_s(config)
-    elif config.acquisition.source == "recording":
-        options["volts_per_m_s2"] = channel_sensitivity_v_per_m_s2(config)
-    return open_source(config.acquisition, config_dir, full_scale_v=channel_full_scale_v(config), **options)
+    return configured_source(config, config_dir)
 
 
 def simulated_segment_s(config: Config) -> float:
-    """Seconds of unbroken signal per segment of a sped-up simulation: the longest analysis window plus
-    one update interval, so every segment holds at least one full window at an update time."""
-    longest = max(m.analysis.window_s for m in config.machines)
-    return longest + config.acquisition.update_interval_s + 2 * config.acquisition.block_frames / config.acquisition.sample_rate_hz
+    from ..sources.base import simulated_segment_s as segment_s
+
+    return segment_s(config)
 
 
 def monitor_of(pipeline: Any) -> Any:
@@ -215,10 +209,19 @@ class Daemon:
         """Build the source and let it check what ``start()`` would refuse (a recording without a path,
         a file of the wrong rate): a ConfigError or InputError here ends the start-up in one line.
         Nothing is opened: a device that is missing now is retried by the capture thread."""
-        source = self._source_factory(config, self.config_dir)
-        check = getattr(source, "check", None)
-        if check is not None:
-            check()
+        from ..errors import InputError
+
+        try:
+            source = self._source_factory(config, self.config_dir)
+            check = getattr(source, "check", None)
+            if check is not None:
+                check()
+        except ConfigError as e:
+            raise ConfigError([p if not p.startswith("acquisition.") else f"{self.config_path}: {p}"
+                               for p in e.problems]) from None
+        except InputError as e:
+            msg = str(e)
+            raise InputError(f"{self.config_path}: {msg}" if msg.startswith("acquisition.") else msg) from None
 
     def _warn_exposed_secrets(self, config: Config) -> None:
         from .secret_files import readable_by_all, warning_line

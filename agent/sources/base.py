@@ -214,6 +214,10 @@ class Source(abc.ABC):
         except Exception as exc:  # closing must never raise at the daemon
             log.warning("source %s: error while closing: %s", self.kind, exc)
 
+    def check(self) -> None:
+        """Raise what ``start()`` would refuse for good (InputError, ConfigError) without acquiring:
+        a missing file, a wrong rate. Devices are not probed here (their absence is retried)."""
+
     def describe(self) -> str:
         """One line for logs and status: kind, where from, rate, channels."""
         return f"{self.kind} {self._where()} fs={self.fs_hz:g}Hz channels={self.channels}"
@@ -354,6 +358,25 @@ def channel_sensitivity_v_per_m_s2(config: Any) -> list[float | None]:
             if ch < len(sens):
                 sens[ch] = float(point.sensor.volts_per_m_s2)
     return sens
+
+
+def simulated_segment_s(config: Any) -> float:
+    """Seconds of unbroken signal per segment of a sped-up simulation: the longest analysis window plus
+    one update interval, so every segment holds at least one full window at an update time."""
+    acq = config.acquisition
+    longest = max(m.analysis.window_s for m in config.machines)
+    return longest + acq.update_interval_s + 2 * acq.block_frames / acq.sample_rate_hz
+
+
+def configured_source(config: Any, config_dir: Path | None) -> "Source":
+    """The source ``rotorwatch run`` opens for ``config`` (built, not started): the daemon's and
+    ``rotorwatch check``'s, so check refuses what run would."""
+    options: dict[str, Any] = {}
+    if config.acquisition.source == "simulated":
+        options["segment_s"] = simulated_segment_s(config)
+    elif config.acquisition.source == "recording":
+        options["volts_per_m_s2"] = channel_sensitivity_v_per_m_s2(config)
+    return open_source(config.acquisition, config_dir, full_scale_v=channel_full_scale_v(config), **options)
 
 
 # ------------------------------------------------------------------------------------------- registry

@@ -80,7 +80,7 @@ class SimulatedSource(Source):
         self._t_next = at_s
         self._blocks_in_segment = 0
 
-    def _open(self) -> None:
+    def check(self) -> None:
         machine = getattr(self.scenario, "machine", None)
         if machine is not None:
             used = [(p.sensor.channel, f"point {p.id!r}") for p in machine.points]
@@ -90,11 +90,14 @@ class SimulatedSource(Source):
                 if ch >= self.channels:
                     raise InputError(f"simulated scenario {self.name!r}: {who} of machine {machine.id!r} uses "
                                      f"input channel {ch} but acquisition.channels = {self.channels}")
-        if self._renderer is None:
-            self._renderer = self._make_renderer()
         if self.start_s >= self.duration_s:
             raise InputError(f"simulated source: start_s = {self.start_s:g} s is past the scenario's end "
                              f"({self.duration_s:g} s)")
+
+    def _open(self) -> None:
+        self.check()
+        if self._renderer is None:
+            self._renderer = self._make_renderer()
         self._begin_stream(self.start_s)
         self._pacer = Pacer(self.fs_hz) if self.pace else None
         self._gap_next = self.stats.restarts > 0

@@ -19,6 +19,7 @@ EXAMPLES = sorted((REPO / "config").glob("*.toml"))
 
 BASE = """\
 [acquisition]
+source = "stdin"
 sample_rate_hz = 51200
 channels = 2
 
@@ -88,11 +89,65 @@ def test_every_example_config_loads_and_plans(path):
             assert plan.min_samples <= m.analysis.window_s * cfg.acquisition.sample_rate_hz
 
 
+@pytest.fixture(scope="module")
+def rig_recording(tmp_path_factory) -> str:
+    """A 12 kHz one-channel recording in g (a .npz without a unit entry), as the rig configuration plays:
+    an invented 1x tone at the rig's speed with a little noise."""
+    import numpy as np
+
+    path = tmp_path_factory.mktemp("rig") / "rig.npz"
+    t = np.arange(12000 * 6) / 12000.0
+    np.savez(path, signal=0.1 * np.sin(2 * np.pi * 29.95 * t) + 0.01 * np.random.default_rng(1).standard_normal(t.size),
+             fs=12000.0)
+    return f'acquisition.recording="{path}"'
+
+
+def _runnable(path: Path, rig_recording: str) -> list[str]:
+    """What a shipped configuration needs to run here: the rig configuration names no recording."""
+    return ["--set", rig_recording] if path.name == "university-rig.toml" else []
+
+
 @pytest.mark.parametrize("path", EXAMPLES, ids=[p.name for p in EXAMPLES])
-def test_check_accepts_every_example(path, capsys):
-    assert main(["check", str(path)]) == 0
+def test_check_accepts_every_example(path, capsys, rig_recording):
+    assert main(["check", str(path), *_runnable(path, rig_recording)]) == 0
     out = capsys.readouterr().out
     assert out.startswith(f"{path}: valid")
+
+
+def test_check_refuses_what_run_would_refuse(capsys, tmp_path):
+    """The rig configuration names no recording: `run` refuses it at start, so `check` does too (after the
+    frequency table), in one line that names the fix; a recording of the wrong rate likewise."""
+    rig = REPO / "config" / "university-rig.toml"
+    assert main(["check", str(rig)]) == 2
+    captured = capsys.readouterr()
+    assert "BPFO" in captured.out  # the derived table is still printed
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith(f"rotorwatch: {rig}: acquisition.recording")
+    assert "--set 'acquisition.recording=" in lines[0] and "rotorwatch run would refuse" in lines[0]
+    import numpy as np
+
+    np.savez(tmp_path / "fast.npz", signal=np.zeros(48000), fs=48000.0)
+    assert main(["check", str(rig), "--set", f'acquisition.recording="{tmp_path / "fast.npz"}"']) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "sample rate 48000 Hz but acquisition.sample_rate_hz = 12000" in err[0]
+
+
+def test_check_recognises_scenario_files(capsys):
+    scenario = REPO / "config" / "scenarios" / "demo-outer-race.toml"
+    assert main(["check", str(scenario)]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith(f"{scenario}: valid scenario 'EF-3 drive-end outer-race spall': 30 days of machine ef3")
+    assert f"rotorwatch replay --scenario {scenario}" in out and "BPFO" in out
+    # a file that is neither: one line saying what check takes
+    assert main(["check", str(REPO / "deploy" / "service-settings.toml")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "machines: Field required" in err[0] and "a scenario file, with a [scenario] table" in err[0]
+
+
+@pytest.mark.parametrize("path", sorted((REPO / "config" / "scenarios").glob("*.toml")), ids=lambda p: p.name)
+def test_check_accepts_every_shipped_scenario(path, capsys):
+    assert main(["check", str(path)]) == 0
+    assert capsys.readouterr().out.startswith(f"{path}: valid scenario")
 
 
 def test_base_config_is_valid(tmp_path, capsys):
@@ -142,11 +197,11 @@ def _table(text: str) -> dict[str, tuple[float, float]]:
     return rows
 
 
-def test_check_table_matches_the_published_rig_frequencies(capsys):
+def test_check_table_matches_the_published_rig_frequencies(capsys, rig_recording):
     # CWRU Bearing Data Center published drive-end multiples BPFI 5.4152, BPFO 3.5848, FTF 0.39828,
     # BSF 2.3566 (shared dataset README; tolerance 5e-4, references.md section 2) and the dataset README's
     # expected lines at 1797 r/min: BPFO 107.36, BPFI 162.19, BSF 70.58 Hz
-    assert main(["check", str(REPO / "config" / "university-rig.toml")]) == 0
+    assert main(["check", str(REPO / "config" / "university-rig.toml"), "--set", rig_recording]) == 0
     rows = _table(capsys.readouterr().out)
     assert rows["BPFI"][0] == pytest.approx(5.4152, abs=5e-4)
     assert rows["BPFO"][0] == pytest.approx(3.5848, abs=5e-4)
@@ -157,8 +212,8 @@ def test_check_table_matches_the_published_rig_frequencies(capsys):
     assert rows["1x"][1] == pytest.approx(29.95, abs=0.005)
 
 
-def test_check_table_at_a_given_speed(capsys):
+def test_check_table_at_a_given_speed(capsys, rig_recording):
     # CWRU DE at 1796 r/min (dataset README): BPFO 107.31, BPFI 162.09, BSF 70.54 Hz
-    assert main(["check", str(REPO / "config" / "university-rig.toml"), "--rpm", "1796"]) == 0
+    assert main(["check", str(REPO / "config" / "university-rig.toml"), "--rpm", "1796", "--set", rig_recording]) == 0
     rows = _table(capsys.readouterr().out)
     assert (rows["BPFO"][1], rows["BPFI"][1], rows["BSF"][1]) == pytest.approx((107.31, 162.09, 70.54), abs=0.011)
