@@ -7,9 +7,10 @@ up analysis. Records are frozen, so a copied reference cannot change underneath 
 
 Names carry the ``rotorwatch_`` prefix and base SI units (velocity in m/s, acceleration in m/s^2,
 speed in Hz, times in seconds); counters end in ``_total``. Band values get one metric name per unit,
-with the band's quantity as a label. States are exposed the way ``prometheus_client.Enum`` does: one
-series per possible state, the current one at 1. deploy/metrics.md lists every name; change both
-together.
+with the band's quantity as a label. States are exposed as one series per possible state, the current
+one at 1, the state in a short label of its own (``zone``, ``state``, ``check``, ``source``) rather than
+in a label named after the metric (``prometheus_client.Enum``'s convention), so a query reads
+``rotorwatch_iso_zone{zone="D"} == 1``. deploy/metrics.md lists every name; change both together.
 """
 
 from __future__ import annotations
@@ -27,7 +28,6 @@ from prometheus_client.core import (
     GaugeMetricFamily,
     InfoMetricFamily,
     Metric,
-    StateSetMetricFamily,
 )
 
 from .. import __version__
@@ -60,6 +60,18 @@ _UNIT_HELP = {"meters_per_second": "m/s RMS", "meters_per_second_squared": "m/s^
 _UNLABELLED_COUNTERS = ("updates_skipped", "samples_captured", "input_overflows", "input_gaps", "source_stalls", "source_reopens",
                         "mqtt_messages_published", "mqtt_publish_failures", "mqtt_reconnects",
                         "mqtt_connect_failures")
+
+
+class EnumGauge(GaugeMetricFamily):
+    """One gauge series per possible value of an enumeration, 1 for the current one: the value is the
+    short label ``label`` (``zone="A"``)."""
+
+    def __init__(self, name: str, documentation: str, labels: list[str], label: str):
+        super().__init__(name, documentation, labels=[*labels, label])
+
+    def add_enum(self, labels: list[str], choices: dict[str, bool]) -> None:
+        for value, on in choices.items():
+            self.add_metric([*labels, value], 1.0 if on else 0.0)
 
 
 def _finite(x: float | None) -> bool:
@@ -123,8 +135,8 @@ class UpdateCollector:
         overall = GaugeMetricFamily(f"{P}overall_velocity_meters_per_second",
                                     "overall velocity RMS in the machine's overall band (ISO 20816 measure), m/s",
                                     labels=mp)
-        zone = StateSetMetricFamily(f"{P}iso_zone", "ISO 20816-3 evaluation zone of the overall velocity",
-                                    labels=mp)
+        zone = EnumGauge(f"{P}iso_zone", "ISO 20816-3 evaluation zone of the overall velocity (1 for the current zone)",
+                         mp, "zone")
         bands = {u: GaugeMetricFamily(f"{P}band_value_{u}", f"band value, {_UNIT_HELP[u]}", labels=mpb)
                  for u in ("meters_per_second", "meters_per_second_squared")}
         levels = {
@@ -136,7 +148,8 @@ class UpdateCollector:
         baselines = {u: GaugeMetricFamily(f"{P}baseline_{u}", f"learned baseline (median) of a value, {_UNIT_HELP[u]}",
                                           labels=mpb)
                      for u in ("meters_per_second", "meters_per_second_squared")}
-        value_state = StateSetMetricFamily(f"{P}value_state", "alarm state of a trended value", labels=mp + ["band"])
+        value_state = EnumGauge(f"{P}value_state", "alarm state of a trended value (1 for the current state)",
+                                mp + ["band"], "state")
         latched = GaugeMetricFamily(f"{P}value_latched", "1 while a latched alarm waits for acknowledgement",
                                     labels=mp + ["band"])
         raises = CounterMetricFamily(f"{P}value_raises", "times a value was raised (to warning, or to alarm) since the agent started",
@@ -153,38 +166,38 @@ class UpdateCollector:
         wf_crest = GaugeMetricFamily(f"{P}waveform_crest_factor_ratio", "crest factor (peak / RMS) of the window", labels=mp)
         wf_kurt = GaugeMetricFamily(f"{P}waveform_kurtosis_ratio", "kurtosis of the window (Pearson; Gaussian noise = 3)", labels=mp)
         sensor_ok = GaugeMetricFamily(f"{P}sensor_ok", "1 while the sensor checks pass", labels=mp)
-        sensor_check = StateSetMetricFamily(f"{P}sensor_check", "outcome of the sensor checks: ok or the fault found",
-                                            labels=mp)
+        sensor_check = EnumGauge(f"{P}sensor_check", "outcome of the sensor checks: ok or the fault found (1 for the current one)",
+                                 mp, "check")
         sensor_clipped = GaugeMetricFamily(f"{P}sensor_clipped_ratio",
                                            "share of the window's samples at the input range (0-1)", labels=mp)
         sensor_rms = GaugeMetricFamily(f"{P}sensor_rms_volts", "RMS of the raw input over the window, volts", labels=mp)
         sensor_mean = GaugeMetricFamily(f"{P}sensor_mean_volts", "mean (DC) of the raw input over the window, volts",
                                         labels=mp)
-        point_state = StateSetMetricFamily(f"{P}point_state", "state of a measurement point", labels=mp)
-        machine_state = StateSetMetricFamily(f"{P}machine_state", "state of a machine (worst of its points)",
-                                             labels=["agent", "machine"])
+        point_state = EnumGauge(f"{P}point_state", "state of a measurement point (1 for the current state)", mp, "state")
+        machine_state = EnumGauge(f"{P}machine_state", "state of a machine, from its points (1 for the current state)",
+                                  ["agent", "machine"], "state")
         speed = GaugeMetricFamily(f"{P}shaft_speed_hertz", "shaft speed used by the analysis, Hz (rpm / 60)",
                                   labels=["agent", "machine"])
-        speed_source = StateSetMetricFamily(f"{P}shaft_speed_source", "where the shaft speed came from",
-                                            labels=["agent", "machine"])
+        speed_source = EnumGauge(f"{P}shaft_speed_source", "where the shaft speed came from (1 for the current source)",
+                                 ["agent", "machine"], "source")
 
         quantities = {m.id: {b.name: b.quantity for b in m.bands} for m in config.machines}
         for mid, upd in sorted(latest.items()):
             q = quantities.get(mid, {})
-            machine_state.add_metric([agent, mid], {s: s == upd.state for s in STATES})
+            machine_state.add_enum([agent, mid], {s: s == upd.state for s in STATES})
             if _finite(upd.rpm):
                 speed.add_metric([agent, mid], upd.rpm / 60.0)  # type: ignore[operator]
             src = upd.rpm_source if upd.rpm_source in SPEED_SOURCES else None
             if src is not None:
-                speed_source.add_metric([agent, mid], {s: s == src for s in SPEED_SOURCES})
+                speed_source.add_enum([agent, mid], {s: s == src for s in SPEED_SOURCES})
             for pid, pu in sorted(upd.points.items()):
                 lp = [agent, mid, pid]
-                point_state.add_metric(lp, {s: s == pu.state for s in STATES})
+                point_state.add_enum(lp, {s: s == pu.state for s in STATES})
                 h = pu.health
                 sensor_ok.add_metric(lp, 1.0 if h.ok else 0.0)
                 check = "ok" if h.ok else h.fault
                 if check in SENSOR_CHECKS:
-                    sensor_check.add_metric(lp, {c: c == check for c in SENSOR_CHECKS})
+                    sensor_check.add_enum(lp, {c: c == check for c in SENSOR_CHECKS})
                 if (h.ok and pu.result is not None) or h.fault in BLOCK_FAULTS:  # figures measured on samples
                     for fam, v in ((sensor_clipped, h.clipped_fraction), (sensor_rms, h.rms_v), (sensor_mean, h.mean_v)):
                         if _finite(v):
@@ -194,7 +207,7 @@ class UpdateCollector:
                     if _finite(r.overall_velocity_mm_s):
                         overall.add_metric(lp, r.overall_velocity_mm_s * MM_S)
                     if r.iso_zone in ISO_ZONES:
-                        zone.add_metric(lp, {z: z == r.iso_zone for z in ISO_ZONES})
+                        zone.add_enum(lp, {z: z == r.iso_zone for z in ISO_ZONES})
                     for name, value in sorted(r.bands.items()):
                         quantity = q.get(name)
                         if quantity is None or not _finite(value):
@@ -213,7 +226,7 @@ class UpdateCollector:
                 for name, vs in sorted(pu.values.items()):
                     quantity = "velocity" if name == "overall" else q.get(name)
                     if vs.state in VALUE_STATES:
-                        value_state.add_metric(lp + [name], {s: s == vs.state for s in VALUE_STATES})
+                        value_state.add_enum(lp + [name], {s: s == vs.state for s in VALUE_STATES})
                     latched.add_metric(lp + [name], 1.0 if vs.latched else 0.0)
                     raises.add_metric(lp + [name], float(vs.raises))
                     chatter.add_metric(lp + [name], float(vs.chatter))

@@ -170,7 +170,7 @@ def recording_daemon(tmp_path: Path, recording: str) -> DaemonProcess:
 def no_data_now(d: DaemonProcess) -> bool:
     text = scrape(d)
     return metric(text, "rotorwatch_source_up") == 0 and \
-        metric(text, "rotorwatch_point_state", point="de-h", rotorwatch_point_state="no_data") == 1
+        metric(text, "rotorwatch_point_state", point="de-h", state="no_data") == 1
 
 
 def test_corrupt_recording_is_reported_and_the_daemon_keeps_running(tmp_path):

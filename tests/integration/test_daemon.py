@@ -94,7 +94,7 @@ def test_states_events_metrics_and_clean_stop(mosquitto_broker, promtool, tmp_pa
         rc, findings = promtool.check_metrics(text)
         assert rc == 0, findings
         assert 'rotorwatch_overall_velocity_meters_per_second{agent="halden-ef3",machine="ef3",point="de-h"}' in text
-        assert 'rotorwatch_machine_state{agent="halden-ef3",machine="ef3",rotorwatch_machine_state="alarm"} 1.0' in text
+        assert 'rotorwatch_machine_state{agent="halden-ef3",machine="ef3",state="alarm"} 1.0' in text
 
         # a late subscriber gets the retained copies
         late = MqttListener(mosquitto_broker, topics=[f"{root}/#"]).connect()

@@ -245,7 +245,7 @@ def test_real_prometheus_scrapes_the_daemon(tmp_path, daemons, prometheus_server
     v = float(result[0]["value"][1])
     assert 1e-4 < v < 5e-2  # m/s: the demo fan runs at about 1 mm/s overall
     zones = prom.query('rotorwatch_iso_zone{machine="ef3",point="de-h"} == 1')
-    assert len(zones) == 1 and zones[0]["metric"]["rotorwatch_iso_zone"] in "ABCD"
+    assert len(zones) == 1 and zones[0]["metric"]["zone"] in "ABCD"
     assert d.stop() == 0
 
 

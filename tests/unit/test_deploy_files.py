@@ -162,7 +162,7 @@ def test_alerts_cover_the_daemon_states():
     from rotorwatch.alarms.records import STATES
 
     for name, expr in exprs.items():
-        for state in re.findall(r'rotorwatch_point_state="([a-z_]+)"', expr):
+        for state in re.findall(r'state="([a-z_]+)"', expr):
             assert state in STATES, f"{name}: unknown state {state!r}"
     assert "absent(up" in exprs["RotorwatchAgentsAbsent"]
     assert "up{" in exprs["RotorwatchAgentDown"] and "== 0" in exprs["RotorwatchAgentDown"]

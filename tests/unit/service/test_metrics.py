@@ -94,15 +94,30 @@ def test_values_are_in_base_units():
     assert value(text, "rotorwatch_value_latched", point="de-h", band="shaft-1x") == 1.0
 
 
+def test_state_labels_are_short_and_never_repeat_the_metric_name():
+    from prometheus_client.parser import text_string_to_metric_families
+
+    text = exposition([machine_update()])
+    short = {"rotorwatch_iso_zone": "zone", "rotorwatch_value_state": "state", "rotorwatch_point_state": "state",
+             "rotorwatch_machine_state": "state", "rotorwatch_sensor_check": "check",
+             "rotorwatch_shaft_speed_source": "source"}
+    for fam in text_string_to_metric_families(text):
+        for sample in fam.samples:
+            assert fam.name not in sample.labels, (fam.name, sample.labels)
+            if fam.name in short:
+                assert short[fam.name] in sample.labels, (fam.name, sample.labels)
+    assert 'rotorwatch_iso_zone{agent="halden-ef3",machine="ef3",point="de-h",zone="A"} 1.0' in text
+
+
 def test_states_are_enum_style():
     text = exposition([machine_update()])
-    assert value(text, "rotorwatch_iso_zone", point="de-h", rotorwatch_iso_zone="A") == 1.0
-    assert value(text, "rotorwatch_iso_zone", point="de-h", rotorwatch_iso_zone="C") == 0.0
-    assert value(text, "rotorwatch_machine_state", machine="ef3", rotorwatch_machine_state="warning") == 1.0
-    assert value(text, "rotorwatch_machine_state", machine="ef3", rotorwatch_machine_state="normal") == 0.0
-    assert value(text, "rotorwatch_point_state", point="nde-h", rotorwatch_point_state="warning") == 1.0
+    assert value(text, "rotorwatch_iso_zone", point="de-h", zone="A") == 1.0
+    assert value(text, "rotorwatch_iso_zone", point="de-h", zone="C") == 0.0
+    assert value(text, "rotorwatch_machine_state", machine="ef3", state="warning") == 1.0
+    assert value(text, "rotorwatch_machine_state", machine="ef3", state="normal") == 0.0
+    assert value(text, "rotorwatch_point_state", point="nde-h", state="warning") == 1.0
     assert value(text, "rotorwatch_value_state", point="de-h", band="de-outer-race",
-                 rotorwatch_value_state="learning") == 1.0
+                 state="learning") == 1.0
 
 
 def test_nan_values_are_left_out_and_stalled_points_expose_state_only():
@@ -110,7 +125,7 @@ def test_nan_values_are_left_out_and_stalled_points_expose_state_only():
     names = [(n, dict(l)) for (n, l) in samples(text)]
     assert not any(n == "rotorwatch_band_value_meters_per_second" and l.get("band") == "shaft-1x" for n, l in names)
     text = exposition([stalled_update()])
-    assert value(text, "rotorwatch_point_state", point="de-h", rotorwatch_point_state="sensor_fault") == 1.0
+    assert value(text, "rotorwatch_point_state", point="de-h", state="sensor_fault") == 1.0
     assert value(text, "rotorwatch_sensor_ok", point="de-h") == 0.0
     assert not any(n == "rotorwatch_overall_velocity_meters_per_second" for n, _ in samples(text))
 
