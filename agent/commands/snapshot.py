@@ -38,6 +38,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     plot.add_argument("id", metavar="ID")
     plot.add_argument("--out", metavar="PNG", required=True, help="output file")
     plot.add_argument("--point", metavar="P", help="point id (default: the first with spectra)")
+    plot.add_argument("--all-bearings", action="store_true",
+                      help="mark every bearing's defect frequencies, not only the point's own bearing's")
 
 
 def _store(args: argparse.Namespace) -> SnapshotStore:
@@ -52,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
         return _show(store, args)
     from ..storage.snapshot_plot import plot_snapshot
 
-    out = plot_snapshot(store, args.id, args.out, point_id=args.point)
+    out = plot_snapshot(store, args.id, args.out, point_id=args.point, all_bearings=args.all_bearings)
     print(out)
     return 0
 

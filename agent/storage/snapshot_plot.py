@@ -3,9 +3,10 @@
 Three panels, top to bottom: the velocity spectrum (mm/s RMS) up to the overall band's upper edge or
 12 orders, with shaft and blade-pass markers; the acceleration spectrum (m/s^2 RMS, log scale) with
 the acceleration bands and the envelope demodulation band; the envelope spectrum with the bearing
-defect frequencies and their harmonics. Band regions are shaded with their names; marker families
-have their own colour, harmonics fade. A header line gives machine, point, time, reason, speed and
-states.
+defect frequencies and their harmonics, of the point's own bearing (every bearing of the machine with
+``all_bearings``, or when the point names none). Band regions are shaded with their names; marker
+families have their own colour, harmonics fade. A header gives machine, point, time, reason, speed and
+states; the legend has a row of its own under it, so neither runs into the other.
 
 matplotlib is an optional extra (``pip install 'rotorwatch[plot]'``); it is imported only here, when a
 plot is asked for, with the non-interactive Agg backend.
@@ -106,8 +107,27 @@ def _spectrum_panel(ax: Any, spec: Any, x_max: float, title: str, ylabel: str, l
         ax.spines[side].set_visible(False)
 
 
-def plot_snapshot(store: Any, snap_id: str, out_path: str | Path, point_id: str | None = None) -> Path:
-    """Draw ``point_id`` (default: the first point with spectra) of snapshot ``snap_id`` to a PNG."""
+def plot_snapshot(store: Any, snap_id: str, out_path: str | Path, point_id: str | None = None,
+                  all_bearings: bool = False) -> Path:
+    """Draw ``point_id`` (default: the first point with spectra) of snapshot ``snap_id`` to a PNG.
+
+    Bearing-defect markers are the point's own bearing's, unless ``all_bearings`` (or the point names
+    no bearing)."""
+    plt = _pyplot()
+    fig = draw_snapshot(store, snap_id, point_id, all_bearings)
+    out = Path(out_path)
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+        fig.savefig(out, dpi=110, facecolor=PAPER)
+    except OSError as e:
+        raise StorageError(f"{out}: cannot write the plot: {e.strerror or e}") from e
+    finally:
+        plt.close(fig)
+    return out
+
+
+def draw_snapshot(store: Any, snap_id: str, point_id: str | None = None, all_bearings: bool = False) -> Any:
+    """The matplotlib figure :func:`plot_snapshot` saves (close it with ``pyplot.close``)."""
     doc = store.load(snap_id)
     points = doc.get("points", {})
     if point_id is None:
@@ -121,6 +141,9 @@ def plot_snapshot(store: Any, snap_id: str, out_path: str | Path, point_id: str 
     entry = points[point_id]
     bands = entry.get("bands", [])
     markers = doc.get("markers", [])
+    own = entry.get("bearing")
+    if own is not None and not all_bearings:
+        markers = [m for m in markers if m.get("bearing") in (None, own)]
     shaft_hz = (doc.get("speed") or {}).get("shaft_hz") or 0.0
     panels = [q for q in ("velocity", "acceleration", "envelope") if q in spectra]
     fig, axes = plt.subplots(len(panels), 1, figsize=(11, 2.9 * len(panels) + 0.8), facecolor=PAPER, squeeze=False)
@@ -158,30 +181,34 @@ def plot_snapshot(store: Any, snap_id: str, out_path: str | Path, point_id: str 
         ax.set_xlabel("frequency (Hz)", fontsize=8)
     speed = doc.get("speed") or {}
     rpm = speed.get("rpm")
+    import textwrap
+
     head = (f"{doc.get('machine')} / {point_id}   {doc.get('time_utc')}   {doc.get('reason')}"
             + (f": {doc['detail']}" if doc.get("detail") else ""))
+    head_lines = textwrap.wrap(head, 120, subsequent_indent="    ")[:3]
     overall = entry.get("overall_velocity_mm_s")
     sub = "   ".join(s for s in (
         f"speed {rpm:.0f} rpm ({speed.get('source')})" if rpm else "speed unknown",
         f"machine {doc.get('machine_state')}", f"point {entry.get('state')}",
         f"overall {overall:.2f} mm/s zone {entry.get('iso_zone')}" if overall is not None else "",
     ) if s)
-    fig.text(0.01, 0.995, head, fontsize=10, weight="bold", va="top", color="#222222")
-    fig.text(0.01, 0.995 - 0.32 / fig.get_figheight(), sub, fontsize=8, va="top", color="#444444")
+    # header rows from the top, in inches: title line(s), the states line, then the legend's own row
+    inch = 1.0 / fig.get_figheight()
+    y = 1.0 - 0.08 * inch
+    for line in head_lines:
+        fig.text(0.01, y, line, fontsize=10, weight="bold", va="top", color="#222222")
+        y -= 0.22 * inch
+    fig.text(0.01, y - 0.04 * inch, sub, fontsize=8, va="top", color="#444444")
+    y -= 0.26 * inch
     if legend_families:
         from matplotlib.lines import Line2D
 
         handles = [Line2D([], [], color=FAMILY_COLOURS[f], ls="--", lw=1.2, label=FAMILY_LABELS[f])
                    for f in FAMILY_COLOURS if f in legend_families]
-        fig.legend(handles=handles, loc="upper right", ncol=len(handles), fontsize=7, frameon=False,
-                   bbox_to_anchor=(0.995, 0.998))
-    fig.tight_layout(rect=(0, 0, 1, 1 - 0.75 / fig.get_figheight()))
-    out = Path(out_path)
-    try:
-        out.parent.mkdir(parents=True, exist_ok=True)
-        fig.savefig(out, dpi=110, facecolor=PAPER)
-    except OSError as e:
-        raise StorageError(f"{out}: cannot write the plot: {e.strerror or e}") from e
-    finally:
-        plt.close(fig)
-    return out
+        if own is not None and not all_bearings:
+            handles.append(Line2D([], [], color="none", label=f"(bearing markers: {own})"))
+        fig.legend(handles=handles, loc="upper left", ncol=len(handles), fontsize=7, frameon=False,
+                   bbox_to_anchor=(0.005, y), borderaxespad=0.0)
+        y -= 0.24 * inch
+    fig.tight_layout(rect=(0, 0, 1, y - 0.05 * inch))
+    return fig

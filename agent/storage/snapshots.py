@@ -208,8 +208,14 @@ class SnapshotStore:
         points: dict[str, Any] = {}
         for pid, pu in update.points.items():
             res = pu.result
+            bearing = None
+            if machine is not None:
+                try:
+                    bearing = machine.point(pid).bearing
+                except KeyError:
+                    bearing = None
             entry: dict[str, Any] = {
-                "state": pu.state, "reason": pu.reason, "health": asdict(pu.health),
+                "state": pu.state, "reason": pu.reason, "health": asdict(pu.health), "bearing": bearing,
                 "values": {name: {k: v for k, v in asdict(vs).items() if k != "name"} for name, vs in pu.values.items()},
                 "waveform_file": None, "spectra_file": None,
             }

@@ -301,3 +301,54 @@ def test_policy_remembers_entries_across_a_restart(tmp_path):
     policy = SnapshotPolicy(SnapshotSettings(min_interval_s=600, daily_at_utc=None), store)
     assert policy.decide(update(T0 + 30, events=[transition(T0 + 30)])) is None  # the same entry, 30 s later
     assert policy.decide(update(T0 + 40, events=[transition(T0 + 40, new="warning")]))[0] == "transition"
+
+
+def _two_bearing_config() -> Config:
+    """make_config's fan with a second (invented) bearing on the non-drive end."""
+    raw = make_config().model_dump(mode="json", exclude_none=True)
+    m = raw["machines"][0]
+    m["bearings"].append({"id": "nde-brg", "elements": 8, "element_diameter": 0.25, "pitch_diameter": 1.3,
+                          "diameter_unit": "in"})
+    m["points"][1]["bearing"] = "nde-brg"
+    return Config.model_validate(raw)
+
+
+def test_plot_marks_the_point_s_own_bearing_and_keeps_the_title_clear_of_the_legend(tmp_path):
+    import matplotlib.pyplot as plt
+
+    from rotorwatch.kinematics import bearing_multiples
+    from rotorwatch.storage.snapshot_plot import draw_snapshot
+
+    config = _two_bearing_config()
+    machine = config.machines[0]
+    store = SnapshotStore(tmp_path / "snapshots")
+    long_detail = "; ".join(f"de/band-{i} warning->alarm" for i in range(12))  # a long transition line
+    upd = update(T0, overall=7.5, state="alarm", with_spectra=True, events=[transition(T0)], rpm=RPM)
+    info = store.save(upd, {"de": waveform(), "nde": waveform(seed=4)}, reason="transition", machine=machine,
+                      config_hash=config_fingerprint(config), detail=long_detail)
+    shaft_hz = RPM / 60.0
+    bpfo = {b.id: bearing_multiples(b).bpfo * shaft_hz for b in machine.bearings}
+
+    def envelope_lines(fig) -> list[float]:
+        ax = next(a for a in fig.axes if a.get_title(loc="left") == "envelope spectrum")
+        return [float(line.get_xdata()[0]) for line in ax.get_lines() if len(set(line.get_xdata())) == 1]
+
+    fig = draw_snapshot(store, info.id, "de")
+    try:
+        lines = envelope_lines(fig)
+        assert any(abs(x - bpfo["de-brg"]) < 1e-6 for x in lines)
+        assert not any(abs(x - bpfo["nde-brg"]) < 1e-6 for x in lines)  # the other bearing is not marked
+        fig.canvas.draw()
+        renderer = fig.canvas.get_renderer()
+        legend = fig.legends[0].get_window_extent(renderer)
+        for text in fig.texts:
+            assert not text.get_window_extent(renderer).overlaps(legend), text.get_text()
+        for ax in fig.axes:  # the header and the legend sit above every panel
+            assert ax.get_tightbbox(renderer).y1 <= legend.y0 + 1
+    finally:
+        plt.close(fig)
+    fig = draw_snapshot(store, info.id, "de", all_bearings=True)
+    try:
+        assert any(abs(x - bpfo["nde-brg"]) < 1e-6 for x in envelope_lines(fig))  # asked for: every bearing
+    finally:
+        plt.close(fig)
