@@ -43,14 +43,14 @@ def _run_problems(path: str, cfg: Config) -> list[str]:
     from ..errors import RotorwatchError  # noqa: PLC0415
     from ..sources.base import configured_source  # noqa: PLC0415
 
-    hint = "; rotorwatch run would refuse this file"
     try:
         source = configured_source(cfg, Path(path).resolve().parent)
         source.check()
     except ConfigError as e:
-        return [f"{path}: {line}{hint}" for line in e.problems]
+        return [f"{path}: {line}; rotorwatch run would refuse this file" for line in e.problems]
     except (RotorwatchError, ValueError) as e:
-        return [f"{path}: {str(e).splitlines()[0]}{hint}"]
+        return [f"{path}: {str(e).splitlines()[0]}; rotorwatch run cannot play this input "
+                "(--once stops with this error, a running daemon reports it and retries)"]
     return []
 
 

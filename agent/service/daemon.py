@@ -206,9 +206,12 @@ class Daemon:
         return 0
 
     def _preflight(self, config: Config) -> None:
-        """Build the source and let it check what ``start()`` would refuse (a recording without a path,
-        a file of the wrong rate): a ConfigError or InputError here ends the start-up in one line.
-        Nothing is opened: a device that is missing now is retried by the capture thread."""
+        """Build the source and let it check what ``start()`` would refuse.
+
+        A configuration that cannot work (a recording or a scenario without a path, a scenario that does
+        not load) ends the start-up in one line (ConfigError, exit 2). A file that is missing, damaged or
+        of the wrong rate ends it only with ``fail_fast`` (``--once``); a long-running daemon reports
+        the input unavailable and retries, as for a device that is missing now (never probed here)."""
         from ..errors import InputError
 
         try:
@@ -220,8 +223,9 @@ class Daemon:
             raise ConfigError([p if not p.startswith("acquisition.") else f"{self.config_path}: {p}"
                                for p in e.problems]) from None
         except InputError as e:
-            msg = str(e)
-            raise InputError(f"{self.config_path}: {msg}" if msg.startswith("acquisition.") else msg) from None
+            if self.options.fail_fast:
+                raise
+            log.warning(f"input not usable yet, retrying: {e}", extra=fields(source=config.acquisition.source))
 
     def _warn_exposed_secrets(self, config: Config) -> None:
         from .secret_files import readable_by_all, warning_line

@@ -29,7 +29,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import ConfigError, InputError
 from ..recordings import Recording, open_recording
 from ..settings.models import G_N
 from .base import Chunk, Source, resolve_path
@@ -139,8 +139,8 @@ class RecordingSource(Source):
 def from_settings(acquisition: Any, config_dir: Path | None = None, *, pace: bool = True,
                   full_scale_v: Any = None, **options: Any) -> RecordingSource:
     if not acquisition.recording:
-        raise InputError("acquisition.recording: source 'recording' needs the path of a recording "
-                         "(a sound file or .npz), e.g. --set 'acquisition.recording=\"rec.wav\"'")
+        raise ConfigError(["acquisition.recording: source 'recording' needs the path of a recording "
+                           "(a sound file or .npz), e.g. --set 'acquisition.recording=\"rec.wav\"'"])
     path = resolve_path(acquisition.recording, config_dir)
     return RecordingSource(path, acquisition.sample_rate_hz, acquisition.channels, acquisition.block_frames,
                            loop=acquisition.loop, pace=pace, speedup=acquisition.speedup, **options)

@@ -119,11 +119,11 @@ def damaged_wavs(folder: Path) -> dict[str, tuple[Path, str]]:
     data = good.read_bytes()
     cases = {
         "truncated": (data[: len(data) // 2], "truncated: the header declares"),
-        "header-only": (data[:44], "cannot read as a sound file"),
-        "zero-bytes": (b"", "cannot read as a sound file"),
-        "text": (b"this is a note, not a recording\n", "cannot read as a sound file"),
-        "garbage": (np.random.default_rng(3).bytes(6000), "cannot read as a sound file"),
-        "broken-fmt": (b"RIFX" + data[4:], "cannot read as a sound file"),
+        "header-only": (data[:44], "not a readable sound file"),
+        "zero-bytes": (b"", "not a readable sound file"),
+        "text": (b"this is a note, not a recording\n", "not a readable sound file"),
+        "garbage": (np.random.default_rng(3).bytes(6000), "not a readable sound file"),
+        "broken-fmt": (b"RIFX" + data[4:], "not a readable sound file"),
     }
     out = {}
     for name, (blob, expect) in cases.items():
@@ -138,7 +138,7 @@ def damaged_wavs(folder: Path) -> dict[str, tuple[Path, str]]:
 
 def test_damaged_wavs_for_analyze_are_one_line_errors(tmp_path):
     for name, (path, expect) in damaged_wavs(tmp_path).items():
-        done = run_cli("analyze", str(path), "--rpm", "1482")
+        done = run_cli("analyze", str(path), "--rpm", "1482", "--unit", "g")
         lines = check_one_line_errors(done, path, path, expect)
         assert len(lines) == 1, (name, lines)
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from rotorwatch.errors import InputError
+from rotorwatch.errors import ConfigError, InputError
 from rotorwatch.settings.models import Acquisition
 from rotorwatch.sources.base import open_source
 from rotorwatch.sources.recording import RecordingSource
@@ -166,7 +166,7 @@ def test_open_source_resolves_recording_relative_to_config_dir(tmp_path):
         got = np.concatenate([c.frames for c in _drain(src)])
     np.testing.assert_array_equal(got, x)
     assert "a.wav" in src.describe()
-    with pytest.raises(InputError, match="needs the path"):
+    with pytest.raises(ConfigError, match="needs the path"):
         open_source(Acquisition(source="recording"), tmp_path)
 
 
