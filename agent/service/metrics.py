@@ -156,8 +156,8 @@ class UpdateCollector:
                                      labels=mp + ["band"])
         chatter = CounterMetricFamily(f"{P}value_chatter", "raises of a value that came soon after its last lowering "
                                       "(within alarms.chatter_window_updates): chatter", labels=mp + ["band"])
-        finding_state = StateSetMetricFamily(f"{P}finding_state", "state a persisting finding raises (alarms.findings)",
-                                             labels=mp + ["finding"])
+        finding_state = EnumGauge(f"{P}finding_state", "state a persisting finding raises (alarms.findings), "
+                                  "1 for the current state", mp + ["finding"], "state")
         finding_chatter = CounterMetricFamily(f"{P}finding_chatter", "raises of a finding soon after its last clearing",
                                               labels=mp + ["finding"])
         wf_rms = GaugeMetricFamily(f"{P}waveform_rms_meters_per_second_squared", "acceleration RMS of the window, m/s^2", labels=mp)
@@ -221,7 +221,7 @@ class UpdateCollector:
                             fam.add_metric(lp, v)
                 for fname, fst in sorted(pu.findings.items()):
                     if fst.state in FINDING_STATES:
-                        finding_state.add_metric(lp + [fname], {s: s == fst.state for s in FINDING_STATES})
+                        finding_state.add_enum(lp + [fname], {s: s == fst.state for s in FINDING_STATES})
                     finding_chatter.add_metric(lp + [fname], float(fst.chatter))
                 for name, vs in sorted(pu.values.items()):
                     quantity = "velocity" if name == "overall" else q.get(name)

@@ -71,7 +71,8 @@ def test_analyze_names_the_envelope_peaks_alike_in_text_and_json(tmp_path, capsy
     x *= 1.0 + 0.5 * np.cos(2 * np.pi * 2 * SHAFT_HZ * t)  # sidebands at +/- 2x, as on the rig's 0.007 in records
     f = tmp_path / "ir.wav"
     soundfile.write(f, (x / G_N).astype(np.float32), fs, subtype="FLOAT")
-    args = ["analyze", str(f), "--rpm", f"{SHAFT_HZ * 60:g}", "--bearing", "n=9,d=0.3126in,D=1.537in,angle=0"]
+    args = ["analyze", str(f), "--rpm", f"{SHAFT_HZ * 60:g}", "--bearing", "n=9,d=0.3126in,D=1.537in,angle=0",
+            "--unit", "g"]
     assert main(args + ["--format", "json"]) == 0
     doc = json.loads(capsys.readouterr().out)
     names = [p["matches"] for p in doc["envelope_peaks"]]

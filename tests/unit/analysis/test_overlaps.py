@@ -11,6 +11,7 @@ from rotorwatch.cli import main
 
 CONFIG = """\
 [acquisition]
+source = "stdin"   # check refuses what run would: a simulated input needs a scenario
 sample_rate_hz = 25600
 channels = 1
 

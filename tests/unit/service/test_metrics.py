@@ -100,7 +100,7 @@ def test_state_labels_are_short_and_never_repeat_the_metric_name():
     text = exposition([machine_update()])
     short = {"rotorwatch_iso_zone": "zone", "rotorwatch_value_state": "state", "rotorwatch_point_state": "state",
              "rotorwatch_machine_state": "state", "rotorwatch_sensor_check": "check",
-             "rotorwatch_shaft_speed_source": "source"}
+             "rotorwatch_shaft_speed_source": "source", "rotorwatch_finding_state": "state"}
     for fam in text_string_to_metric_families(text):
         for sample in fam.samples:
             assert fam.name not in sample.labels, (fam.name, sample.labels)
