@@ -10,6 +10,10 @@ MSSP 25(2) 2011, section 2:
     BSF  = D/(2d) f_r * (1 - (d/D cos phi)^2)   element spin (a spalled element strikes at 2 x BSF)
 
 Blade pass is blade count x shaft frequency (common practice).
+
+Electrical lines: an induction motor on the mains vibrates at twice the line frequency, 2xLF (100 Hz on
+50 Hz mains, 120 Hz on 60 Hz), and its harmonics (common practice; references.md section 8, from memory).
+They are not shaft orders, however close to one they fall.
 """
 
 from __future__ import annotations
@@ -80,12 +84,24 @@ def band_edges_hz(machine: Machine, band: Band, shaft_hz: float) -> list[tuple[f
     return [(k * centre * (1 - tol), k * centre * (1 + tol)) for k in range(1, band.harmonics + 1)]
 
 
+def electrical_lines(machine: Machine, top_hz: float) -> list[tuple[str, float]]:
+    """2xLF and its harmonics up to ``top_hz`` as (label, Hz): ``2xLF``, ``4xLF``, ... (none without a line
+    frequency)."""
+    lf = machine.line_frequency_hz
+    if lf is None:
+        return []
+    return [(f"{2 * h}xLF", 2 * h * lf) for h in range(1, int(top_hz / (2 * lf)) + 1)]
+
+
 def frequency_table(machine: Machine, rpm: float) -> dict[str, float]:
-    """Named kinematic frequencies in Hz at ``rpm``: 1x, 2x, blade pass, each bearing's defects."""
+    """Named kinematic frequencies in Hz at ``rpm``: 1x, 2x, blade pass, each bearing's defects (and 2xLF,
+    an electrical line, when the machine has a line frequency)."""
     f = rpm / 60.0
     table = {"1x": f, "2x": 2 * f}
     if machine.blades:
         table["blade_pass"] = machine.blades * f
+    if machine.line_frequency_hz is not None:
+        table["2xLF"] = 2 * machine.line_frequency_hz
     for b in machine.bearings:
         for name, mult in bearing_multiples(b).as_dict().items():
             table[f"{name}:{b.id}"] = mult * f

@@ -5,7 +5,9 @@ and sampling rate) and never changes afterwards; each update only reads it. It h
 
 - the Welch spectrum set-up: segment length ``n_per_seg`` from the asked lines and span
   (``fs / n_per_seg <= fmax_hz / lines``, rounded up to a power of two), overlap, Hann window;
-- the velocity integration weights (1/(2 pi f))^2 with the low cut-off, and the overall band's bins;
+- the velocity integration weights (1/(2 pi f))^2 with the low cut-off, and the overall band (the overall
+  and the acceleration and velocity bands read the window's narrow-band spectrum, :mod:`.narrowband`;
+  the Welch spectrum is what is published for display, its lines made fine enough for the slowest 1x);
 - each configured band, with its bins when its edges are fixed in Hz;
 - the envelope set-up (fixed demodulation band or band search, span, lines: the configured count, capped
   so that two half-overlapping envelope segments fit one update window);
@@ -41,6 +43,10 @@ AC_CORRECTION_MAX = 10.0
 # The envelope analysis tapers this fraction of the block at each end and drops it afterwards.
 EDGE_TAPER_FRACTION = 0.02
 MIN_ENVELOPE_LINES = 100
+# The published (Welch) spectrum puts the slowest expected 1x at line 5 or above, so that its Hann lobe
+# (lines 3-7) clears the integration cut-off (2 lines) and the 2x's lobe (lines 8-12): our choice, a slow
+# machine needs lines fine enough for its 1x. The segment grows for it, never beyond the window.
+MIN_1X_LINE = 5
 
 
 @dataclass(frozen=True)
@@ -104,8 +110,10 @@ class AnalysisPlan:
     window: np.ndarray
     ac_power_gain: np.ndarray | None  # PSD correction for an AC-coupled input, or None
     velocity_weight: np.ndarray  # (1000 / (2 pi f))^2 above the cut-off, else 0: (m/s^2)^2/Hz -> (mm/s)^2/Hz
-    velocity_cutoff_hz: float
-    overall_bins: slice
+    velocity_cutoff_hz: float  # of the Welch spectrum: the integration cut-off, at least two of its lines
+    integration_cutoff_hz: float  # below this velocity is not integrated (the narrow-band spectrum's cut-off)
+    overall_band_hz: tuple[float, float]
+    narrow_top_hz: float  # highest frequency the narrow-band spectrum must hold (overall, bands)
     iso_group: int
     support: str
     bands: tuple[BandPlan, ...]
@@ -196,6 +204,10 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     if fmax > nyquist:
         raise _too_fast("analysis.fmax_hz", fmax, fs_hz)
     n_per_seg = _segment_length(fs_hz, fmax, an.lines)
+    slowest_1x_hz = machine.speed.lowest_rpm / 60.0
+    window_n = int(an.window_s * fs_hz)
+    while fs_hz / n_per_seg > slowest_1x_hz / MIN_1X_LINE and 2 * n_per_seg <= window_n:
+        n_per_seg *= 2
     n_overlap = min(int(round(n_per_seg * an.overlap_pct / 100.0)), n_per_seg - 1)
     freqs = np.fft.rfftfreq(n_per_seg, 1.0 / fs_hz)
     df = fs_hz / n_per_seg
@@ -221,9 +233,12 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     # below it (at the slowest expected speed), never below two bins (DC and its leakage).
     cutoff = ov.low_hz
     bands = []
+    narrow_top = ov.high_hz
     for band in machine.bands_for(point.id):
         edges_fast = kinematics.band_edges_hz(machine, band, fast_hz)
         top = max(hi for _, hi in edges_fast)
+        if band.quantity != "envelope":
+            narrow_top = max(narrow_top, top * 1.01)
         if band.quantity != "envelope" and top >= nyquist:
             raise _too_fast(f"band {band.name!r}", top, fs_hz)
         if band.quantity == "velocity":
@@ -231,12 +246,11 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
             cutoff = min(cutoff, 0.8 * low)
         fixed = tuple(edges_fast) if band.low_hz is not None else None
         bands.append(BandPlan(band, band.quantity, fixed))
+    integration_cutoff = cutoff
     cutoff = max(cutoff, 2.0 * df)
     with np.errstate(divide="ignore"):
         vel_w = (1000.0 / (2.0 * np.pi * freqs)) ** 2
     vel_w[freqs < cutoff] = 0.0
-    overall_bins = slice(int(np.searchsorted(freqs, ov.low_hz, side="left")),
-                         int(np.searchsorted(freqs, ov.high_hz, side="right")))
 
     defects = defect_plans(machine, point)
     env_cfg = an.envelope
@@ -289,7 +303,9 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         ac_power_gain=ac_gain,
         velocity_weight=vel_w,
         velocity_cutoff_hz=float(cutoff),
-        overall_bins=overall_bins,
+        integration_cutoff_hz=float(integration_cutoff),
+        overall_band_hz=(float(ov.low_hz), float(ov.high_hz)),  # type: ignore[arg-type]
+        narrow_top_hz=float(min(narrow_top, nyquist)),
         iso_group=machine.iso_group,
         support=machine.support,
         bands=tuple(bands),

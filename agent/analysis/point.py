@@ -3,10 +3,11 @@
     analyzer = PointAnalyzer(machine, point, fs_hz)      # builds the plan once
     result = analyzer.analyze(block_m_s2, time_s=t)      # per update
 
-Per update: waveform indicators; Welch acceleration PSD (Hann); velocity by integration and the overall
-velocity RMS with its ISO 20816-3 zone; one FFT of the whole block, shared by the running-speed estimate
-(fine resolution) and the envelope; band values (orders follow the speed used); envelope and
-squared-envelope spectra; bearing findings and each defect's line prominence. The block is calibrated acceleration in m/s^2
+Per update: waveform indicators; one FFT of the whole block, shared by the running-speed estimate, the
+narrow-band spectrum (lines 1/T apart, :mod:`.narrowband`: the overall velocity RMS with its ISO 20816-3
+zone and the acceleration and velocity band values, orders following the speed used) and the envelope;
+envelope and squared-envelope spectra; bearing findings and each defect's line prominence; the Welch
+acceleration and velocity spectra (Hann) when spectra are kept for display. The block is calibrated acceleration in m/s^2
 (the caller divides volts by the sensor's sensitivity).
 
 Speed used when ``rpm`` is not given: ``fixed`` -> the configured rpm; ``estimated`` -> the harmonic-sum
@@ -31,11 +32,12 @@ from . import severity
 from .envelope import BlockSpectrum, EnvelopeKernel
 from .findings import assess
 from .indicators import waveform
+from .narrowband import NarrowbandKernel, electrical_mask
 from .plan import AnalysisPlan, build_plan
 from .result import PointResult, Spectrum
 from .speed import N_HARMONICS, estimate_speed
 from .spectrum import WelchKernel
-from .velocity import overall_velocity_mm_s, velocity_line_rms, velocity_psd
+from .velocity import velocity_line_rms
 from ..errors import InputError
 from ..settings.models import Machine, Point
 
@@ -52,6 +54,8 @@ class PointAnalyzer:
         p = self.plan
         self._welch = WelchKernel(p.window, p.n_overlap, p.fs_hz, dtype=np.float32)
         self._envelope = EnvelopeKernel(p.envelope, p.fs_hz)
+        self._narrow = NarrowbandKernel(p)
+        self._speed_leave_out: dict[int, np.ndarray | None] = {}
 
     @property
     def min_samples(self) -> int:
@@ -81,9 +85,7 @@ class PointAnalyzer:
         if sp.mode == "fixed":
             return sp.nominal_rpm, "fixed"
         if sp.mode == "estimated":
-            top_hz = (N_HARMONICS + 2) * sp.max_rpm / 60.0  # type: ignore[operator]
-            n_bins = min(int(top_hz / bs.df_hz) + 2, bs.spec.size)
-            est = estimate_speed(bs.amplitude(n_bins), bs.df_hz, sp.min_rpm, sp.max_rpm)  # type: ignore[arg-type]
+            est = self._estimate(bs, sp.min_rpm, sp.max_rpm)  # type: ignore[arg-type]
             if est.clear:
                 return est.rpm, "estimated"
             log.debug("speed estimate not clear (harmonics=%d) point=%s", est.harmonics_clear, self.plan.point.id)
@@ -93,6 +95,21 @@ class PointAnalyzer:
     def searches_band(self) -> bool:
         """True when the demodulation band is not fixed in the configuration."""
         return self.plan.envelope.band_hz is None
+
+    def _estimate(self, bs: BlockSpectrum, min_rpm: float, max_rpm: float):
+        top_hz = (N_HARMONICS + 2) * max_rpm / 60.0
+        n_bins = min(int(top_hz / bs.df_hz) + 2, bs.spec.size)
+        return estimate_speed(bs.amplitude(n_bins), bs.df_hz, min_rpm, max_rpm,
+                              leave_out=self._electrical(bs.n_fft, n_bins, bs.df_hz))
+
+    def _electrical(self, n_fft: int, n_bins: int, df_hz: float) -> np.ndarray | None:
+        """Lines next to 2 x LF and its harmonics among the first ``n_bins`` of an ``n_fft`` transform."""
+        key = n_fft * 100003 + n_bins
+        if key not in self._speed_leave_out:
+            if len(self._speed_leave_out) > 8:
+                self._speed_leave_out.clear()
+            self._speed_leave_out[key] = electrical_mask(np.arange(n_bins) * df_hz, self.plan.machine.line_frequency_hz, df_hz)
+        return self._speed_leave_out[key]
 
     def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
                 keep_spectra: bool = False, rpm_source: str | None = None,
@@ -105,20 +122,16 @@ class PointAnalyzer:
         x = self._check_block(block_m_s2)
         wave, x0 = waveform(x, dtype=np.float32)  # the transforms run in single precision (spectrum.py)
 
-        accel_psd = self._welch.psd(x0)
-        if p.ac_power_gain is not None:
-            accel_psd *= p.ac_power_gain
-        vel_psd = velocity_psd(p, accel_psd)
-        overall = overall_velocity_mm_s(p, vel_psd)
-        zone = severity.zone(overall, p.iso_group, p.support)
-
         bs = self._envelope.block_spectrum(x0)
+        narrow = self._narrow.spectrum(bs)
+        overall = narrow.overall_velocity_mm_s
+        zone = severity.zone(overall, p.iso_group, p.support)
         rpm_used, source = self._speed(bs, rpm, rpm_source)
         shaft_hz = rpm_used / 60.0
 
         env, band_source, review = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion,
                                                           kept_hz=envelope_band_hz, review=review_band)
-        band_values = band_mod.band_values(p, shaft_hz, accel_psd, vel_psd, env.envelope_psd, env.df_hz)
+        band_values = band_mod.band_values(p, shaft_hz, narrow, env.envelope_psd, env.df_hz)
         running = rpm_used > p.speed.stopped_rpm
         findings, prominence = (assess(env.squared_rms, env.df_hz, shaft_hz, p.defects, envelope_psd=env.envelope_psd,
                                        line_frequency_hz=p.machine.line_frequency_hz)
@@ -126,6 +139,9 @@ class PointAnalyzer:
 
         spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
         if keep_spectra:
+            accel_psd = self._welch.psd(x0)
+            if p.ac_power_gain is not None:
+                accel_psd *= p.ac_power_gain
             freqs = p.freqs_hz[: p.n_keep]
             accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
             spectra["acceleration"] = Spectrum(freqs, accel_rms, "m/s^2")

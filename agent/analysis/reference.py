@@ -4,7 +4,9 @@ It computes the same outputs as :class:`~rotorwatch.analysis.point.PointAnalyzer
 band and a given speed, the straightforward way:
 
 - ``scipy.stats.kurtosis(fisher=False)`` and numpy for the waveform indicators;
-- ``scipy.signal.welch`` (Hann, density) for the acceleration PSD, boolean masks for bands and overall;
+- ``scipy.signal.welch`` (Hann, density) for the acceleration PSD that is published;
+- ``scipy.signal.periodogram`` (Hann over the whole block) for the overall velocity and the acceleration
+  and velocity bands, with boolean masks (the fast path reads the block's FFT through the Hann kernel);
 - a 4th-order Butterworth band-pass (``butter`` + ``sosfiltfilt``, zero phase) and ``scipy.signal.hilbert``
   over the full-rate block for the envelope, then ``scipy.signal.welch`` of |z| and |z|^2 at full rate;
 - the same decision rule (:mod:`rotorwatch.analysis.findings`) on its squared-envelope spectrum.
@@ -26,6 +28,7 @@ import scipy.stats
 from .. import kinematics
 from . import severity
 from .findings import find_defects
+from .narrowband import ELECTRICAL_DEVIATION, ELECTRICAL_LOBE_LINES
 from .plan import HANN_LOBE_MARGIN_BINS, AnalysisPlan
 from .result import Finding, Waveform
 
@@ -68,12 +71,24 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
     if plan.ac_power_gain is not None:
         psd = psd * plan.ac_power_gain
     df = f[1] - f[0]
-    vel = np.zeros_like(psd)
-    above = f >= plan.velocity_cutoff_hz
-    vel[above] = psd[above] / (2 * np.pi * f[above]) ** 2 * 1e6
-    ov = plan.machine.overall
-    in_band = (f >= ov.low_hz) & (f <= ov.high_hz)
-    overall = float(np.sqrt(np.sum(vel[in_band]) * df))
+    fn, psd_n = scipy.signal.periodogram(x, fs, window="hann", detrend="constant", scaling="density")
+    if plan.point.sensor.ac_coupling_corner_hz is not None:
+        with np.errstate(divide="ignore"):
+            psd_n = psd_n * np.minimum(1.0 + (plan.point.sensor.ac_coupling_corner_hz / fn) ** 2, 100.0)
+        psd_n[0] = 0.0
+    dfn = fn[1] - fn[0]
+    vel = np.zeros_like(psd_n)
+    above = fn >= max(plan.integration_cutoff_hz, 2 * dfn)
+    vel[above] = psd_n[above] / (2 * np.pi * fn[above]) ** 2 * 1e6
+    lo_hz, hi_hz = plan.overall_band_hz
+    in_band = (fn >= lo_hz) & (fn <= hi_hz)
+    overall = float(np.sqrt(np.sum(vel[in_band]) * dfn))
+    electrical = np.zeros(fn.size, dtype=bool)
+    lf = plan.machine.line_frequency_hz
+    if lf is not None:
+        for h in range(1, int(fn[-1] / (2 * lf)) + 1):
+            hz = 2 * lf * h
+            electrical |= np.abs(fn - hz) < ELECTRICAL_LOBE_LINES * dfn + ELECTRICAL_DEVIATION * hz
     shaft_hz = rpm / 60.0
 
     band = band_hz if band_hz is not None else plan.envelope.band_hz
@@ -95,10 +110,13 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
     bands: dict[str, float] = {}
     for bp in plan.bands:
         edges = kinematics.band_edges_hz(plan.machine, bp.band, shaft_hz)
+        keep = _mask(fn, edges, dfn, HANN_LOBE_MARGIN_BINS)
+        if bp.band.low_hz is None:
+            keep &= ~electrical
         if bp.quantity == "acceleration":
-            bands[bp.band.name] = float(np.sqrt(np.sum(psd[_mask(f, edges, df, HANN_LOBE_MARGIN_BINS)]) * df))
+            bands[bp.band.name] = float(np.sqrt(np.sum(psd_n[keep]) * dfn))
         elif bp.quantity == "velocity":
-            bands[bp.band.name] = float(np.sqrt(np.sum(vel[_mask(f, edges, df, HANN_LOBE_MARGIN_BINS)]) * df))
+            bands[bp.band.name] = float(np.sqrt(np.sum(vel[keep]) * dfn))
         else:
             bands[bp.band.name] = float(np.sqrt(np.sum(env_psd[_mask(fe, edges, dfe, HANN_LOBE_MARGIN_BINS)]) * dfe))
     findings = (find_defects(sq_rms, dfe, shaft_hz, plan.defects, plan.machine.line_frequency_hz)

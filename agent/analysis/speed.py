@@ -14,6 +14,11 @@ the local floor of the spectrum (common practice; harmonic summation as used for
    periodogram bin of Gaussian noise gets there with a chance of about 1e-5); otherwise the caller falls
    back on the nominal speed.
 
+Electrical lines are not shaft harmonics: for a machine with ``line_frequency_hz`` the stretches around
+2 x LF and its harmonics (``leave_out``, see :mod:`.narrowband`) count as floor, so a 4-pole motor at
+1485 r/min with a strong 100 Hz line reads 1485, not 1500 r/min, and a spectrum holding nothing but the
+electrical lines gives no clear speed.
+
 The analyzer feeds it the whole block's spectrum (resolution 1/T, 0.25 Hz for a 4 s block) rather than
 the Welch average, because the shaft lines are narrow and the speed range is a few hertz wide. The
 resolution of a harmonic sum improves with K: an error of df/4 on the K-th harmonic is df/(4K) on the
@@ -76,7 +81,7 @@ def _refine(a: np.ndarray, f_hz: float, ks: np.ndarray, df_hz: float, ok: np.nda
 
 
 def estimate_speed(amplitude: np.ndarray, df_hz: float, min_rpm: float, max_rpm: float,
-                   n_harmonics: int = N_HARMONICS) -> SpeedEstimate:
+                   n_harmonics: int = N_HARMONICS, leave_out: np.ndarray | None = None) -> SpeedEstimate:
     """Shaft speed (rpm) whose harmonics stand out most in ``amplitude`` (bins 0, df, 2 df, ...).
 
     The comb search gives the estimate to about a bin over K; it is then refined by a least-squares fit
@@ -92,6 +97,8 @@ def estimate_speed(amplitude: np.ndarray, df_hz: float, min_rpm: float, max_rpm:
     tiny = max(float(np.max(floor)) * 1e-12, 1e-300)
     z = np.log(np.maximum(a / np.maximum(floor, tiny), 1.0))
     z[0] = 0.0
+    if leave_out is not None:
+        z[leave_out[:n_bins]] = 0.0
     step = df_hz / (4.0 * k_max)
     grid = np.arange(f_lo, f_hi + 0.5 * step, step)
     ks = np.arange(1, k_max + 1)

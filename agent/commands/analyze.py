@@ -11,7 +11,9 @@ analyzed as one block, up to ``--max-seconds`` (default 120 s) from its start.
 The machine comes either from a configuration (``--config C --point P``, ``--machine M`` when the file
 describes more than one machine) or from the command line (quick mode): ``--rpm``, one ``--bearing`` per
 bearing (``n=9,d=0.3126in,D=1.537in,angle=0``; diameters in mm or in; ``name=`` optional, default b1,
-b2, ...; or the four multiples ``bpfo=..,bpfi=..,bsf=..,ftf=..``), ``--blades``. ``--envelope-band LO,HI``
+b2, ...; or the four multiples ``bpfo=..,bpfi=..,bsf=..,ftf=..``), ``--blades``, ``--line-frequency`` (the
+motor's supply, 50 or 60 Hz: 2xLF and its harmonics are then kept out of the speed and the order bands and
+labelled as electrical lines; with ``--config`` it overrides the file). ``--envelope-band LO,HI``
 fixes the demodulation band in both modes; ``--rpm`` also overrides a configuration's speed.
 
 Output: a summary for a person, or with ``--format json`` one JSON document whose ``findings`` list holds
@@ -53,6 +55,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     quick.add_argument("--bearing", action="append", default=[], metavar="SPEC",
                        help="n=9,d=0.3126in,D=1.537in,angle=0[,name=de] or bpfo=..,bpfi=..,bsf=..,ftf=.. (repeatable)")
     quick.add_argument("--blades", type=int, help="fan or impeller blade count")
+    quick.add_argument("--line-frequency", type=float, metavar="HZ",
+                       help="supply frequency of a direct-on-line motor, 50 or 60 Hz (2xLF is an electrical line)")
     p.add_argument("--envelope-band", metavar="LO,HI", help="fixed demodulation band in Hz (default: searched)")
     p.add_argument("--unit", choices=UNITS, default=None,
                    help="unit of the samples when the file does not name it (volts: with --config for the sensitivity)")
@@ -213,12 +217,13 @@ def quick_machine(args: argparse.Namespace, envelope_band: tuple[float, float] |
             speed=models.Speed(mode="fixed", rpm=args.rpm),
             bearings=bearings,
             blades=args.blades,
+            line_frequency_hz=args.line_frequency,
             points=[models.Point(id="p1", sensor=models.Sensor(channel=0, sensitivity_mv_per_g=1000.0))],
             bands=[models.Band(**b) for b in bands],
             analysis=models.Analysis(envelope=models.Envelope(band_hz=envelope_band)),
         )
     except Exception as e:  # pydantic ValidationError
-        raise _model_error("quick-mode machine (--rpm/--bearing/--blades)", e) from None
+        raise _model_error("quick-mode machine (--rpm/--bearing/--blades/--line-frequency)", e) from None
 
 
 def config_machine(args: argparse.Namespace, envelope_band: tuple[float, float] | None):
@@ -243,10 +248,24 @@ def config_machine(args: argparse.Namespace, envelope_band: tuple[float, float] 
         point = machine.point(args.point)
     else:
         raise ConfigError([f"{args.config}: machine {machine.id} has no point {args.point!r}; known: {', '.join(points)}"])
+    if args.line_frequency is not None:
+        machine = _with_line_frequency(machine, args.line_frequency)
     if envelope_band is not None:
         env = machine.analysis.envelope.model_copy(update={"band_hz": envelope_band})
         machine = machine.model_copy(update={"analysis": machine.analysis.model_copy(update={"envelope": env})})
     return machine, point
+
+
+def _with_line_frequency(machine, hz: float):
+    from ..settings import models  # noqa: PLC0415
+
+    try:
+        doc = machine.model_dump()
+        if machine.overall.low_edge_by_speed:
+            doc["overall"]["low_hz"] = None  # still chosen by the speed
+        return models.Machine.model_validate({**doc, "line_frequency_hz": hz})
+    except Exception as e:  # pydantic ValidationError
+        raise _model_error(f"--line-frequency {hz:g}", e) from None
 
 
 def parse_band(text: str | None) -> tuple[float, float] | None:
@@ -293,6 +312,7 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         "shaft_hz": shaft_hz,
         "overall_velocity_mm_s": result.overall_velocity_mm_s,
         "overall_band_hz": [machine.overall.low_hz, machine.overall.high_hz],
+        "line_frequency_hz": machine.line_frequency_hz,
         "iso_zone": result.iso_zone,
         "iso_group": machine.iso_group,
         "support": machine.support,
@@ -318,7 +338,9 @@ def format_text(r: dict[str, Any]) -> str:
         f"{r['file']}: {r['duration_s']:.2f} s at {r['fs_hz']:g} Hz ({r['n_samples']} samples){cut}, "
         f"machine {r['machine']} point {r['point']}",
         f"  samples           channel {r['channel']} in {r['unit']} ({r['unit_from']})",
-        f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz",
+        f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz"
+        + (f"; line frequency {r['line_frequency_hz']:g} Hz (2xLF {2 * r['line_frequency_hz']:g} Hz, electrical)"
+           if r.get("line_frequency_hz") else ""),
         f"  overall velocity  {r['overall_velocity_mm_s']:.3f} mm/s RMS ({r['overall_band_hz'][0]:g}-{r['overall_band_hz'][1]:g} Hz): "
         f"ISO 20816-3 zone {r['iso_zone']} (group {r['iso_group']}, {r['support']})",
         f"  waveform          RMS {w['rms_m_s2']:.4g} m/s^2 ({w['rms_m_s2'] / G_N:.4g} g), peak {w['peak_m_s2']:.4g} m/s^2, "

@@ -7,12 +7,16 @@ built the way the daemon builds it and checked without being started (a recordin
 that file its rate and channel count; a simulated input its scenario). No device is probed, nothing
 goes on the network. ``--set`` overrides values as ``run --set`` does.
 
-For a valid file it prints, per machine, the kinematic frequencies at the configured (or nominal) speed in
-orders and Hz: 1x, 2x, blade pass, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing, with a warning where two
-defects of one bearing search overlapping lines or a defect sits on a 2xLF line
+For a valid file it prints, per machine, the overall velocity band (and whether the machine's speed chose
+it), the kinematic frequencies at the configured (or nominal) speed in orders and Hz: 1x, 2x, blade pass,
+2xLF when the machine has a line frequency, and BPFO/BPFI/BSF/2xBSF/FTF of each bearing, with a warning
+where two defects of one bearing search overlapping lines or a defect sits on a 2xLF line
 (:mod:`rotorwatch.analysis.overlaps`); then per point the spectrum and envelope set-up and each band's
-edges in Hz. When only ``run`` would refuse the file, the table is printed and the refusal follows.
-Exit 0 when valid, 2 otherwise.
+edges in Hz. Warnings (the file stays valid) also follow the machine they concern where the overall band
+cuts off or clips the slowest 1x, the speed is outside ISO 20816-3's scope, the window is too short for
+the band's low edge, or a shaft order in an order band lies close enough to 2xLF to lose power with it.
+When only ``run`` would refuse the file, the table is printed and the refusal follows. Exit 0 when
+valid, 2 otherwise.
 
 A scenario file (a ``[scenario]`` table, see ``config/scenarios/``) is recognised: it is validated as a
 scenario together with the machine configuration it names, and the command to replay it is printed.
@@ -132,6 +136,71 @@ def _bearing_warnings(m: Machine, rpm: float, out: TextIO) -> None:
         out.write(f"  warning: {o.text()}\n")
 
 
+def _band_line(m: Machine) -> str:
+    from ..analysis import severity  # noqa: PLC0415
+
+    lo, hi = m.overall.low_hz, m.overall.high_hz
+    if m.overall.low_edge_by_speed:
+        slow = lo == severity.SLOW_LOW_EDGE_HZ
+        rule = (f"{severity.SLOW_SCOPE_MIN_RPM:g}-{severity.SLOW_MACHINE_RPM:g} r/min" if slow
+                else f"above {severity.SLOW_MACHINE_RPM:g} r/min")
+        why = (f"chosen by the slowest speed, {m.speed.lowest_rpm:g} r/min: ISO 20816-3 asks for {lo:g}-"
+               f"{severity.HIGH_EDGE_HZ:g} Hz for machines running {rule} (from memory)")
+    else:
+        why = "as configured"
+    return f"  overall velocity band {lo:g}-{hi:g} Hz, {why}\n"
+
+
+def machine_warnings(m: Machine) -> list[str]:
+    """What a person should know about a valid machine: bands that miss the 1x, windows too short, 2xLF."""
+    from ..analysis import severity  # noqa: PLC0415
+    from ..analysis.narrowband import MIN_WINDOW_EDGE_PRODUCT, electrical_half_width_hz  # noqa: PLC0415
+
+    out = []
+    low_rpm = m.speed.lowest_rpm
+    f1 = low_rpm / 60.0
+    lo = m.overall.low_hz
+    assert lo is not None  # filled by the machine's speed when not configured
+    iso_lo, _ = severity.overall_band_hz(low_rpm)
+    if low_rpm < severity.SLOW_SCOPE_MIN_RPM:
+        out.append(f"{low_rpm:g} r/min is below ISO 20816-3's scope ({severity.SLOW_SCOPE_MIN_RPM:g} r/min and up); "
+                   "its zone boundaries are only a guide here")
+    if f1 < lo:
+        out.append(f"the overall band's low edge ({lo:g} Hz) cuts off the 1x at {f1:.3g} Hz ({low_rpm:g} r/min): "
+                   f"the overall velocity and its ISO zone miss the shaft-rate vibration"
+                   + (f"; ISO 20816-3 asks for {iso_lo:g}-1000 Hz at this speed (from memory): set overall.low_hz = "
+                      f"{iso_lo:g} or leave it out" if iso_lo < lo else ""))
+    elif f1 < 1.2 * lo:
+        out.append(f"the 1x at {f1:.3g} Hz ({low_rpm:g} r/min) lies within 20 % of the overall band's low edge "
+                   f"({lo:g} Hz), where a tone reads low"
+                   + (f"; ISO 20816-3 asks for {iso_lo:g}-1000 Hz at this speed (from memory)" if iso_lo < lo else ""))
+    need_s = MIN_WINDOW_EDGE_PRODUCT / lo
+    if m.analysis.window_s < need_s:
+        out.append(f"analysis.window_s = {m.analysis.window_s:g} s is too short for the overall band's {lo:g} Hz low "
+                   f"edge: tones near it may read more than 2 % off; use at least {need_s:.3g} s")
+    lf = m.line_frequency_hz
+    if lf is not None:
+        df = 1.0 / m.analysis.window_s
+        rpm = m.speed.nominal_rpm
+        in_bands = set()  # shaft orders that order or feature bands read
+        for band in m.bands:
+            if band.quantity == "envelope" or band.low_hz is not None:
+                continue
+            for lo, hi in kinematics.band_edges_hz(m, band, rpm / 60.0):
+                in_bands.update(k for k in range(1, 11) if lo <= k * rpm / 60.0 <= hi)
+        for k in sorted(in_bands):
+            hz = k * rpm / 60.0
+            h = max(int(round(hz / (2 * lf))), 1)
+            line = 2 * lf * h
+            half = float(electrical_half_width_hz(line, df))
+            if abs(hz - line) < half + 2 * df:
+                name = "2xLF" if h == 1 else f"{2 * h}xLF"
+                out.append(f"the {k}x at {hz:.2f} Hz lies {abs(hz - line):.2f} Hz from {name} ({line:g} Hz): the "
+                           f"order bands leave out {line - half:.2f}-{line + half:.2f} Hz as electrical, so part of "
+                           f"this {k}x goes with it; a longer window_s narrows that stretch")
+    return out
+
+
 def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool = False) -> None:
     from ..analysis.plan import build_plan  # noqa: PLC0415
     from ..analysis.severity import boundaries  # noqa: PLC0415
@@ -143,12 +212,21 @@ def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool
     ab, bc, cd = boundaries(m.iso_group, m.support)
     out.write(f"  ISO 20816-3 group {m.iso_group}, {m.support} support: zone boundaries A/B {ab:g}, B/C {bc:g}, "
               f"C/D {cd:g} mm/s RMS over {m.overall.low_hz:g}-{m.overall.high_hz:g} Hz\n")
+    out.write(_band_line(m))
+    if m.line_frequency_hz is not None:
+        out.write(f"  line frequency {m.line_frequency_hz:g} Hz: 2xLF ({2 * m.line_frequency_hz:g} Hz) and its harmonics "
+                  "are electrical lines, kept out of the speed estimate and the order bands\n")
+    for w in machine_warnings(m):
+        out.write(f"  warning: {w}\n")
     out.write(f"  {'frequency':<22}{'order':>10}{'Hz':>12}\n")
     rows = [("1x", 1.0), ("2x", 2.0)]
     if m.blades:
         rows.append((f"blade pass ({m.blades} blades)", float(m.blades)))
     for name, order in rows:
         out.write(f"  {name:<22}{order:>10.5f}{order * f:>12.2f}\n")
+    if m.line_frequency_hz is not None:
+        lf2 = 2 * m.line_frequency_hz
+        out.write(f"  {'2xLF (electrical)':<22}{lf2 / f:>10.5f}{lf2:>12.2f}\n")
     for b in m.bearings:
         mult = kinematics.bearing_multiples(b)
         out.write(f"  bearing {b.id}" + (f" ({b.name})" if b.name else "") + "\n")
@@ -163,9 +241,12 @@ def print_machine(m: Machine, rpm: float, fs_hz: float, out: TextIO, given: bool
                 else f"searched above {env.auto_min_hz:g} Hz")
         out.write(f"  point {p.id}" + (f" ({p.name})" if p.name else "") + f", channel {p.sensor.channel}"
                   + (f", bearing {p.bearing}" if p.bearing else "") + "\n")
-        out.write(f"    spectrum: {plan.lines} lines to {plan.fmax_hz:g} Hz at {fs_hz:g} Hz sampling "
+        lines = int(round(plan.fmax_hz / plan.df_hz))
+        grown = f" (of {plan.lines} asked: finer for the slowest 1x)" if lines > plan.lines * 1.01 else ""
+        out.write(f"    spectrum: {lines} lines{grown} to {plan.fmax_hz:g} Hz at {fs_hz:g} Hz sampling "
                   f"(segments of {plan.n_per_seg} samples, {plan.df_hz:.4g} Hz resolution); needs blocks of "
                   f"at least {plan.min_samples / fs_hz:.3g} s, window {m.analysis.window_s:g} s\n")
+        out.write(f"    overall and bands: the whole window's spectrum, {1.0 / m.analysis.window_s:.3g} Hz lines\n")
         capped = f" (of {env.lines_asked} asked: limited by window_s)" if env.lines < env.lines_asked else ""
         out.write(f"    envelope: band {band}, {env.lines} lines{capped} to {env.fmax_hz:g} Hz "
                   f"({env.df_hz:.3g} Hz resolution)\n")

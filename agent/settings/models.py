@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, model_validator
 
 from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
 
@@ -122,8 +122,13 @@ class Speed(Model):
     def stopped_rpm(self) -> float:
         if self.stopped_below_rpm is not None:
             return self.stopped_below_rpm
+        return 0.1 * self.lowest_rpm
+
+    @property
+    def lowest_rpm(self) -> float:
+        """The lowest running speed the machine is configured for (``min_rpm`` when given)."""
         low = self.min_rpm if self.min_rpm is not None else self.nominal_rpm
-        return 0.1 * min(low, self.nominal_rpm)
+        return min(low, self.nominal_rpm)
 
 
 # ------------------------------------------------------------------------------------------ components
@@ -320,17 +325,28 @@ class Band(Model):
 
 # --------------------------------------------------------------------------------------------- analysis
 class Overall(Model):
-    """Overall (broadband) velocity RMS and its ISO 20816-3 evaluation."""
+    """Overall (broadband) velocity RMS and its ISO 20816-3 evaluation.
 
-    low_hz: PositiveFloat = 10.0
+    The band is ``low_hz`` .. ``high_hz``. Without ``low_hz`` the machine chooses it by its lowest running
+    speed as ISO 20816-3 does (from memory): 2 Hz for machines running 120-600 r/min, 10 Hz above 600 r/min
+    (:func:`rotorwatch.analysis.severity.overall_band_hz`); ``low_edge_by_speed`` then says so.
+    """
+
+    low_hz: PositiveFloat | None = None
     high_hz: PositiveFloat = 1000.0
     levels: Levels = Levels()
+    _low_by_speed: bool = PrivateAttr(False)
 
     @model_validator(mode="after")
     def _edges(self) -> "Overall":
-        if self.low_hz >= self.high_hz:
+        if self.low_hz is not None and self.low_hz >= self.high_hz:
             raise ValueError(f"low_hz ({self.low_hz:g}) must be below high_hz ({self.high_hz:g})")
         return self
+
+    @property
+    def low_edge_by_speed(self) -> bool:
+        """True when ``low_hz`` was chosen from the machine's speed, not configured."""
+        return self._low_by_speed
 
 
 class Envelope(Model):
@@ -472,6 +488,16 @@ class Machine(Model):
                     problems.append(f"band {b.name!r} names point {pid!r}, known: {point_ids}")
         if problems:
             raise ValueError("; ".join(problems))
+        if self.overall.low_hz is None:
+            from ..analysis.severity import overall_band_hz  # noqa: PLC0415 (ISO table; no settings import there)
+
+            low, _ = overall_band_hz(self.speed.lowest_rpm)
+            if low >= self.overall.high_hz:
+                raise ValueError(f"overall.high_hz ({self.overall.high_hz:g}) must be above the band's low edge "
+                                 f"({low:g} Hz, chosen by the machine's speed)")
+            overall = self.overall.model_copy(update={"low_hz": low})
+            overall._low_by_speed = True
+            object.__setattr__(self, "overall", overall)  # frozen model: filled once, at validation
         return self
 
     def point(self, point_id: str) -> Point:

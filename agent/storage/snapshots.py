@@ -93,10 +93,11 @@ def _clean(obj: Any) -> Any:
 def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[str, Any]]:
     """Defect-frequency markers of a :class:`~rotorwatch.settings.models.Machine` at ``shaft_hz``.
 
-    Shaft orders 1x..3x; blade pass and 2x blade pass when the machine has blades; BPFO, BPFI, BSF and
-    FTF of every bearing with ``harmonics`` harmonics (kinematics in :mod:`rotorwatch.kinematics`).
+    Shaft orders 1x..3x; blade pass and 2x blade pass when the machine has blades; 2xLF and its harmonics
+    (family ``electrical``) when it has a line frequency; BPFO, BPFI, BSF and FTF of every bearing with
+    ``harmonics`` harmonics (kinematics in :mod:`rotorwatch.kinematics`).
     """
-    from ..analysis.labels import harmonic
+    from ..analysis.labels import harmonic, twice_line_frequency
     from ..kinematics import bearing_multiples
 
     out: list[dict[str, Any]] = []
@@ -107,6 +108,11 @@ def markers_for(machine: Any, shaft_hz: float, harmonics: int = 3) -> list[dict[
             name = "blade pass" if k == 1 else f"{k}x blade pass"
             out.append({"name": name, "family": "blade", "order": float(k * machine.blades),
                         "frequency_hz": k * machine.blades * shaft_hz})
+    lf = getattr(machine, "line_frequency_hz", None)
+    if lf:  # electrical lines: 2xLF and its harmonics
+        for k in range(1, harmonics + 1):
+            out.append({"name": twice_line_frequency(k), "family": "electrical", "harmonic": k,
+                        "order": 2 * k * lf / shaft_hz, "frequency_hz": 2 * k * lf})
     for b in machine.bearings:
         for defect, order in bearing_multiples(b).as_dict().items():
             for k in range(1, harmonics + 1):

@@ -25,7 +25,7 @@ from ..analysis.result import PointResult, Spectrum
 from ..settings.models import Machine
 
 #: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
-MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3}
+MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3, "electrical": 3}
 
 QUANTITY_UNITS = {"acceleration": "m/s^2", "velocity": "mm/s", "envelope": "m/s^2"}
 
@@ -127,8 +127,9 @@ def _bearings_for_point(machine: Machine, point_id: str):
 def defect_markers(machine: Machine, point_id: str, rpm: float | None) -> list[dict]:
     """Kinematic frequencies and their harmonics at ``rpm`` for one point.
 
-    Families: ``shaft`` (1x, 2x, ...), ``blade_pass`` and the rolling-bearing defect rates of the
-    point's bearing (all bearings when the point names none). Frequencies come from
+    Families: ``shaft`` (1x, 2x, ...), ``blade_pass``, ``electrical`` (2xLF and its harmonics, when the
+    machine has a line frequency) and the rolling-bearing defect rates of the point's bearing (all
+    bearings when the point names none). Frequencies come from
     :func:`rotorwatch.kinematics.frequency_table`, which the analysis uses too.
     """
     if rpm is None or not math.isfinite(rpm) or rpm <= 0:
@@ -149,6 +150,10 @@ def defect_markers(machine: Machine, point_id: str, rpm: float | None) -> list[d
     add("shaft", "1x", table["1x"])
     if "blade_pass" in table:
         add("blade_pass", "BP", table["blade_pass"])
+    if "2xLF" in table:  # electrical lines: 2xLF, 4xLF, 6xLF
+        for k in range(1, MARKER_HARMONICS["electrical"] + 1):
+            markers.append({"family": "electrical", "bearing": None, "k": k, "label": labels.twice_line_frequency(k),
+                            "freq_hz": sig(k * table["2xLF"], 6)})
     for b in _bearings_for_point(machine, point_id):
         for name in kinematics.DEFECTS:
             add(name, name.upper(), table[f"{name}:{b.id}"], b.id)

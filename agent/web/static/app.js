@@ -13,11 +13,12 @@
     bpfi: { label: "BPFI", color: "#3d63c9" },
     bsf: { label: "BSF", color: "#4f8a2a" },
     ftf: { label: "FTF", color: "#7d6b57" },
+    electrical: { label: "2xLF (electrical)", color: "#c0392b" },
   };
   const DEFAULT_FAMILIES = {
-    acceleration: ["shaft", "blade_pass"],
-    velocity: ["shaft", "blade_pass"],
-    envelope: ["bpfo", "bpfi", "bsf", "ftf"],
+    acceleration: ["shaft", "blade_pass", "electrical"],
+    velocity: ["shaft", "blade_pass", "electrical"],
+    envelope: ["bpfo", "bpfi", "bsf", "ftf", "electrical"],
   };
   const QUANTITY_WORD = { acceleration: "acceleration", velocity: "velocity", envelope: "envelope" };
   const SPANS_HZ = [50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000];
