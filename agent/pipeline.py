@@ -73,9 +73,12 @@ class MachinePipeline:
         *,
         rpm_source: str | None = None,
         fs_hz: float | None = None,
+        tach_pulses_s: np.ndarray | None = None,
     ) -> MachineUpdate:
         """Process one update: ``blocks_v`` maps point id -> raw volts (1-D) sampled at ``fs_hz``
-        (default ``acquisition.sample_rate_hz``); ``rpm`` is an outside speed reading, if any."""
+        (default ``acquisition.sample_rate_hz``); ``rpm`` is an outside speed reading, if any;
+        ``tach_pulses_s`` the tach's pulse times in seconds from the blocks' first sample, if any (the
+        analysis then order-tracks a window whose speed changed)."""
         fs = float(fs_hz if fs_hz is not None else self.config.acquisition.sample_rate_hz)
         results: dict[str, PointResult | None] = {}
         health: dict[str, SensorHealth] = {}
@@ -100,6 +103,7 @@ class MachinePipeline:
                 results[p.id] = analyzer.analyze(
                     accel_m_s2, time_s=time_s, rpm=rpm, rpm_source=rpm_source, keep_spectra=self.keep_spectra,
                     envelope_band_hz=kept, review_band=kept is not None and self._review_due(p.id, time_s),
+                    tach_pulses_s=tach_pulses_s,
                 )
             except InputError as e:
                 results[p.id] = None

@@ -37,6 +37,7 @@ class Frame:
     elapsed_s: float
     blocks_v: dict[str, np.ndarray]
     rpm: float | None = None
+    tach_pulses_s: np.ndarray | None = None  # a tach's pulse times from the window's start, if any
 
 
 # ------------------------------------------------------------------------------------------ scenarios
@@ -54,6 +55,15 @@ def _render(t_s: float, window_s: float, fs_hz: float) -> dict[str, np.ndarray]:
     return _worker_renderer.snapshot(t_s, window_s, fs_hz)  # type: ignore[union-attr]
 
 
+def _tach_pulses(renderer, t_s: float, window_s: float) -> np.ndarray:
+    """When the scenario's tach pulses fall in the window from ``t_s``: at each 1/N turn of the simulated
+    shaft (N = pulses_per_rev), in seconds from the window's start (what the tach channel would give)."""
+    n = renderer.machine.speed.pulses_per_rev
+    first, last = renderer.speed.turns(np.array([t_s, t_s + window_s])) * n
+    k = np.arange(math.ceil(first), math.floor(last) + 1)
+    return np.asarray(renderer.speed.time_at_turns(k / n), dtype=float) - t_s
+
+
 def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None, workers: int = 1) -> Iterator[Frame]:
     """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence.
 
@@ -66,7 +76,8 @@ def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None, worke
     times = [float(t) for t in (renderer.times() if times_s is None else times_s)]
 
     def frame(t: float, blocks: dict[str, np.ndarray]) -> Frame:
-        return Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None)
+        pulses = _tach_pulses(renderer, t, window_s) if machine.speed.mode == "tach" else None
+        return Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None, pulses)
 
     if workers <= 1 or len(times) < 2:
         for t in times:

@@ -76,13 +76,16 @@ def band_edges(plan: AnalysisPlan, bp: BandPlan, shaft_hz: float) -> list[tuple[
 
 
 def band_values(plan: AnalysisPlan, shaft_hz: float, narrow: NarrowSpectrum,
-                env_psd: np.ndarray | None, env_df_hz: float) -> dict[str, float]:
-    """Every band of the point, by name, in its quantity's unit."""
+                env_psd: np.ndarray | None, env_df_hz: float,
+                narrow_orders: NarrowSpectrum | None = None) -> dict[str, float]:
+    """Every band of the point, by name, in its quantity's unit. Bands fixed in Hz read ``narrow``; bands
+    placed by orders or on a feature read ``narrow_orders`` when given (the window resampled to shaft
+    angle, :mod:`.ordertrack`)."""
     out: dict[str, float] = {}
     for bp in plan.bands:
         edges = band_edges(plan, bp, shaft_hz)
         if bp.quantity in ("acceleration", "velocity"):
-            spectrum = narrow
+            spectrum = narrow if bp.fixed_edges_hz is not None or narrow_orders is None else narrow_orders
             ms = spectrum.accel_ms if bp.quantity == "acceleration" else spectrum.velocity_ms
             leave_out = spectrum.electrical if bp.fixed_edges_hz is None else None
             out[bp.band.name] = math.sqrt(band_mean_square(ms, spectrum.df_hz, edges, leave_out=leave_out))

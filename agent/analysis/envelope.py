@@ -54,6 +54,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
+from .ordertrack import ShaftAngle, resample
 from .plan import EDGE_TAPER_FRACTION, EnvelopePlan
 from .result import BandReview
 from .spectrum import WelchKernel, hann
@@ -318,8 +319,11 @@ class EnvelopeKernel:
         cut = int(math.ceil(bs.n_trim * m / bs.n_fft))
         return z[cut: n_valid - cut], m * df, (float(k_lo * df), float((k_hi - 1) * df))  # first and last line
 
-    def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan")) -> EnvelopeOutput:
-        """Envelope and squared-envelope spectra of the block in ``band_hz``."""
+    def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan"),
+                   angle: ShaftAngle | None = None, shaft_hz: float = 0.0) -> EnvelopeOutput:
+        """Envelope and squared-envelope spectra of the block in ``band_hz``; with ``angle`` the envelopes
+        are resampled to equal steps of shaft angle at the mean ``shaft_hz`` first (order tracking,
+        :mod:`.ordertrack`)."""
         plan, n = self.plan, bs.n_samples
         z, fs_c, band = self.band_signal(bs, band_hz)
         both = np.empty((2, z.size), dtype=np.float32)  # single precision, like the other transforms
@@ -327,6 +331,10 @@ class EnvelopeKernel:
         np.multiply(z.real, z.real, out=sq)
         sq += np.square(z.imag)
         np.sqrt(sq, out=both[0])
+        if angle is not None:
+            m = int(round(fs_c / bs.df_hz))
+            t0_s = math.ceil(bs.n_trim * m / bs.n_fft) / fs_c  # z[0]'s time in the block (band_signal's cut)
+            both = np.stack([resample(row, fs_c, angle, t0_s, shaft_hz) for row in both])
         n_per_seg = int(math.ceil(fs_c / plan.df_hz - 1e-9))
         if scipy.fft.next_fast_len(n_per_seg, real=True) <= z.size:
             n_per_seg = scipy.fft.next_fast_len(n_per_seg, real=True)  # a little finer, much faster
@@ -352,16 +360,17 @@ class EnvelopeKernel:
 
     def analyze(self, x0: np.ndarray, shaft_hz: float, bs: BlockSpectrum | None = None,
                 criterion: str = "cyclic", kept_hz: tuple[float, float] | None = None,
-                review: bool = False) -> tuple[EnvelopeOutput, str, BandReview | None]:
+                review: bool = False, angle: ShaftAngle | None = None) -> tuple[EnvelopeOutput, str, BandReview | None]:
         """Envelope spectra of a block with its mean removed (m/s^2) and where the band came from:
         ``fixed`` (the plan's band), ``kept`` (a band chosen earlier and kept: ``kept_hz``; with
         ``review`` the search runs too and its best band is compared with it) or ``searched`` (this
-        block's search)."""
+        block's search). With ``angle`` (the shaft angle over the block, mean speed ``shaft_hz``) the
+        envelopes are order-tracked."""
         bs = bs if bs is not None else self.block_spectrum(x0)
         if self.plan.band_hz is not None:
-            return self.demodulate(bs, self.plan.band_hz), "fixed", None
+            return self.demodulate(bs, self.plan.band_hz, angle=angle, shaft_hz=shaft_hz), "fixed", None
         if kept_hz is not None:
             verdict = self.review_band(bs, kept_hz, shaft_hz, criterion) if review else None
-            return self.demodulate(bs, kept_hz), "kept", verdict
+            return self.demodulate(bs, kept_hz, angle=angle, shaft_hz=shaft_hz), "kept", verdict
         choice = self.choose_band(bs, shaft_hz, criterion)
-        return self.demodulate(bs, choice.band_hz, choice.kurtosis), "searched", None
+        return self.demodulate(bs, choice.band_hz, choice.kurtosis, angle=angle, shaft_hz=shaft_hz), "searched", None

@@ -93,6 +93,8 @@ class SpeedPlan:
     min_rpm: float | None
     max_rpm: float | None
     stopped_rpm: float
+    pulses_per_rev: int = 1
+    max_change_pct: float = 2.0  # a window whose speed changes more is unsteady (see ordertrack.py)
 
 
 @dataclass(frozen=True, eq=False)
@@ -167,7 +169,7 @@ def defect_plans(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
 
 def _speed(machine: Machine) -> SpeedPlan:
     s = machine.speed
-    return SpeedPlan(s.mode, s.nominal_rpm, s.min_rpm, s.max_rpm, s.stopped_rpm)
+    return SpeedPlan(s.mode, s.nominal_rpm, s.min_rpm, s.max_rpm, s.stopped_rpm, s.pulses_per_rev, s.max_change_pct)
 
 
 def highest_rpm(speed: SpeedPlan) -> float:

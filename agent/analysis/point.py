@@ -28,7 +28,7 @@ import logging
 import numpy as np
 
 from . import bands as band_mod
-from . import severity
+from . import ordertrack, severity
 from .envelope import BlockSpectrum, EnvelopeKernel
 from .findings import assess
 from .indicators import waveform
@@ -42,6 +42,8 @@ from ..errors import InputError
 from ..settings.models import Machine, Point
 
 log = logging.getLogger(__name__)
+
+HALF_SEARCH = 0.08  # each half's speed is searched within +/- 8 % of the window's estimate
 
 
 class PointAnalyzer:
@@ -102,6 +104,21 @@ class PointAnalyzer:
         return estimate_speed(bs.amplitude(n_bins), bs.df_hz, min_rpm, max_rpm,
                               leave_out=self._electrical(bs.n_fft, n_bins, bs.df_hz))
 
+    def _change_by_halves(self, x0: np.ndarray, rpm: float) -> float | None:
+        """Speed change over the window (% of the mean) from the speed estimated in each half, searched
+        within +/- 8 % of the whole window's estimate; None when either half shows no clear speed."""
+        sp = self.plan.speed
+        lo = max(rpm * (1 - HALF_SEARCH), sp.min_rpm)  # type: ignore[type-var]
+        hi = min(rpm * (1 + HALF_SEARCH), sp.max_rpm)  # type: ignore[type-var]
+        half = x0.size // 2
+        rpms = []
+        for part in (x0[:half], x0[half: 2 * half]):
+            est = self._estimate(self._envelope.block_spectrum(part - part.mean()), lo, hi)
+            if not est.clear:
+                return None
+            rpms.append(est.rpm)
+        return ordertrack.speed_change_pct(rpms[0], rpms[1])
+
     def _electrical(self, n_fft: int, n_bins: int, df_hz: float) -> np.ndarray | None:
         """Lines next to 2 x LF and its harmonics among the first ``n_bins`` of an ``n_fft`` transform."""
         key = n_fft * 100003 + n_bins
@@ -113,11 +130,14 @@ class PointAnalyzer:
 
     def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
                 keep_spectra: bool = False, rpm_source: str | None = None,
-                envelope_band_hz: tuple[float, float] | None = None, review_band: bool = False) -> PointResult:
+                envelope_band_hz: tuple[float, float] | None = None, review_band: bool = False,
+                tach_pulses_s: np.ndarray | None = None) -> PointResult:
         """Analyse one block. For a point whose demodulation band is searched, ``envelope_band_hz`` is the
         band it keeps (the search is skipped; ``review_band`` runs it anyway and reports in
         ``envelope_band_review`` whether it would choose a clearly better band); without it the band is
-        searched on this block. A configured band always wins."""
+        searched on this block. A configured band always wins. ``tach_pulses_s``: the tach's pulse times in
+        seconds from the block's first sample (``speed.pulses_per_rev`` per turn); with three or more the
+        speed is their mean and a window whose speed changed is order-tracked (:mod:`.ordertrack`)."""
         p = self.plan
         x = self._check_block(block_m_s2)
         wave, x0 = waveform(x, dtype=np.float32)  # the transforms run in single precision (spectrum.py)
@@ -126,12 +146,32 @@ class PointAnalyzer:
         narrow = self._narrow.spectrum(bs)
         overall = narrow.overall_velocity_mm_s
         zone = severity.zone(overall, p.iso_group, p.support)
+        angle = None
+        from_tach = False
+        if tach_pulses_s is not None:
+            angle = ordertrack.from_pulses(tach_pulses_s, p.speed.pulses_per_rev, x.size / p.fs_hz)
+            if angle is not None:
+                rpm, rpm_source, from_tach = 60.0 * angle.mean_hz, rpm_source or "tach", True
         rpm_used, source = self._speed(bs, rpm, rpm_source)
         shaft_hz = rpm_used / 60.0
+        change = angle.change_pct if angle is not None else None
+        if source == "estimated":
+            change = self._change_by_halves(x0, rpm_used)
+            if change is not None:  # track along the straight speed ramp the two halves give
+                f_mean = shaft_hz
+                angle = ordertrack.from_linear_speed(f_mean * (1 - change / 200.0), f_mean * (1 + change / 200.0),
+                                                     x.size / p.fs_hz)
+        tracked = angle is not None and change is not None and abs(change) >= ordertrack.MIN_TRACKED_CHANGE_PCT
+        if not tracked:
+            angle = None
+        narrow_orders = narrow
+        if angle is not None:
+            x_turns = ordertrack.resample(x0, p.fs_hz, angle, 0.0, shaft_hz)
+            narrow_orders = self._narrow.spectrum(self._envelope.block_spectrum(x_turns))
 
         env, band_source, review = self._envelope.analyze(x0, shaft_hz, bs, self.band_criterion,
-                                                          kept_hz=envelope_band_hz, review=review_band)
-        band_values = band_mod.band_values(p, shaft_hz, narrow, env.envelope_psd, env.df_hz)
+                                                          kept_hz=envelope_band_hz, review=review_band, angle=angle)
+        band_values = band_mod.band_values(p, shaft_hz, narrow, env.envelope_psd, env.df_hz, narrow_orders)
         running = rpm_used > p.speed.stopped_rpm
         findings, prominence = (assess(env.squared_rms, env.df_hz, shaft_hz, p.defects, envelope_psd=env.envelope_psd,
                                        line_frequency_hz=p.machine.line_frequency_hz)
@@ -165,5 +205,9 @@ class PointAnalyzer:
             defect_prominence=prominence,
             envelope_band_source=band_source,
             envelope_band_review=review,
+            speed_change_pct=None if change is None else float(change),
+            order_tracked=tracked,
+            # a speed ramp estimated from the spectrum is tracked too, but stays less certain than a tach's
+            speed_unsteady=bool(change is not None and not from_tach and abs(change) > p.speed.max_change_pct),
             **spectra,
         )

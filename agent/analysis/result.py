@@ -128,3 +128,13 @@ class PointResult:
     # when the point's baseline learning began, persisted with the baselines)
     envelope_band_source: str = "fixed"
     envelope_band_review: BandReview | None = None  # set on updates where a kept band was reviewed
+    # speed change over the window, % of its mean (tach pulses, or the estimate in each half of the
+    # window); None when the speed is fixed or comes from outside without pulses
+    speed_change_pct: float | None = None
+    # order bands and envelope resampled to shaft angle: from tach pulses, or along the speed ramp
+    # estimated in the two halves of the window
+    order_tracked: bool = False
+    # the speed changed more than speed.max_change_pct and no tach fixed the shaft angle: order lines and
+    # bearing findings rest on an estimated ramp (tracked along it when the halves showed it) or are
+    # smeared; less certain than usual
+    speed_unsteady: bool = False

@@ -310,6 +310,9 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         "rpm": result.rpm,
         "rpm_source": result.rpm_source,
         "shaft_hz": shaft_hz,
+        "speed_change_pct": result.speed_change_pct,
+        "order_tracked": result.order_tracked,
+        "speed_unsteady": result.speed_unsteady,
         "overall_velocity_mm_s": result.overall_velocity_mm_s,
         "overall_band_hz": [machine.overall.low_hz, machine.overall.high_hz],
         "line_frequency_hz": machine.line_frequency_hz,
@@ -328,6 +331,20 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
     }
 
 
+def _speed_change_lines(r: dict[str, Any]) -> list[str]:
+    change = r.get("speed_change_pct")
+    if change is None or (abs(change) < 0.1 and not r.get("speed_unsteady")):
+        return []
+    if r.get("speed_unsteady"):
+        how = ("more than the steady limit: order lines and bearing findings rest on the estimated speed ramp"
+               + (", resampled along it" if r.get("order_tracked") else " and are smeared") + "; less certain")
+    elif r.get("order_tracked"):
+        how = "order bands and envelope resampled to shaft angle"
+    else:
+        how = "within the steady limit"
+    return [f"  speed change      {change:+.2f} % within the recording ({how})"]
+
+
 def format_text(r: dict[str, Any]) -> str:
     w = r["waveform"]
     lo, hi = r["envelope_band_hz"]
@@ -341,6 +358,7 @@ def format_text(r: dict[str, Any]) -> str:
         f"  speed             {r['rpm']:.1f} r/min ({r['rpm_source']}), 1x = {r['shaft_hz']:.2f} Hz"
         + (f"; line frequency {r['line_frequency_hz']:g} Hz (2xLF {2 * r['line_frequency_hz']:g} Hz, electrical)"
            if r.get("line_frequency_hz") else ""),
+        *_speed_change_lines(r),
         f"  overall velocity  {r['overall_velocity_mm_s']:.3f} mm/s RMS ({r['overall_band_hz'][0]:g}-{r['overall_band_hz'][1]:g} Hz): "
         f"ISO 20816-3 zone {r['iso_zone']} (group {r['iso_group']}, {r['support']})",
         f"  waveform          RMS {w['rms_m_s2']:.4g} m/s^2 ({w['rms_m_s2'] / G_N:.4g} g), peak {w['peak_m_s2']:.4g} m/s^2, "

@@ -158,7 +158,8 @@ def run(args: argparse.Namespace) -> int:
         progress = sys.stderr.isatty() and args.format == "text"
         t_wall = time.perf_counter()
         for i, frame in enumerate(frames):
-            update = pipeline.step(start + frame.elapsed_s, frame.blocks_v, rpm=frame.rpm, fs_hz=fs_hz)
+            update = pipeline.step(start + frame.elapsed_s, frame.blocks_v, rpm=frame.rpm, fs_hz=fs_hz,
+                                   tach_pulses_s=frame.tach_pulses_s)
             log.add(frame.elapsed_s, update)
             if args.format == "jsonl":
                 _emit(update_record(update, frame.elapsed_s), out)

@@ -458,10 +458,10 @@ class Daemon:
                 continue
             if blocks is None:
                 continue  # the window is still filling
-            rpm, rpm_source = self._rpm(rt)
+            rpm, rpm_source, pulses_s = self._rpm(rt, end_s)
             t0 = time.monotonic()
             try:
-                update = rt.pipeline.step(end_s, blocks, rpm=rpm, rpm_source=rpm_source)
+                update = rt.pipeline.step(end_s, blocks, rpm=rpm, rpm_source=rpm_source, tach_pulses_s=pulses_s)
             except RotorwatchError as e:
                 ok, held = self._limiter.allow(f"step:{rt.machine.id}:{e}")
                 if ok:
@@ -500,24 +500,29 @@ class Daemon:
             end_s = end if end_s is None else min(end_s, end)
         return blocks, float(end_s)  # type: ignore[arg-type]
 
-    def _rpm(self, rt: MachineRuntime) -> tuple[float | None, str | None]:
-        """An outside speed reading for this update: the tach channel or the MQTT speed topic."""
+    def _rpm(self, rt: MachineRuntime, end_s: float) -> tuple[float | None, str | None, np.ndarray | None]:
+        """An outside speed reading for this update: the tach channel (with its pulse times in seconds from
+        the start of the window that ends at ``end_s``) or the MQTT speed topic."""
         speed = rt.machine.speed
         if speed.mode == "tach" and rt.tach_channel is not None:
-            from ..sources.tach import rpm_from_pulses
+            from ..sources.tach import pulses_in_record
 
-            pulses = self.rings[rt.tach_channel].latest(rt.n_window)
+            pulses, tach_end_s = self.rings[rt.tach_channel].latest_with_time(rt.n_window)
             if pulses is None:
-                return None, None
-            rpm = rpm_from_pulses(pulses, self.config.acquisition.sample_rate_hz,  # type: ignore[union-attr]
-                                  speed.tach_threshold_v, speed.pulses_per_rev)
-            return (0.0 if rpm is None else rpm), "tach"  # no pulses over a whole window: standing still
+                return None, None, None
+            rpm, edges_s = pulses_in_record(pulses, self.config.acquisition.sample_rate_hz,  # type: ignore[union-attr]
+                                            speed.tach_threshold_v, speed.pulses_per_rev)
+            if tach_end_s is not None:
+                edges_s = edges_s + (tach_end_s - end_s)  # the tach ring may hold a chunk more or less
+            if rpm is None:
+                return 0.0, "tach", None  # no pulses over a whole window: standing still
+            return rpm, "tach", edges_s
         if speed.mode == "mqtt" and self.speeds is not None:
             rpm = self.speeds.rpm(rt.machine.id)
             if rpm is None:
-                return speed.nominal_rpm, "nominal"  # no reading, or older than mqtt_max_age_s
-            return rpm, "mqtt"
-        return None, None
+                return speed.nominal_rpm, "nominal", None  # no reading, or older than mqtt_max_age_s
+            return rpm, "mqtt", None
+        return None, None, None
 
     def _deliver(self, rt: MachineRuntime, update: MachineUpdate, blocks: dict[str, np.ndarray] | None) -> None:
         rt.last_update = update

@@ -175,6 +175,9 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
         "time_s": num(r.time_s, 15),
         "rpm": num(r.rpm),
         "rpm_source": r.rpm_source,
+        "speed_change_pct": num(r.speed_change_pct) if r.speed_change_pct is not None else None,
+        "order_tracked": r.order_tracked,
+        "speed_unsteady": r.speed_unsteady,
         "overall_velocity_mm_s": num(r.overall_velocity_mm_s),
         "iso_zone": r.iso_zone,
         "bands": {

@@ -109,9 +109,16 @@ class Tachometer:
 def rpm_from_pulses(signal: np.ndarray, fs_hz: float, threshold_v: float, pulses_per_rev: int = 1, *,
                     hysteresis_v: float | None = None) -> float | None:
     """Speed over a whole pulse record (1-D, volts); None when it holds fewer than two pulses."""
+    return pulses_in_record(signal, fs_hz, threshold_v, pulses_per_rev, hysteresis_v=hysteresis_v)[0]
+
+
+def pulses_in_record(signal: np.ndarray, fs_hz: float, threshold_v: float, pulses_per_rev: int = 1, *,
+                     hysteresis_v: float | None = None) -> tuple[float | None, np.ndarray]:
+    """Speed over a whole pulse record (as :func:`rpm_from_pulses`) and the pulse times in seconds from the
+    record's first sample (for order tracking, :mod:`rotorwatch.analysis.ordertrack`)."""
     x = np.asarray(signal).ravel()
     duration_s = max(x.size / fs_hz, 1e-9)
     tach = Tachometer(fs_hz, threshold_v, pulses_per_rev, hysteresis_v=hysteresis_v,
                       window_s=duration_s, timeout_s=duration_s)
     tach.feed(x)
-    return tach.rpm()
+    return tach.rpm(), tach.edges / fs_hz
