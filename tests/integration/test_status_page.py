@@ -109,8 +109,9 @@ def test_page_loads_clean_and_shows_the_healthy_machine(page):
     spec = _spectrum(browser)
     assert spec["drawn"] == "1" and spec["quantity"] == "velocity"
     assert int(spec["points"]) > 100
-    # 1x..4x and blade pass (271.7 Hz) below the 1000 Hz overall band edge: 4 + 3 (BP, 2xBP, 3xBP at 815 Hz)
-    assert int(spec["markers"]) == 7
+    # 1x..4x and blade pass (271.7 Hz) below the 1000 Hz overall band edge: 4 + 3 (BP, 2xBP, 3xBP at 815 Hz),
+    # and the electrical lines of the 50 Hz motor: 2xLF, 4xLF, 6xLF (100, 200, 300 Hz)
+    assert int(spec["markers"]) == 10
     assert int(spec["regions"]) >= 4  # shaft-1x, shaft-2x, blade-pass x2, overall range
 
     # envelope spectrum: the bearing defect markers of fan-de
@@ -119,7 +120,7 @@ def test_page_loads_clean_and_shows_the_healthy_machine(page):
     assert spec["drawn"] == "1" and spec["quantity"] == "envelope"
     assert int(spec["markers"]) >= 8
     chips = browser.js("return [...document.querySelectorAll('#marker-chips .chip')].map(c => c.dataset.family)")
-    assert {"bpfo", "bpfi", "bsf", "ftf", "shaft"} <= set(chips)
+    assert {"bpfo", "bpfi", "bsf", "ftf", "shaft", "electrical"} <= set(chips)
     # log scale toggles without errors and keeps the same lines
     browser.click('#scale-seg button[data-scale="log"]')
     spec_log = _spectrum(browser)
