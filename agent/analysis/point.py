@@ -157,7 +157,8 @@ class PointAnalyzer:
         change = angle.change_pct if angle is not None else None
         if source == "estimated":
             change = self._change_by_halves(x0, rpm_used)
-            if change is not None:  # track along the straight speed ramp the two halves give
+            if change is not None and abs(change) >= ordertrack.MIN_ESTIMATED_TRACKED_CHANGE_PCT:
+                # track along the straight speed ramp the two halves give
                 f_mean = shaft_hz
                 angle = ordertrack.from_linear_speed(f_mean * (1 - change / 200.0), f_mean * (1 + change / 200.0),
                                                      x.size / p.fs_hz)
