@@ -21,7 +21,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .settings.models import Bearing, Band, Machine
+from .settings.models import Band, Bearing, Machine
 
 INCH_MM = 25.4
 DEFECTS = ("bpfo", "bpfi", "bsf", "ftf")

@@ -34,9 +34,10 @@ import json
 import logging
 import math
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -169,7 +170,7 @@ class Recording:
         if h is not None:
             h.close()
 
-    def __enter__(self) -> "Recording":
+    def __enter__(self) -> Recording:
         return self
 
     def __exit__(self, *exc: object) -> None:

@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterator
 from dataclasses import dataclass, field
+from datetime import UTC
 from pathlib import Path
 
 import numpy as np
@@ -27,7 +28,7 @@ from .alarms.records import AlarmEvent, MachineUpdate
 from .errors import InputError
 from .expectations import Sample
 from .recordings import UNITS  # noqa: F401  (re-exported for the replay command)
-from .settings.models import Config, Machine
+from .settings.models import Machine
 
 
 @dataclass(frozen=True)
@@ -129,7 +130,8 @@ def open_recording(path: str | Path, machine: Machine, unit: str | None, window_
     g and m/s^2 (float files only) go through the sensor's sensitivity to volts, so the sensor checks
     and the calibration run as for a live input.
     """
-    from .recordings import decide_unit, open_recording as open_file, to_volts
+    from .recordings import decide_unit, to_volts
+    from .recordings import open_recording as open_file
 
     p = Path(path)
     rec = open_file(p, names=[pt.id for pt in machine.points])
@@ -248,9 +250,9 @@ def _clean(x):
 
 
 def iso_date(unix_s: float) -> str:
-    from datetime import datetime, timezone
+    from datetime import datetime
 
-    return datetime.fromtimestamp(unix_s, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return datetime.fromtimestamp(unix_s, tz=UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def update_record(update: MachineUpdate, elapsed_s: float) -> dict:

@@ -36,14 +36,14 @@ import numpy as np
 
 from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Config, Machine
+
 from .chain import GAIN_BLOCK, ChainResponse, ChainSettings, ShapedNoise
 from .components import ImpactKernel, ShaftPhasor, ring
 from .impacts import ImpactTrain
 from .profile import Profile, Ramp
 from .randomness import generator, stream_key, white_noise
 from .rates import bearing_orders
-from .scenario import (BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, Scenario,
-                                            affected_points)
+from .scenario import BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, Scenario, affected_points
 from .sensor import FaultSpan, SensorChain
 from .speed import SpeedModel
 

@@ -137,7 +137,7 @@ class Structure(_Model):
     line_frequency_hz: Annotated[float, Field(ge=10, le=400, allow_inf_nan=False)] | None = None
 
     @model_validator(mode="after")
-    def _noise_band(self) -> "Structure":
+    def _noise_band(self) -> Structure:
         if self.noise_low_hz >= self.noise_high_hz:
             raise ValueError(f"noise_low_hz ({self.noise_low_hz:g}) must be below noise_high_hz ({self.noise_high_hz:g})")
         return self
@@ -151,7 +151,7 @@ class Chain(_Model):
     anti_alias_order: int = Field(8, ge=1, le=16)
 
     @model_validator(mode="after")
-    def _aa(self) -> "Chain":
+    def _aa(self) -> Chain:
         if 0 < self.anti_alias_fraction < 0.1:
             raise ValueError(f"anti_alias_fraction = {self.anti_alias_fraction:g}: give 0 (none) or a corner "
                              "between 0.1 and 0.5 of the sample rate")
@@ -170,7 +170,7 @@ class Change(_Model):
     value: float | None = Field(None, allow_inf_nan=False)
 
     @model_validator(mode="after")
-    def _consistent(self) -> "Change":
+    def _consistent(self) -> Change:
         c = self.component
         if c in BEARING_COMPONENTS and self.bearing is None:
             raise ValueError(f"component {c!r} needs bearing (the id of one of the machine's bearings)")

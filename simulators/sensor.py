@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rotorwatch.settings.models import Sensor
+
 from .randomness import generator, stream_key, white_noise
 
 DROPOUT_MIN_S = 0.002

@@ -32,9 +32,9 @@ import threading
 import time
 import urllib.parse
 import urllib.request
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 import pytest
@@ -308,7 +308,7 @@ class MosquittoBroker:
     def client_key(self) -> Path | None:
         return self.tls.client_key if self.tls else None
 
-    def start(self) -> "MosquittoBroker":
+    def start(self) -> MosquittoBroker:
         """Start the broker (again) on the same port; fail the test if it is not up in time."""
         if self.running:
             return self
@@ -327,7 +327,7 @@ class MosquittoBroker:
         proc, self._proc = self._proc, None
         return stop_process(proc, timeout_s=timeout_s, sig=sig)
 
-    def restart(self) -> "MosquittoBroker":
+    def restart(self) -> MosquittoBroker:
         self.stop()
         return self.start()
 
@@ -380,7 +380,7 @@ class MqttListener:
             self.messages.append(msg)
             self._cond.notify_all()
 
-    def connect(self, timeout_s: float = 10.0) -> "MqttListener":
+    def connect(self, timeout_s: float = 10.0) -> MqttListener:
         host = "localhost" if self.broker.tls is not None else self.broker.host
         self.client.connect(host, self.broker.port, keepalive=10)
         self.client.loop_start()
@@ -407,7 +407,7 @@ class MqttListener:
         self.client.disconnect()
         self.client.loop_stop()
 
-    def __enter__(self) -> "MqttListener":
+    def __enter__(self) -> MqttListener:
         return self.connect()
 
     def __exit__(self, *exc) -> None:
@@ -518,7 +518,7 @@ class PrometheusServer:
     def pid(self) -> int | None:
         return self._proc.pid if self._proc is not None and self._proc.poll() is None else None
 
-    def start(self) -> "PrometheusServer":
+    def start(self) -> PrometheusServer:
         rc, out = self.promtool.check_config(self.config_path)
         if rc != 0:
             pytest.fail(f"promtool check config rejected {self.config_path} (rc={rc}): {out.strip()}",
@@ -642,7 +642,7 @@ class AudioFeed:
         self._thread = threading.Thread(target=self._run, name=f"feed-{source.name}", daemon=True)
 
     # -- control -------------------------------------------------------------------------------
-    def start(self) -> "AudioFeed":
+    def start(self) -> AudioFeed:
         # O_NONBLOCK open fails with ENXIO when nothing holds the FIFO open for reading (no server).
         try:
             self._fd = os.open(self.source.fifo_path, os.O_WRONLY | os.O_NONBLOCK)
@@ -802,7 +802,7 @@ class PulseAudioServer:
         with open(self.asoundrc, "a") as rc:
             rc.write(f'pcm.{source.name} {{ type pulse device "{source.name}" }}\n')
 
-    def start(self) -> "PulseAudioServer":
+    def start(self) -> PulseAudioServer:
         lines = [f"load-module module-native-protocol-unix auth-anonymous=1 socket={self.socket_path}"]
         for name, rate_hz, channels in self._initial:
             source = self._new_source(name, rate_hz, channels)

@@ -37,9 +37,9 @@ from typing import Any
 
 import numpy as np
 
-from .levels import Baseline
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, Machine
+from .levels import Baseline
 
 log = logging.getLogger(__name__)
 

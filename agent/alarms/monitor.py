@@ -42,14 +42,13 @@ from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .baseline import OVERALL, BaselineStore
-from .levels import (SEVERITY, EffectiveLevels, LevelTracker, Transition, effective_drop_levels, effective_levels,
-                     fmt)
-from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
 from ..analysis import severity
 from ..analysis.result import Finding, PointResult
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FindingRule, Levels, Machine
+from .baseline import OVERALL, BaselineStore
+from .levels import SEVERITY, EffectiveLevels, LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
+from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
 
 log = logging.getLogger(__name__)
 

@@ -44,8 +44,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .records import SensorHealth
 from ..settings.models import Sensor
+from .records import SensorHealth
 
 
 @dataclass(frozen=True)

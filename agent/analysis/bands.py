@@ -29,7 +29,7 @@ import numpy as np
 
 from .. import kinematics
 from .narrowband import NarrowSpectrum
-from .plan import HANN_LOBE_MARGIN_BINS, BandPlan, AnalysisPlan
+from .plan import HANN_LOBE_MARGIN_BINS, AnalysisPlan, BandPlan
 
 
 def window_bins(edges_hz: list[tuple[float, float]] | tuple[tuple[float, float], ...], df_hz: float,

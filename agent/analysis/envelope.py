@@ -54,11 +54,11 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
+from ..errors import InputError
 from .ordertrack import ShaftAngle, resample
 from .plan import EDGE_TAPER_FRACTION, EnvelopePlan
 from .result import BandReview
 from .spectrum import WelchKernel, hann
-from ..errors import InputError
 
 BAND_EDGE_TAPER_FRACTION = 0.05  # of the band's bins, raised-cosine at each band edge
 WIDTH_STEP = 2.0 / 3.0  # ratio of successive candidate band widths in the search

@@ -17,10 +17,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from ..settings.models import Machine
 from .findings import ELECTRICAL_TOLERANCE, EXPLAINED_LINES
 from .labels import harmonic, twice_line_frequency
 from .plan import DefectPlan, defect_plans
-from ..settings.models import Machine
 
 
 @dataclass(frozen=True)

@@ -27,9 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import kinematics
-from .spectrum import hann
 from ..errors import InputError
 from ..settings.models import Band, Machine, Point  # noqa: F401 (Band: BandPlan field type)
+from .spectrum import hann
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
 DEFECT_NAMES = ("bpfo", "bpfi", "bsf", "ftf")

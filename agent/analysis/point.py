@@ -27,6 +27,8 @@ import logging
 
 import numpy as np
 
+from ..errors import InputError
+from ..settings.models import Machine, Point
 from . import bands as band_mod
 from . import ordertrack, severity
 from .envelope import BlockSpectrum, EnvelopeKernel
@@ -35,11 +37,9 @@ from .indicators import waveform
 from .narrowband import NarrowbandKernel, electrical_mask
 from .plan import AnalysisPlan, build_plan
 from .result import PointResult, Spectrum
-from .speed import N_HARMONICS, estimate_speed
 from .spectrum import WelchKernel
+from .speed import N_HARMONICS, estimate_speed
 from .velocity import velocity_line_rms
-from ..errors import InputError
-from ..settings.models import Machine, Point
 
 log = logging.getLogger(__name__)
 

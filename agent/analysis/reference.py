@@ -70,7 +70,6 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
                                 detrend="constant", scaling="density")
     if plan.ac_power_gain is not None:
         psd = psd * plan.ac_power_gain
-    df = f[1] - f[0]
     fn, psd_n = scipy.signal.periodogram(x, fs, window="hann", detrend="constant", scaling="density")
     if plan.point.sensor.ac_coupling_corner_hz is not None:
         with np.errstate(divide="ignore"):

@@ -99,7 +99,7 @@ def _plan_problems(path: str, cfg: Config) -> list[str]:
     fs = cfg.acquisition.sample_rate_hz
     problems = []
     for i, m in enumerate(cfg.machines):
-        for j, p in enumerate(m.points):
+        for p in m.points:
             try:
                 plan = build_plan(m, p, fs)
             except InputError as e:

@@ -19,13 +19,21 @@ import os
 import sys
 import tempfile
 import time
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
-from ..replay import (UNITS, ReplayLog, event_record, open_recording, recording_frames, scenario_frames,
-                               timeline, update_record)
+from ..replay import (
+    UNITS,
+    ReplayLog,
+    event_record,
+    open_recording,
+    recording_frames,
+    scenario_frames,
+    timeline,
+    update_record,
+)
 from ..settings.models import AlarmPolicy
 
 DEFAULT_START = "2025-01-01T00:00:00Z"
@@ -60,7 +68,7 @@ def _start_unix_s(text: str) -> float:
     except ValueError:
         raise InputError(f"--start = {text!r}: not an ISO 8601 date, e.g. 2025-01-01 or 2025-01-01T06:00:00Z") from None
     if dt.tzinfo is None:
-        dt = dt.replace(tzinfo=timezone.utc)
+        dt = dt.replace(tzinfo=UTC)
     return dt.timestamp()
 
 
@@ -76,9 +84,10 @@ def _pick_machine(config, machine_id: str | None, source: str):
 
 
 def _open_scenario(args):
-    from ..settings.loading import load_config
     from rotorwatch.simulators.render import ScenarioRenderer
     from rotorwatch.simulators.scenario import cross_check, load_scenario
+
+    from ..settings.loading import load_config
 
     scenario = load_scenario(args.scenario)
     if args.config:

@@ -37,9 +37,9 @@ def add_parser(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from rotorwatch.simulators.render import ScenarioRenderer
+    from rotorwatch.simulators.scenario import DAY_S, load_scenario
 
     from ..recordings import write_wav
-    from rotorwatch.simulators.scenario import DAY_S, load_scenario
 
     scenario = load_scenario(args.scenario)
     renderer = ScenarioRenderer(scenario)

@@ -13,7 +13,7 @@ from __future__ import annotations
 import argparse
 import csv
 import sys
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 from ..errors import RotorwatchError
@@ -47,14 +47,14 @@ def parse_time_utc(text: str, option: str) -> float:
         raise RotorwatchError(f"{option} {text!r}: not an ISO 8601 time (e.g. 2026-05-01 or "
                               "2026-05-01T06:00:00Z)") from None
     if dt.tzinfo is None:
-        dt = dt.replace(tzinfo=timezone.utc)
+        dt = dt.replace(tzinfo=UTC)
     return dt.timestamp()
 
 
 def format_time_utc(t_s: float | None) -> str:
     if t_s is None:
         return "-"
-    return datetime.fromtimestamp(t_s, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return datetime.fromtimestamp(t_s, tz=UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _value_text(v: float | None) -> str:
@@ -77,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
         raise RotorwatchError(f"--limit {args.limit}: must be at least 1")
     since_s = parse_time_utc(args.since, "--since") if args.since else None
     if args.days is not None:
-        since_s = datetime.now(timezone.utc).timestamp() - args.days * DAY_S
+        since_s = datetime.now(UTC).timestamp() - args.days * DAY_S
     until_s = parse_time_utc(args.until, "--until") if args.until else None
     point = "" if args.point == "-" else args.point
     with TrendStore(Path(args.state_dir) / TRENDS_FILE, read_only=True) as store:

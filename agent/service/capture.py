@@ -31,15 +31,15 @@ from __future__ import annotations
 import logging
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
 
 from ..errors import RotorwatchError
+from ..settings.models import Acquisition
 from .logs import RepeatLimiter, fields
 from .ring import Ring
 from .selfstats import SelfStats
-from ..settings.models import Acquisition
 
 log = logging.getLogger(__name__)
 

@@ -27,15 +27,18 @@ import queue
 import signal
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
 from .. import __version__
 from ..alarms.records import MachineUpdate, SensorHealth
 from ..errors import ConfigError, RotorwatchError
+from ..settings.loading import load_config
+from ..settings.models import Config, Machine
 from . import payloads
 from .capture import FINITE_SOURCES, Capture
 from .commands import Command, CommandRejected, parse_command
@@ -48,8 +51,6 @@ from .publisher import UpdatePublisher
 from .ring import Ring
 from .selfstats import SelfStats
 from .speed import SpeedBoard
-from ..settings.loading import load_config
-from ..settings.models import Config, Machine
 
 log = logging.getLogger(__name__)
 

@@ -19,8 +19,8 @@ import numpy as np
 
 from ..alarms.records import MachineUpdate
 from ..errors import RotorwatchError
-from .logs import RepeatLimiter, fields
 from ..settings.models import Config, Machine
+from .logs import RepeatLimiter, fields
 
 log = logging.getLogger(__name__)
 

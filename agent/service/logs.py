@@ -16,7 +16,8 @@ import logging
 import sys
 import threading
 import time
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 _PREFIX = "rotorwatch."
 

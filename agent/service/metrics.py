@@ -19,8 +19,8 @@ import logging
 import platform
 import ssl
 import threading
+from collections.abc import Iterable, Iterator
 from pathlib import Path
-from typing import Iterable, Iterator
 
 from prometheus_client import CollectorRegistry, start_http_server
 from prometheus_client.core import (
@@ -34,10 +34,10 @@ from .. import __version__
 from ..alarms.records import STATES, MachineUpdate
 from ..alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
 from ..errors import RotorwatchError
-from .logs import fields
-from .selfstats import COUNTERS, GAUGES, SelfStats
 from ..settings.models import Config
 from ..settings.service import MetricsSettings
+from .logs import fields
+from .selfstats import COUNTERS, GAUGES, SelfStats
 
 log = logging.getLogger(__name__)
 

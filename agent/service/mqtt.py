@@ -23,8 +23,8 @@ import os
 import ssl
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
-from typing import Callable
 
 import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
@@ -32,10 +32,10 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.reasoncodes import ReasonCode
 
 from ..errors import RotorwatchError
+from ..settings.service import MqttSettings
 from .logs import RepeatLimiter, fields
 from .payloads import availability_payload, encode
 from .selfstats import SelfStats
-from ..settings.service import MqttSettings
 
 log = logging.getLogger(__name__)
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import json
 import math
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from .. import __version__
@@ -46,7 +46,7 @@ def num(x: Any, digits: int = 6) -> float | None:
 
 def iso_time(time_s: float) -> str:
     """POSIX seconds -> ``2026-03-01T12:00:05.250Z`` (UTC, milliseconds)."""
-    dt = datetime.fromtimestamp(time_s, tz=timezone.utc)
+    dt = datetime.fromtimestamp(time_s, tz=UTC)
     return dt.strftime("%Y-%m-%dT%H:%M:%S.") + f"{dt.microsecond // 1000:03d}Z"
 
 

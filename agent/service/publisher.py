@@ -15,12 +15,13 @@ Called from the analysis loop only. Payloads come from :mod:`rotorwatch.service.
 from __future__ import annotations
 
 import time
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 from ..alarms.records import AlarmEvent, MachineUpdate
+from ..settings.models import Config
 from . import payloads
 from .mqtt import MqttLink
-from ..settings.models import Config
 
 
 class UpdatePublisher:

@@ -13,10 +13,10 @@ import logging
 import math
 import threading
 import time
-from typing import Callable
+from collections.abc import Callable
 
-from .logs import RepeatLimiter, fields
 from ..settings.models import Config
+from .logs import RepeatLimiter, fields
 
 log = logging.getLogger(__name__)
 

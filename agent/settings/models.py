@@ -43,7 +43,7 @@ class Sensor(Model):
     ac_coupling_corner_hz: PositiveFloat | None = None
 
     @model_validator(mode="after")
-    def _one_sensitivity(self) -> "Sensor":
+    def _one_sensitivity(self) -> Sensor:
         given = [v for v in (self.sensitivity_mv_per_g, self.sensitivity_mv_per_m_s2) if v is not None]
         if len(given) != 1:
             raise ValueError(
@@ -99,7 +99,7 @@ class Speed(Model):
     max_change_pct: float = Field(2.0, gt=0, le=50)
 
     @model_validator(mode="after")
-    def _mode_fields(self) -> "Speed":
+    def _mode_fields(self) -> Speed:
         if self.mode == "fixed" and self.rpm is None:
             raise ValueError("mode 'fixed' needs rpm")
         if self.mode == "estimated":
@@ -158,7 +158,7 @@ class Bearing(Model):
     ftf: PositiveFloat | None = None
 
     @model_validator(mode="after")
-    def _geometry_or_multiples(self) -> "Bearing":
+    def _geometry_or_multiples(self) -> Bearing:
         geometry = (self.elements, self.element_diameter, self.pitch_diameter)
         multiples = (self.bpfo, self.bpfi, self.bsf, self.ftf)
         has_geometry = all(v is not None for v in geometry)
@@ -218,7 +218,7 @@ class Levels(Model):
     latching: bool = False
 
     @model_validator(mode="after")
-    def _ordered(self) -> "Levels":
+    def _ordered(self) -> Levels:
         if self.warning is not None and self.alarm is not None and self.warning >= self.alarm:
             raise ValueError(f"warning ({self.warning:g}) must be below alarm ({self.alarm:g})")
         rw, ra = self.relative_warning, self.relative_alarm
@@ -299,7 +299,7 @@ class Band(Model):
     levels: Levels = Levels()
 
     @model_validator(mode="after")
-    def _one_placement(self) -> "Band":
+    def _one_placement(self) -> Band:
         placements = {
             "low_hz/high_hz": (self.low_hz, self.high_hz),
             "low_order/high_order": (self.low_order, self.high_order),
@@ -343,7 +343,7 @@ class Overall(Model):
     _low_by_speed: bool = PrivateAttr(False)
 
     @model_validator(mode="after")
-    def _edges(self) -> "Overall":
+    def _edges(self) -> Overall:
         if self.low_hz is not None and self.low_hz >= self.high_hz:
             raise ValueError(f"low_hz ({self.low_hz:g}) must be below high_hz ({self.high_hz:g})")
         return self
@@ -378,7 +378,7 @@ class Envelope(Model):
     band_review_hours: float = Field(6.0, ge=0, le=8760, allow_inf_nan=False)
 
     @model_validator(mode="after")
-    def _band(self) -> "Envelope":
+    def _band(self) -> Envelope:
         if self.band_hz is not None and self.band_hz[0] >= self.band_hz[1]:
             raise ValueError(f"band_hz = {list(self.band_hz)}: the low edge must be below the high edge")
         return self
@@ -414,7 +414,7 @@ class FindingRule(Model):
     absent_updates: int | None = Field(None, ge=1, le=1000)
 
     @model_validator(mode="after")
-    def _window(self) -> "FindingRule":
+    def _window(self) -> FindingRule:
         if self.window_updates is not None and self.window_updates < self.present_updates:
             raise ValueError(
                 f"window_updates ({self.window_updates}) must be at least present_updates ({self.present_updates})"
@@ -445,7 +445,7 @@ class AlarmPolicy(Model):
     findings: dict[str, FindingRule] = {}
 
     @model_validator(mode="after")
-    def _finding_names(self) -> "AlarmPolicy":
+    def _finding_names(self) -> AlarmPolicy:
         unknown = [k for k in self.findings if k not in FINDING_NAMES]
         if unknown:
             raise ValueError(f"findings: unknown finding {unknown[0]!r}, known: {', '.join(FINDING_NAMES)}")
@@ -472,7 +472,7 @@ class Machine(Model):
     alarms: AlarmPolicy = AlarmPolicy()
 
     @model_validator(mode="after")
-    def _references(self) -> "Machine":
+    def _references(self) -> Machine:
         problems = []
         bearing_ids = [b.id for b in self.bearings]
         point_ids = [p.id for p in self.points]
@@ -558,7 +558,7 @@ class Config(Model):
     storage: StorageSettings = StorageSettings()
 
     @model_validator(mode="after")
-    def _channels_and_nyquist(self) -> "Config":
+    def _channels_and_nyquist(self) -> Config:
         problems = []
         ids = [m.id for m in self.machines]
         dupes = sorted({i for i in ids if ids.count(i) > 1})

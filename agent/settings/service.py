@@ -60,7 +60,7 @@ class MqttSettings(_Model):
                     "(the open convention's usual one is 'homeassistant'); absent: off")
 
     @model_validator(mode="after")
-    def _consistent(self) -> "MqttSettings":
+    def _consistent(self) -> MqttSettings:
         if self.password_file is not None and self.password_env is not None:
             raise ValueError("give at most one of password_file or password_env")
         if (self.password_file is not None or self.password_env is not None) and self.username is None:
@@ -88,7 +88,7 @@ class MetricsSettings(_Model):
     tls_key_file: str | None = Field(None, min_length=1)
 
     @model_validator(mode="after")
-    def _tls_pair(self) -> "MetricsSettings":
+    def _tls_pair(self) -> MetricsSettings:
         if (self.tls_cert_file is None) != (self.tls_key_file is None):
             raise ValueError("tls_cert_file and tls_key_file go together: give both or neither")
         return self

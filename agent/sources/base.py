@@ -76,9 +76,10 @@ import dataclasses
 import importlib
 import logging
 import threading
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -125,7 +126,7 @@ class SourceStats:
     stalls: int = 0          # read() calls that returned None because nothing arrived in time
     restarts: int = 0        # start() calls after the first
 
-    def snapshot(self) -> "SourceStats":
+    def snapshot(self) -> SourceStats:
         return dataclasses.replace(self)
 
     def as_dict(self) -> dict[str, int]:
@@ -216,13 +217,15 @@ class Source(abc.ABC):
 
     def check(self) -> None:
         """Raise what ``start()`` would refuse for good (InputError, ConfigError) without acquiring:
-        a missing file, a wrong rate. Devices are not probed here (their absence is retried)."""
+        a missing file, a wrong rate. Devices are not probed here (their absence is retried).
+        The default has nothing to check."""
+        return None
 
     def describe(self) -> str:
         """One line for logs and status: kind, where from, rate, channels."""
         return f"{self.kind} {self._where()} fs={self.fs_hz:g}Hz channels={self.channels}"
 
-    def __enter__(self) -> "Source":
+    def __enter__(self) -> Source:
         self.start()
         return self
 
@@ -368,7 +371,7 @@ def simulated_segment_s(config: Any) -> float:
     return longest + acq.update_interval_s + 2 * acq.block_frames / acq.sample_rate_hz
 
 
-def configured_source(config: Any, config_dir: Path | None) -> "Source":
+def configured_source(config: Any, config_dir: Path | None) -> Source:
     """The source ``rotorwatch run`` opens for ``config`` (built, not started): the daemon's and
     ``rotorwatch check``'s, so check refuses what run would."""
     options: dict[str, Any] = {}

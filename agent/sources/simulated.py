@@ -27,8 +27,9 @@ from __future__ import annotations
 
 import logging
 import math
+from collections.abc import Iterator
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 import numpy as np
 

@@ -40,8 +40,9 @@ import queue
 import threading
 import time
 from collections import deque
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any
 
 import paho.mqtt.client as mqtt
 
@@ -128,13 +129,13 @@ class Forwarder:
             pass
 
     @classmethod
-    def from_settings(cls, spool: Spool, client: mqtt.Client, settings: Any, **kwargs: Any) -> "Forwarder":
+    def from_settings(cls, spool: Spool, client: mqtt.Client, settings: Any, **kwargs: Any) -> Forwarder:
         """Build from a :class:`~rotorwatch.storage.settings.ForwardingSettings`."""
         return cls(spool, client, in_flight_window=settings.in_flight_window,
                    backlog_rate_per_s=settings.backlog_rate_per_s, live_reserve=settings.live_reserve, **kwargs)
 
     # -- life cycle ---------------------------------------------------------------------------------
-    def start(self) -> "Forwarder":
+    def start(self) -> Forwarder:
         """Start the drain thread. If the client is already connected, draining starts at once."""
         if self._thread is not None:
             return self

@@ -66,7 +66,7 @@ class ForwardingSettings(_Model):
     live_reserve: int = Field(4, ge=0)
 
     @model_validator(mode="after")
-    def _reserve_below_window(self) -> "ForwardingSettings":
+    def _reserve_below_window(self) -> ForwardingSettings:
         if self.live_reserve >= self.in_flight_window:
             raise ValueError(
                 f"live_reserve ({self.live_reserve}) must be below in_flight_window ({self.in_flight_window}) "

@@ -29,7 +29,7 @@ nor a flapping value's. Requests from an operator (``command``) need no policy: 
 from __future__ import annotations
 
 import math
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from ..alarms.records import MachineUpdate
@@ -59,7 +59,7 @@ class DailySchedule:
 
     def slot_at_or_before(self, now_s: float) -> float:
         """POSIX time of the latest slot that is not after ``now_s``."""
-        day = datetime.fromtimestamp(now_s, tz=timezone.utc).replace(hour=0, minute=0, second=0, microsecond=0)
+        day = datetime.fromtimestamp(now_s, tz=UTC).replace(hour=0, minute=0, second=0, microsecond=0)
         slot = day.timestamp() + self.offset_s
         return slot if slot <= now_s else (day - timedelta(days=1)).timestamp() + self.offset_s
 

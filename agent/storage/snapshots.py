@@ -31,10 +31,11 @@ import os
 import re
 import shutil
 import time
+from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Callable, Mapping
+from typing import Any
 
 import numpy as np
 
@@ -135,7 +136,7 @@ def bands_for(machine: Any, point_id: str, shaft_hz: float) -> list[dict[str, An
 
 
 def _time_utc(t_s: float) -> str:
-    return datetime.fromtimestamp(t_s, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return datetime.fromtimestamp(t_s, tz=UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _fsync_file(path: Path) -> None:
@@ -161,7 +162,7 @@ class SnapshotStore:
                 shutil.rmtree(stale, ignore_errors=True)
 
     @classmethod
-    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> "SnapshotStore":
+    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> SnapshotStore:
         """``<state_dir>/snapshots`` with a :class:`~rotorwatch.storage.settings.SnapshotSettings`."""
         if settings is not None:
             kwargs.setdefault("quota_bytes", settings.quota_bytes)
@@ -180,7 +181,7 @@ class SnapshotStore:
         if reason not in REASONS:
             raise ValueError(f"snapshot reason {reason!r}: must be one of {', '.join(REASONS)}")
         time_s = float(update.time_s)
-        base = f"{datetime.fromtimestamp(time_s, tz=timezone.utc):%Y%m%dT%H%M%SZ}-{update.machine_id}-{reason}"
+        base = f"{datetime.fromtimestamp(time_s, tz=UTC):%Y%m%dT%H%M%SZ}-{update.machine_id}-{reason}"
         try:
             self.root.mkdir(parents=True, exist_ok=True)
             snap_id = base

@@ -51,10 +51,11 @@ import os
 import sqlite3
 import threading
 import time
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator, Literal, Mapping
+from typing import Any, Literal
 
 from . import SPOOL_FILE, StorageError
 
@@ -207,7 +208,7 @@ class Spool:
             raise
 
     @classmethod
-    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> "Spool":
+    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> Spool:
         """Open ``<state_dir>/spool.sqlite`` with a :class:`~rotorwatch.storage.settings.SpoolSettings`."""
         if settings is not None:
             kwargs.setdefault("max_bytes", settings.max_bytes)
@@ -269,7 +270,7 @@ class Spool:
                 self._db = None  # type: ignore[assignment]
             self._release_file_lock()
 
-    def __enter__(self) -> "Spool":
+    def __enter__(self) -> Spool:
         return self
 
     def __exit__(self, *exc: object) -> None:

@@ -30,9 +30,10 @@ import math
 import sqlite3
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from ..alarms.records import MachineUpdate
 from . import TRENDS_FILE, StorageError
@@ -153,7 +154,7 @@ class TrendStore:
         self._unlogged = [0, 0]  # rows pruned by age, by count since the last log line
 
     @classmethod
-    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> "TrendStore":
+    def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> TrendStore:
         """Open ``<state_dir>/trends.sqlite`` with a :class:`~rotorwatch.storage.settings.TrendSettings`."""
         if settings is not None:
             for key in ("retention_days", "max_rows", "min_interval_s", "prune_interval_s"):
@@ -189,7 +190,7 @@ class TrendStore:
                 self._db.close()
                 self._db = None  # type: ignore[assignment]
 
-    def __enter__(self) -> "TrendStore":
+    def __enter__(self) -> TrendStore:
         return self
 
     def __exit__(self, *exc: object) -> None:

@@ -30,10 +30,10 @@ import logging
 import socket
 import sys
 import threading
+from collections.abc import Callable
 from http import HTTPStatus
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
-from typing import Callable
 from urllib.parse import unquote, urlsplit
 
 from ..errors import ConfigError, RotorwatchError
@@ -175,7 +175,7 @@ class StatusServer:
         host = self.bind if ":" not in self.bind else f"[{self.bind}]"
         return f"http://{host}:{self.port}/"
 
-    def start(self) -> "StatusServer":
+    def start(self) -> StatusServer:
         if self._httpd is not None:
             return self
         handler = type("BoundStatusHandler", (_Handler,), {"app": self})
@@ -213,7 +213,7 @@ class StatusServer:
         if thread is not None:
             thread.join(timeout=max(0.1, timeout_s))
 
-    def __enter__(self) -> "StatusServer":
+    def __enter__(self) -> StatusServer:
         return self.start()
 
     def __exit__(self, *exc) -> None:

@@ -15,7 +15,7 @@ Downsampling keeps what an analyst looks for:
 from __future__ import annotations
 
 import math
-from typing import Iterable, Sequence
+from collections.abc import Iterable, Sequence
 
 import numpy as np
 

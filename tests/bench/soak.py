@@ -45,8 +45,9 @@ REPO = HERE.parents[1]
 sys.path.insert(0, str(REPO / "tests"))
 sys.path.insert(0, str(REPO / "tests" / "integration"))
 
-from components import MosquittoBroker  # noqa: E402
 from daemon_support import ROTORWATCH, daemon_config, to_toml  # noqa: E402
+
+from components import MosquittoBroker  # noqa: E402
 
 KIB, MIB = 1024, 1024 * 1024
 DAY_S = 86400.0
@@ -112,7 +113,7 @@ def scrape(port: int) -> dict[str, float]:
     for line in text.splitlines():
         if line.startswith("#") or not line:
             continue
-        name = re.split(r"[{ ]", line, 1)[0]
+        name = re.split(r"[{ ]", line, maxsplit=1)[0]
         try:
             out[name] = out.get(name, 0.0) + float(line.rsplit(" ", 1)[1])
         except ValueError:

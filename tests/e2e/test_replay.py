@@ -155,10 +155,10 @@ def test_bad_expectation_in_scenario_names_the_file(tmp_path, capsys):
 @pytest.fixture(scope="module")
 def recorded_volts():
     """40 s of the short scenario after the spall (volts per point) and its rate."""
+    import tempfile
+
     from rotorwatch.simulators.render import ScenarioRenderer
     from rotorwatch.simulators.scenario import load_scenario
-
-    import tempfile
 
     with tempfile.TemporaryDirectory() as d:
         sc = load_scenario(short_scenario(Path(d)))

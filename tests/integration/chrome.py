@@ -117,7 +117,7 @@ class Chrome:
             pass
         stop_process(self.proc)
 
-    def __enter__(self) -> "Chrome":
+    def __enter__(self) -> Chrome:
         return self
 
     def __exit__(self, *exc) -> None:

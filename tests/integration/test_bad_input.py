@@ -20,11 +20,9 @@ Every wait is bounded; daemons are stopped by their PIDs.
 from __future__ import annotations
 
 import json
-import os
 import re
 import socket
 import subprocess
-import sys
 import threading
 import time
 import uuid
@@ -241,7 +239,7 @@ class DroppingFrameServer:
         while not self._stop.is_set():
             try:
                 conn, _ = self.sock.accept()
-            except socket.timeout:
+            except TimeoutError:
                 continue
             self.connections += 1
             t_next, k = time.monotonic(), 0

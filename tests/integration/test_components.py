@@ -16,8 +16,7 @@ import numpy as np
 import paho.mqtt.client as mqtt
 import pytest
 from numpy.testing import assert_array_equal
-from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
-from prometheus_client import start_http_server
+from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest, start_http_server
 from scipy.signal import welch
 
 import components

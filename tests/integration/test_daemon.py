@@ -21,10 +21,10 @@ from components import MqttListener, wait_until
 from .daemon_support import (
     DaemonProcess,
     as_json,
+    daemon_config,
     fast_fault_scenario,
     json_pred,
     messages,
-    daemon_config,
     wait_message,
     write_setup,
 )

@@ -5,6 +5,7 @@ start-up errors. ``rotorwatch run`` runs as a subprocess; every wait is bounded.
 
 from __future__ import annotations
 
+import http.client
 import json
 import signal
 import socket
@@ -136,7 +137,7 @@ class FrameServer:
         while not self._stop.is_set():
             try:
                 conn, _ = self.sock.accept()
-            except socket.timeout:
+            except TimeoutError:
                 continue
             self.connections += 1
             t_next = time.monotonic()
@@ -214,7 +215,7 @@ def test_sd_notify_ready_watchdog_stopping(mosquitto_broker, tmp_path, daemons):
             while time.monotonic() < deadline:
                 try:
                     got.append(sock.recv(4096).decode())
-                except socket.timeout:
+                except TimeoutError:
                     pass
                 if pred():
                     return True
@@ -422,7 +423,7 @@ def test_metrics_over_https(tmp_path, daemons):
     with urllib.request.urlopen(f"https://127.0.0.1:{port}/metrics", context=ctx, timeout=5) as r:
         text = r.read().decode()
     assert "rotorwatch_build_info" in text
-    with pytest.raises(Exception):  # plain HTTP against the TLS port fails
+    with pytest.raises((OSError, http.client.HTTPException)):  # plain HTTP against the TLS port fails
         urllib.request.urlopen(f"http://127.0.0.1:{port}/metrics", timeout=5).read()
     assert d.stop() == 0
 

@@ -11,7 +11,6 @@ from pathlib import Path
 import pytest
 
 from components import find_binary
-
 from rotorwatch.service.metrics import UpdateCollector, make_registry
 from rotorwatch.service.mqtt import Topics
 from rotorwatch.service.selfstats import COUNTERS, GAUGES, SelfStats

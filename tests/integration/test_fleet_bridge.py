@@ -106,7 +106,7 @@ class DurableConsumer:
         with self.lock:
             self.messages.append(msg)
 
-    def connect(self) -> "DurableConsumer":
+    def connect(self) -> DurableConsumer:
         props = Properties(PacketTypes.CONNECT)
         props.SessionExpiryInterval = 3600
         self.subscribed.clear()
@@ -140,7 +140,7 @@ def test_two_boxes_bridged_to_a_site_broker(tmp_path):
             edge = edge_broker(tmp_path / "edges", agent_id, site)
             edges.append(edge)
             # the bridge announces itself upstream (notifications): wait for it before publishing
-            up = wait_until(lambda: any(m.topic == f"{PREFIX}/{agent_id}/uplink" and m.payload == b"1"
+            up = wait_until(lambda agent_id=agent_id: any(m.topic == f"{PREFIX}/{agent_id}/uplink" and m.payload == b"1"
                                         for m in list(watch.messages)), 15.0, 0.05)
             assert up, f"bridge of {agent_id} did not connect; log:\n{edge.log_path.read_text()[-2000:]}"
             agents.append(Agent(with_agent_id(base, agent_id), edge, tmp_path))

@@ -21,7 +21,15 @@ import pytest
 
 from components import MqttListener, free_port, make_mosquitto_broker, make_test_pki, wait_until
 
-from .daemon_support import DaemonProcess, as_json, daemon_config, fast_fault_scenario, json_pred, wait_message, write_setup
+from .daemon_support import (
+    DaemonProcess,
+    as_json,
+    daemon_config,
+    fast_fault_scenario,
+    json_pred,
+    wait_message,
+    write_setup,
+)
 
 pytestmark = pytest.mark.integration
 

@@ -27,7 +27,7 @@ import time
 
 import pytest
 
-from components import free_port, wait_until
+from components import free_port
 
 from .daemon_support import DaemonProcess, daemon_config, write_setup
 

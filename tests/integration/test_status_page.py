@@ -15,12 +15,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from .chrome import Chrome, console_errors
 from rotorwatch.pipeline import MachinePipeline
 from rotorwatch.simulators.render import ScenarioRenderer
 from rotorwatch.simulators.scenario import load_scenario
 from rotorwatch.web.board import StatusBoard
 from rotorwatch.web.server import StatusServer
+
+from .chrome import Chrome, console_errors
 
 pytestmark = pytest.mark.integration
 

@@ -20,15 +20,15 @@ and ``status-page-pending.png``. Look at them when the page changes.
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-from .chrome import Chrome, console_errors
-from .test_status_page import ARTIFACTS, Feeder
 from rotorwatch.web import views
 from rotorwatch.web.server import StatusServer
+
+from .chrome import Chrome, console_errors
+from .test_status_page import ARTIFACTS, Feeder
 
 pytestmark = pytest.mark.integration
 

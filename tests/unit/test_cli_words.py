@@ -41,7 +41,7 @@ def test_one_format_vocabulary():
 
 def test_analyze_is_spelled_one_way():
     texts = []
-    for name, p in _parsers().items():
+    for p in _parsers().values():
         texts += [p.description or ""] + [a.help or "" for a in p._actions]
     texts += [summary for _, summary in COMMANDS.values()]
     for doc in [REPO / "README.md", REPO / "DEVELOPERS.md", *(REPO / "deploy").glob("*.md")]:

@@ -20,11 +20,11 @@ import pytest
 from rotorwatch.alarms.baseline import OVERALL
 from rotorwatch.alarms.levels import Baseline, effective_drop_levels, effective_levels
 from rotorwatch.alarms.monitor import MachineMonitor
+from rotorwatch.alarms.records import SensorHealth
 from rotorwatch.analysis.result import Finding
 from rotorwatch.settings.models import Levels
 
 from .helpers import machine, result
-from rotorwatch.alarms.records import SensorHealth
 
 OK = {"p1": SensorHealth(ok=True), "p2": SensorHealth(ok=True)}
 ISO_GROUP2_RIGID = (1.4, 2.8, 4.5)  # ISO 10816-3:2009 Table A.2, from memory (references section 1)

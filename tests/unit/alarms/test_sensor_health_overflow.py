@@ -20,7 +20,6 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-
 from rotorwatch.service.daemon import Daemon, RunOptions, default_source_factory  # noqa: E402
 
 OVERFLOW_AT_CHUNK = 40  # 40 x 4096 frames at 51.2 kHz: 3.2 s in, after the first good updates

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from rotorwatch.analysis.envelope import EnvelopeKernel, spectral_kurtosis
+from rotorwatch.analysis.envelope import spectral_kurtosis
 from rotorwatch.analysis.point import PointAnalyzer
 from rotorwatch.analysis.reference import reference_analyze
 from rotorwatch.errors import InputError

@@ -13,7 +13,6 @@ from __future__ import annotations
 import json
 
 import numpy as np
-import pytest
 
 from rotorwatch.pipeline import MachinePipeline
 from rotorwatch.settings.models import Config

@@ -15,7 +15,6 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-
 from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory  # noqa: E402
 
 

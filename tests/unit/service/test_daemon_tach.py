@@ -19,7 +19,6 @@ import pytest
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-
 from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory  # noqa: E402
 from rotorwatch.settings.loading import load_config  # noqa: E402
 from rotorwatch.simulators.render import ScenarioRenderer  # noqa: E402

@@ -122,8 +122,8 @@ def test_states_are_enum_style():
 
 def test_nan_values_are_left_out_and_stalled_points_expose_state_only():
     text = exposition([machine_update(nan_band=True)])
-    names = [(n, dict(l)) for (n, l) in samples(text)]
-    assert not any(n == "rotorwatch_band_value_meters_per_second" and l.get("band") == "shaft-1x" for n, l in names)
+    names = [(n, dict(lab)) for (n, lab) in samples(text)]
+    assert not any(n == "rotorwatch_band_value_meters_per_second" and lab.get("band") == "shaft-1x" for n, lab in names)
     text = exposition([stalled_update()])
     assert value(text, "rotorwatch_point_state", point="de-h", state="sensor_fault") == 1.0
     assert value(text, "rotorwatch_sensor_ok", point="de-h") == 0.0

@@ -11,7 +11,7 @@ scipy.signal.hilbert, RMS of the envelope spectrum over +/- 3 % of the first thr
 from __future__ import annotations
 
 import math
-from functools import lru_cache
+from functools import cache
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +28,7 @@ DAY = 86400.0
 ZONE_AB, ZONE_BC, ZONE_CD = 1.4, 2.8, 4.5  # ISO 20816-3 group 2 rigid, mm/s (from memory)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _renderer(name: str) -> ScenarioRenderer:
     return ScenarioRenderer(load_scenario(SCENARIOS / f"{name}.toml"))
 

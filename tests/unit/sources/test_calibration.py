@@ -17,11 +17,11 @@ import pytest
 import soundfile as sf
 
 from rotorwatch.cli import main
+from rotorwatch.commands.calibrate import edit_sensitivity
 from rotorwatch.errors import ConfigError, InputError
 from rotorwatch.settings.loading import load_config
 from rotorwatch.settings.models import G_N
 from rotorwatch.sources.calibration import measure_tone, mv_per_g, sensitivity_mv_per_m_s2
-from rotorwatch.commands.calibrate import edit_sensitivity
 
 REPO = Path(__file__).resolve().parents[3]
 DEMO = REPO / "config" / "demo-fan.toml"

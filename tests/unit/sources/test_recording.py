@@ -174,8 +174,12 @@ def test_restart_after_close_counts_and_replays(tmp_path):
     path = tmp_path / "r.wav"
     sf.write(path, _signal(3000), FS, subtype="FLOAT")
     src = RecordingSource(path, FS, 2, 1024, pace=False)
-    src.start(); first = _drain(src); src.close()
-    src.start(); second = _drain(src); src.close()
+    src.start()
+    first = _drain(src)
+    src.close()
+    src.start()
+    second = _drain(src)
+    src.close()
     assert src.stats.restarts == 1 and len(first) == len(second) == 3
     assert second[0].gap  # a reopened stream does not continue the previous one
 

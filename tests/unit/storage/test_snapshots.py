@@ -6,7 +6,7 @@ import json
 import os
 import subprocess
 import sys
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 import pytest
@@ -183,7 +183,7 @@ def test_bad_ids_and_points_are_one_line_errors(tmp_path):
 
 def test_daily_schedule():
     sched = DailySchedule("03:00", grace_s=6 * 3600)
-    day = datetime(2026, 3, 10, tzinfo=timezone.utc).timestamp()
+    day = datetime(2026, 3, 10, tzinfo=UTC).timestamp()
     slot = day + 3 * 3600
     assert sched.slot_at_or_before(day + 2 * 3600) == slot - 86400
     assert sched.slot_at_or_before(slot) == slot
@@ -198,21 +198,21 @@ def test_daily_schedule():
 def test_policy_transitions_min_interval_and_schedule(tmp_path):
     settings = SnapshotSettings(min_interval_s=600, daily_at_utc="03:00", on_transition_to=("alarm",))
     policy = SnapshotPolicy(settings, SnapshotStore(tmp_path / "snapshots"))
-    t = datetime(2026, 3, 10, 12, tzinfo=timezone.utc).timestamp()  # noon: no schedule due
+    t = datetime(2026, 3, 10, 12, tzinfo=UTC).timestamp()  # noon: no schedule due
     assert policy.decide(update(t), now_s=t) is None
     reason, detail = policy.decide(update(t, events=[transition(t)]), now_s=t)
     assert reason == "transition" and detail == "de/overall normal->alarm"
     assert policy.decide(update(t + 60, events=[transition(t + 60)]), now_s=t + 60) is None  # within 600 s
     assert policy.decide(update(t + 700, events=[transition(t + 700)]), now_s=t + 700)[0] == "transition"
     assert policy.decide(update(t, events=[transition(t, new="warning")]), now_s=t + 2000) is None  # not listed
-    morning = datetime(2026, 3, 11, 3, 5, tzinfo=timezone.utc).timestamp()
+    morning = datetime(2026, 3, 11, 3, 5, tzinfo=UTC).timestamp()
     assert policy.decide(update(morning), now_s=morning) == ("schedule", "daily at 03:00 UTC")
     assert policy.decide(update(morning + 60), now_s=morning + 60) is None
 
 
 def test_policy_resumes_from_the_store(tmp_path):
     store = SnapshotStore(tmp_path / "snapshots")
-    morning = datetime(2026, 3, 11, 3, 5, tzinfo=timezone.utc).timestamp()
+    morning = datetime(2026, 3, 11, 3, 5, tzinfo=UTC).timestamp()
     save_one(store, t=morning, reason="schedule")
     policy = SnapshotPolicy(SnapshotSettings(daily_at_utc="03:00"), store)  # e.g. after a restart
     assert policy.decide(update(morning + 600), now_s=morning + 600) is None
@@ -291,7 +291,7 @@ def test_policy_counts_in_the_time_of_the_data(tmp_path):
     answers = [policy.decide(update(T0 + k * step, events=[transition(T0 + k * step, new="warning")]))
                for k in range(4)]
     assert [a[0] for a in answers] == ["transition"] * 4  # a repeat, but 9.6 h later in the data's time
-    slot = datetime(2026, 1, 3, 3, 30, tzinfo=timezone.utc).timestamp()
+    slot = datetime(2026, 1, 3, 3, 30, tzinfo=UTC).timestamp()
     assert policy.decide(update(slot)) == ("schedule", "daily at 03:00 UTC")
 
 

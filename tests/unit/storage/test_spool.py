@@ -15,7 +15,6 @@ import pytest
 from rotorwatch.storage import StorageError
 from rotorwatch.storage.spool import RECORD_OVERHEAD_BYTES, Spool, encode_payload
 
-
 #: for tests that append hundreds of records: durability is not what they check, fsyncs only slow them
 FAST = {"durability": "process_crash"}
 

@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 from rotorwatch.alarms.records import ValueStatus
-from rotorwatch.web import views
 from rotorwatch.analysis.plan import build_plan
+from rotorwatch.web import views
 from rotorwatch.web.board import StatusBoard
 
 from . import helpers
