@@ -15,12 +15,8 @@ continuous operation; D: severe enough to cause damage.
 Boundary convention (the standard does not say; our choice, tested): a value equal to a boundary belongs
 to the higher zone, so 4.5 mm/s on a group 2 rigid machine reads D.
 
-Measurement band (ISO 10816-3 clause 4.2, carried into ISO 20816-3; from memory, unconfirmed): 10-1000 Hz
-for machines running above 600 r/min, 2-1000 Hz for machines running from 120 to 600 r/min. ISO 2954:2012
-(confirmed) sets 10-1000 Hz as the least an instrument measures and notes that some parts of ISO 10816 use
-a lower cut-off of 2 Hz. :func:`overall_band_hz` chooses the band from the machine's lowest running speed;
-below 120 r/min (outside ISO 20816-3's scope) it keeps 2 Hz, and ``rotorwatch check`` says the 1x falls
-below the band.
+The measurement band the zones apply to, chosen by running speed, is the default of ``overall.low_hz``:
+:mod:`rotorwatch.settings.iso_band`.
 """
 
 from __future__ import annotations
@@ -36,20 +32,6 @@ BOUNDARIES_MM_S: dict[tuple[int, str], tuple[float, float, float]] = {
     (2, "rigid"): (1.4, 2.8, 4.5),
     (2, "flexible"): (2.3, 4.5, 7.1),
 }
-
-
-# ISO 10816-3 clause 4.2 / ISO 20816-3 (from memory, unconfirmed): the band's low edge by running speed
-SLOW_MACHINE_RPM = 600.0  # at or below: a slow machine
-SLOW_SCOPE_MIN_RPM = 120.0  # ISO 20816-3 covers machines from 120 r/min
-LOW_EDGE_HZ = 10.0  # above 600 r/min
-SLOW_LOW_EDGE_HZ = 2.0  # 120-600 r/min
-HIGH_EDGE_HZ = 1000.0
-
-
-def overall_band_hz(lowest_rpm: float) -> tuple[float, float]:
-    """The ISO 20816-3 measurement band (Hz) for a machine whose lowest running speed is ``lowest_rpm``."""
-    low = SLOW_LOW_EDGE_HZ if lowest_rpm <= SLOW_MACHINE_RPM else LOW_EDGE_HZ
-    return low, HIGH_EDGE_HZ
 
 
 def boundaries(group: int, support: str) -> tuple[float, float, float]:

@@ -137,15 +137,15 @@ def _bearing_warnings(m: Machine, rpm: float, out: TextIO) -> None:
 
 
 def _band_line(m: Machine) -> str:
-    from ..analysis import severity  # noqa: PLC0415
+    from ..settings import iso_band  # noqa: PLC0415
 
     lo, hi = m.overall.low_hz, m.overall.high_hz
     if m.overall.low_edge_by_speed:
-        slow = lo == severity.SLOW_LOW_EDGE_HZ
-        rule = (f"{severity.SLOW_SCOPE_MIN_RPM:g}-{severity.SLOW_MACHINE_RPM:g} r/min" if slow
-                else f"above {severity.SLOW_MACHINE_RPM:g} r/min")
+        slow = lo == iso_band.SLOW_LOW_EDGE_HZ
+        rule = (f"{iso_band.SLOW_SCOPE_MIN_RPM:g}-{iso_band.SLOW_MACHINE_RPM:g} r/min" if slow
+                else f"above {iso_band.SLOW_MACHINE_RPM:g} r/min")
         why = (f"chosen by the slowest speed, {m.speed.lowest_rpm:g} r/min: ISO 20816-3 asks for {lo:g}-"
-               f"{severity.HIGH_EDGE_HZ:g} Hz for machines running {rule} (from memory)")
+               f"{iso_band.HIGH_EDGE_HZ:g} Hz for machines running {rule} (from memory)")
     else:
         why = "as configured"
     return f"  overall velocity band {lo:g}-{hi:g} Hz, {why}\n"
@@ -153,17 +153,17 @@ def _band_line(m: Machine) -> str:
 
 def machine_warnings(m: Machine) -> list[str]:
     """What a person should know about a valid machine: bands that miss the 1x, windows too short, 2xLF."""
-    from ..analysis import severity  # noqa: PLC0415
     from ..analysis.narrowband import MIN_WINDOW_EDGE_PRODUCT, electrical_half_width_hz  # noqa: PLC0415
+    from ..settings import iso_band  # noqa: PLC0415
 
     out = []
     low_rpm = m.speed.lowest_rpm
     f1 = low_rpm / 60.0
     lo = m.overall.low_hz
     assert lo is not None  # filled by the machine's speed when not configured
-    iso_lo, _ = severity.overall_band_hz(low_rpm)
-    if low_rpm < severity.SLOW_SCOPE_MIN_RPM:
-        out.append(f"{low_rpm:g} r/min is below ISO 20816-3's scope ({severity.SLOW_SCOPE_MIN_RPM:g} r/min and up); "
+    iso_lo, _ = iso_band.overall_band_hz(low_rpm)
+    if low_rpm < iso_band.SLOW_SCOPE_MIN_RPM:
+        out.append(f"{low_rpm:g} r/min is below ISO 20816-3's scope ({iso_band.SLOW_SCOPE_MIN_RPM:g} r/min and up); "
                    "its zone boundaries are only a guide here")
     if f1 < lo:
         out.append(f"the overall band's low edge ({lo:g} Hz) cuts off the 1x at {f1:.3g} Hz ({low_rpm:g} r/min): "

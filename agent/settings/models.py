@@ -15,6 +15,7 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, model_validator
 
+from .iso_band import overall_band_hz
 from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
 
 G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901; ISO 80000-3)
@@ -334,7 +335,7 @@ class Overall(Model):
 
     The band is ``low_hz`` .. ``high_hz``. Without ``low_hz`` the machine chooses it by its lowest running
     speed as ISO 20816-3 does (from memory): 2 Hz for machines running 120-600 r/min, 10 Hz above 600 r/min
-    (:func:`rotorwatch.analysis.severity.overall_band_hz`); ``low_edge_by_speed`` then says so.
+    (:func:`rotorwatch.settings.iso_band.overall_band_hz`); ``low_edge_by_speed`` then says so.
     """
 
     low_hz: PositiveFloat | None = None
@@ -494,8 +495,6 @@ class Machine(Model):
         if problems:
             raise ValueError("; ".join(problems))
         if self.overall.low_hz is None:
-            from ..analysis.severity import overall_band_hz  # noqa: PLC0415 (ISO table; no settings import there)
-
             low, _ = overall_band_hz(self.speed.lowest_rpm)
             if low >= self.overall.high_hz:
                 raise ValueError(f"overall.high_hz ({self.overall.high_hz:g}) must be above the band's low edge "

@@ -14,7 +14,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from ..storage.settings import ForwardingSettings, SnapshotSettings, SpoolSettings, TrendSettings
+from .storage import ForwardingSettings, SnapshotSettings, SpoolSettings, TrendSettings
 
 
 class _Model(BaseModel):
@@ -105,7 +105,7 @@ class StatusPageSettings(_Model):
 
 class StorageSettings(_Model):
     """Local storage: where the agent keeps its state, and the knobs of each store in it
-    (see rotorwatch.storage.settings for the spool, forwarding, trends and snapshot tables)."""
+    (see rotorwatch.settings.storage for the spool, forwarding, trends and snapshot tables)."""
 
     state_dir: str = Field("var/rotorwatch", min_length=1, description="baselines, spool, trends and snapshots live here")
     spool: SpoolSettings = SpoolSettings()

@@ -14,7 +14,8 @@ API overview (each module has one job; all of them take their paths and clocks f
   evidence (calibrated waveform WAV, spectra .npz, JSON sidecar) under a disk quota.
 - :mod:`rotorwatch.storage.snapshot_policy` -- when to take a snapshot (state transitions, a daily
   time); :mod:`rotorwatch.storage.snapshot_plot` -- the evidence plot (optional ``plot`` extra).
-- :mod:`rotorwatch.storage.settings` -- pydantic models of the knobs above.
+- :mod:`rotorwatch.settings.storage` -- pydantic models of the knobs above (they live with the other
+  settings, which depend on nothing else in the package).
 
 File names inside the state directory (``storage.state_dir``) are fixed: ``spool.sqlite``,
 ``trends.sqlite`` and ``snapshots/``. What is and is not guaranteed is written down in

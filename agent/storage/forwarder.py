@@ -130,7 +130,7 @@ class Forwarder:
 
     @classmethod
     def from_settings(cls, spool: Spool, client: mqtt.Client, settings: Any, **kwargs: Any) -> Forwarder:
-        """Build from a :class:`~rotorwatch.storage.settings.ForwardingSettings`."""
+        """Build from a :class:`~rotorwatch.settings.storage.ForwardingSettings`."""
         return cls(spool, client, in_flight_window=settings.in_flight_window,
                    backlog_rate_per_s=settings.backlog_rate_per_s, live_reserve=settings.live_reserve, **kwargs)
 

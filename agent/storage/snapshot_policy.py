@@ -72,7 +72,7 @@ class DailySchedule:
 
 class SnapshotPolicy:
     """Decide per update whether to snapshot (``settings``: a
-    :class:`~rotorwatch.storage.settings.SnapshotSettings`; ``store``: a
+    :class:`~rotorwatch.settings.storage.SnapshotSettings`; ``store``: a
     :class:`~rotorwatch.storage.snapshots.SnapshotStore` to resume from, optional)."""
 
     def __init__(self, settings: Any, store: Any = None) -> None:

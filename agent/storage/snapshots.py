@@ -163,7 +163,7 @@ class SnapshotStore:
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> SnapshotStore:
-        """``<state_dir>/snapshots`` with a :class:`~rotorwatch.storage.settings.SnapshotSettings`."""
+        """``<state_dir>/snapshots`` with a :class:`~rotorwatch.settings.storage.SnapshotSettings`."""
         if settings is not None:
             kwargs.setdefault("quota_bytes", settings.quota_bytes)
         return cls(Path(state_dir) / SNAPSHOTS_DIR, **kwargs)

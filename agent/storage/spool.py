@@ -209,7 +209,7 @@ class Spool:
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> Spool:
-        """Open ``<state_dir>/spool.sqlite`` with a :class:`~rotorwatch.storage.settings.SpoolSettings`."""
+        """Open ``<state_dir>/spool.sqlite`` with a :class:`~rotorwatch.settings.storage.SpoolSettings`."""
         if settings is not None:
             kwargs.setdefault("max_bytes", settings.max_bytes)
             kwargs.setdefault("max_records", settings.max_records)

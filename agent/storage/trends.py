@@ -155,7 +155,7 @@ class TrendStore:
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> TrendStore:
-        """Open ``<state_dir>/trends.sqlite`` with a :class:`~rotorwatch.storage.settings.TrendSettings`."""
+        """Open ``<state_dir>/trends.sqlite`` with a :class:`~rotorwatch.settings.storage.TrendSettings`."""
         if settings is not None:
             for key in ("retention_days", "max_rows", "min_interval_s", "prune_interval_s"):
                 kwargs.setdefault(key, getattr(settings, key))
