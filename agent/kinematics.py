@@ -59,29 +59,30 @@ def bearing_multiples(b: Bearing) -> DefectMultiples:
     return DefectMultiples(bpfo=b.bpfo, bpfi=b.bpfi, bsf=b.bsf, ftf=b.ftf)  # type: ignore[arg-type]
 
 
-def feature_order(machine: Machine, band: Band) -> float:
-    """The order (multiple of shaft speed) a feature band is centred on."""
-    if band.feature == "shaft":
-        return 1.0
-    if band.feature == "blade_pass":
-        return float(machine.blades)  # type: ignore[arg-type]
-    mult = bearing_multiples(machine.bearing(band.bearing))  # type: ignore[arg-type]
-    return getattr(mult, band.feature)  # type: ignore[arg-type]
+class MachineKinematics:
+    """What a band needs of its machine to place itself (:class:`rotorwatch.settings.bands.Kinematics`)."""
+
+    def __init__(self, machine: Machine) -> None:
+        self.machine = machine
+
+    def feature_order(self, feature: str, bearing: str | None) -> float:
+        """The order (multiple of shaft speed) a kinematic feature is centred on."""
+        if feature == "shaft":
+            return 1.0
+        if feature == "blade_pass":
+            return float(self.machine.blades)  # type: ignore[arg-type]
+        mult = bearing_multiples(self.machine.bearing(bearing))  # type: ignore[arg-type]
+        return float(mult.as_dict()[feature])
 
 
 def band_edges_hz(machine: Machine, band: Band, shaft_hz: float) -> list[tuple[float, float]]:
-    """Edges in Hz of each part of a band at shaft frequency ``shaft_hz``.
+    """Edges in Hz of each part of a band at shaft frequency ``shaft_hz`` (each kind computes its own:
+    :meth:`rotorwatch.settings.bands.BandBase.edges_hz`).
 
     A band in Hz or orders has one part; a feature band has one part per harmonic, each spanning
     +/- ``tolerance_pct`` of its centre.
     """
-    if band.low_hz is not None:
-        return [(band.low_hz, band.high_hz)]  # type: ignore[list-item]
-    if band.low_order is not None:
-        return [(band.low_order * shaft_hz, band.high_order * shaft_hz)]  # type: ignore[operator]
-    centre = feature_order(machine, band) * shaft_hz
-    tol = band.tolerance_pct / 100.0
-    return [(k * centre * (1 - tol), k * centre * (1 + tol)) for k in range(1, band.harmonics + 1)]
+    return band.edges_hz(shaft_hz, MachineKinematics(machine))
 
 
 def electrical_lines(machine: Machine, top_hz: float) -> list[tuple[str, float]]:

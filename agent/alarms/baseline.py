@@ -38,7 +38,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ConfigError
-from ..settings.models import AlarmPolicy, Machine
+from ..settings.models import AlarmPolicy, FeatureBand, Machine
 from .levels import Baseline
 
 log = logging.getLogger(__name__)
@@ -83,9 +83,9 @@ def definition(machine: Machine, point_id: str, value_name: str) -> dict[str, An
         return out
     band = next(b for b in machine.bands if b.name == value_name)
     out["band"] = band.model_dump(mode="json", exclude={"levels", "points"})
-    if band.bearing is not None:
+    if isinstance(band, FeatureBand) and band.bearing is not None:
         out["bearing"] = machine.bearing(band.bearing).model_dump(mode="json", exclude={"name"})
-    if band.feature == "blade_pass":
+    if isinstance(band, FeatureBand) and band.feature == "blade_pass":
         out["blades"] = machine.blades
     return out
 

@@ -28,7 +28,7 @@ import numpy as np
 
 from .. import kinematics
 from ..errors import InputError
-from ..settings.models import Band, Machine, Point  # noqa: F401 (Band: BandPlan field type)
+from ..settings.models import Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
 from .spectrum import hann
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
@@ -160,7 +160,8 @@ def defect_plans(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
         for name in DEFECT_NAMES:
             tol_pct, harmonics = DEFAULT_DEFECT_TOLERANCE_PCT, DEFAULT_DEFECT_HARMONICS
             for band in machine.bands_for(point.id):
-                if band.feature == name and band.bearing == b.id and band.quantity == "envelope":
+                if (isinstance(band, FeatureBand) and band.feature == name and band.bearing == b.id
+                        and band.quantity == "envelope"):
                     tol_pct, harmonics = band.tolerance_pct, max(band.harmonics, 2)
                     break
             out.append(DefectPlan(b.id, name, mult[name], tol_pct / 100.0, harmonics))
@@ -246,7 +247,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         if band.quantity == "velocity":
             low = min(lo for lo, _ in kinematics.band_edges_hz(machine, band, slow_hz))
             cutoff = min(cutoff, 0.8 * low)
-        fixed = tuple(edges_fast) if band.low_hz is not None else None
+        fixed = None if band.follows_speed else tuple(edges_fast)
         bands.append(BandPlan(band, band.quantity, fixed))
     integration_cutoff = cutoff
     cutoff = max(cutoff, 2.0 * df)

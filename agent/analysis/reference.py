@@ -110,7 +110,7 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
     for bp in plan.bands:
         edges = kinematics.band_edges_hz(plan.machine, bp.band, shaft_hz)
         keep = _mask(fn, edges, dfn, HANN_LOBE_MARGIN_BINS)
-        if bp.band.low_hz is None:
+        if bp.band.follows_speed:
             keep &= ~electrical
         if bp.quantity == "acceleration":
             bands[bp.band.name] = float(np.sqrt(np.sum(psd_n[keep]) * dfn))

@@ -219,7 +219,7 @@ def quick_machine(args: argparse.Namespace, envelope_band: tuple[float, float] |
             blades=args.blades,
             line_frequency_hz=args.line_frequency,
             points=[models.Point(id="p1", sensor=models.Sensor(channel=0, sensitivity_mv_per_g=1000.0))],
-            bands=[models.Band(**b) for b in bands],
+            bands=[models.band_from(b) for b in bands],
             analysis=models.Analysis(envelope=models.Envelope(band_hz=envelope_band)),
         )
     except Exception as e:  # pydantic ValidationError

@@ -77,12 +77,12 @@ def bench_machine(fixed_band: bool = True):
     points = [models.Point(id=f"p{i}", bearing="de", sensor=models.Sensor(channel=i, sensitivity_mv_per_g=100.0))
               for i in range(4)]
     bands = [
-        models.Band(name="shaft-1x", quantity="velocity", feature="shaft", harmonics=1),
-        models.Band(name="shaft-2x", quantity="velocity", low_order=1.9, high_order=2.1),
-        models.Band(name="blade-pass", quantity="velocity", feature="blade_pass", harmonics=2),
-        models.Band(name="outer-race", quantity="envelope", feature="bpfo", bearing="de"),
-        models.Band(name="inner-race", quantity="envelope", feature="bpfi", bearing="de"),
-        models.Band(name="hf", quantity="acceleration", low_hz=2000, high_hz=10000),
+        models.FeatureBand(name="shaft-1x", quantity="velocity", feature="shaft", harmonics=1),
+        models.OrderBand(name="shaft-2x", quantity="velocity", low_order=1.9, high_order=2.1),
+        models.FeatureBand(name="blade-pass", quantity="velocity", feature="blade_pass", harmonics=2),
+        models.FeatureBand(name="outer-race", quantity="envelope", feature="bpfo", bearing="de"),
+        models.FeatureBand(name="inner-race", quantity="envelope", feature="bpfi", bearing="de"),
+        models.HzBand(name="hf", quantity="acceleration", low_hz=2000, high_hz=10000),
     ]
     envelope = models.Envelope(band_hz=(2000.0, 7000.0) if fixed_band else None)
     return models.Machine(

@@ -184,7 +184,7 @@ def machine_warnings(m: Machine) -> list[str]:
         rpm = m.speed.nominal_rpm
         in_bands = set()  # shaft orders that order or feature bands read
         for band in m.bands:
-            if band.quantity == "envelope" or band.low_hz is not None:
+            if band.quantity == "envelope" or not band.follows_speed:
                 continue
             for lo, hi in kinematics.band_edges_hz(m, band, rpm / 60.0):
                 in_bands.update(k for k in range(1, 11) if lo <= k * rpm / 60.0 <= hi)

@@ -13,6 +13,7 @@ from typing import Any, TypeVar
 from pydantic import BaseModel, ValidationError
 
 from ..errors import ConfigError
+from .bands import BAND_KINDS, PLACEMENT_ERROR
 from .models import Config
 
 M = TypeVar("M", bound=BaseModel)
@@ -39,9 +40,16 @@ def read_toml(path: str | Path) -> dict[str, Any]:
         raise ConfigError([f"{p}: TOML syntax: {e}"]) from None
 
 
+def _is_union_tag(loc: tuple[Any, ...], i: int) -> bool:
+    """``machines[0].bands[1].hz``: the kind a band table was read as, not a key of the file."""
+    return i >= 2 and loc[i - 2] == "bands" and isinstance(loc[i - 1], int) and loc[i] in BAND_KINDS
+
+
 def format_location(loc: tuple[Any, ...]) -> str:
     out = ""
-    for part in loc:
+    for i, part in enumerate(loc):
+        if _is_union_tag(loc, i):
+            continue
         if isinstance(part, int):
             out += f"[{part}]"
         else:
@@ -79,7 +87,7 @@ def validation_problems(source: str, error: ValidationError) -> list[str]:
                          "put the password in a file named by password_file (chmod 600) or in an environment "
                          "variable named by password_env")
             continue
-        if err["type"] in ("value_error", "assertion_error") or err["type"] == "missing":
+        if err["type"] in ("value_error", "assertion_error", "missing", PLACEMENT_ERROR):
             lines.append(f"{where}: {msg}")
         else:
             lines.append(f"{where} = {_short(err.get('input'))}: {msg}")

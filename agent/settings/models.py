@@ -11,22 +11,17 @@ Models are strict (unknown keys are errors) and frozen. Validation does no I/O.
 from __future__ import annotations
 
 import math
-from typing import Annotated, Literal
+from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, model_validator
+from pydantic import Field, PrivateAttr, model_validator
 
+from .bands import Band, BandBase, FeatureBand, HzBand, OrderBand, band_from  # noqa: F401 (the band kinds, as models.X)
+from .base import Ident, Model, NonNegFloat, PositiveFloat
 from .iso_band import overall_band_hz
+from .levels import Levels
 from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
 
 G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901; ISO 80000-3)
-
-Ident = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")]
-PositiveFloat = Annotated[float, Field(gt=0, allow_inf_nan=False)]
-NonNegFloat = Annotated[float, Field(ge=0, allow_inf_nan=False)]
-
-
-class Model(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
 
 
 # --------------------------------------------------------------------------------------------- sensor
@@ -174,157 +169,6 @@ class Bearing(Model):
             raise ValueError(
                 f"element_diameter ({self.element_diameter:g}) must be smaller than pitch_diameter "
                 f"({self.pitch_diameter:g})"
-            )
-        return self
-
-
-# ----------------------------------------------------------------------------------------------- levels
-class Levels(Model):
-    """Alarm levels of one value (a band or the overall velocity), in the value's unit.
-
-    Rises: absolute levels (``warning``, ``alarm``) and levels relative to the baseline learned on the
-    healthy machine (``relative_warning``, ``relative_alarm``) may be combined; the lower effective level
-    wins. ``relative_form`` says what a relative level means:
-
-    - ``ratio``: a ratio to the baseline median (above 1), e.g. 2.5 = 2.5 x the baseline;
-    - ``sigma``: a number of robust standard deviations above the median;
-    - ``zone_share`` (overall velocity only): a percentage of the ISO 20816-3 B/C boundary of the
-      machine's group and support added to the baseline median (the standard's operational-limit form,
-      25 % for the first level), each level capped: warning at 1.25 x B/C, alarm at 1.25 x C/D.
-
-    Drops (a falling value is a change too): ``drop_warning`` / ``drop_alarm`` are absolute levels the
-    value falls to, ``relative_drop_warning`` / ``relative_drop_alarm`` the same relative to the baseline
-    in the same form (``ratio``: a fraction of the median, below 1; ``sigma``: robust standard deviations
-    below it; ``zone_share``: a percentage of the B/C boundary below it); the higher effective drop level
-    wins.
-
-    ``clear_margin_pct`` is the hysteresis on the way back (down for rises, up for drops),
-    ``on_delay_updates`` the number of consecutive updates beyond a level before it is raised,
-    ``off_delay_updates`` the number of consecutive updates back inside the clear level before it clears,
-    ``latching`` keeps an alarm until it is acknowledged.
-    """
-
-    warning: PositiveFloat | None = None
-    alarm: PositiveFloat | None = None
-    relative_form: Literal["ratio", "sigma", "zone_share"] = "ratio"
-    relative_warning: PositiveFloat | None = None
-    relative_alarm: PositiveFloat | None = None
-    drop_warning: PositiveFloat | None = None
-    drop_alarm: PositiveFloat | None = None
-    relative_drop_warning: PositiveFloat | None = None
-    relative_drop_alarm: PositiveFloat | None = None
-    clear_margin_pct: float = Field(10.0, ge=0, lt=100)
-    on_delay_updates: int = Field(3, ge=1, le=1000)
-    off_delay_updates: int = Field(1, ge=1, le=1000)
-    latching: bool = False
-
-    @model_validator(mode="after")
-    def _ordered(self) -> Levels:
-        if self.warning is not None and self.alarm is not None and self.warning >= self.alarm:
-            raise ValueError(f"warning ({self.warning:g}) must be below alarm ({self.alarm:g})")
-        rw, ra = self.relative_warning, self.relative_alarm
-        if rw is not None and ra is not None and rw >= ra:
-            raise ValueError(f"relative_warning ({rw:g}) must be below relative_alarm ({ra:g})")
-        dw, da = self.drop_warning, self.drop_alarm
-        if dw is not None and da is not None and da >= dw:
-            raise ValueError(f"drop_alarm ({da:g}) must be below drop_warning ({dw:g}): a drop alarm sits further down")
-        lowest_rise = min((v for v in (self.warning, self.alarm) if v is not None), default=None)
-        highest_drop = max((v for v in (dw, da) if v is not None), default=None)
-        if lowest_rise is not None and highest_drop is not None and highest_drop >= lowest_rise:
-            raise ValueError(f"drop levels ({highest_drop:g}) must be below the rise levels ({lowest_rise:g})")
-        rdw, rda = self.relative_drop_warning, self.relative_drop_alarm
-        form = self.relative_form
-        if form == "ratio":
-            for name, v in (("relative_warning", rw), ("relative_alarm", ra)):
-                if v is not None and v <= 1.0:
-                    raise ValueError(f"{name} = {v:g}: a ratio to the baseline must be above 1")
-            for name, v in (("relative_drop_warning", rdw), ("relative_drop_alarm", rda)):
-                if v is not None and v >= 1.0:
-                    raise ValueError(f"{name} = {v:g}: a drop as a ratio to the baseline must be below 1")
-            if rdw is not None and rda is not None and rda >= rdw:
-                raise ValueError(f"relative_drop_alarm ({rda:g}) must be below relative_drop_warning ({rdw:g}) in ratio form")
-        else:
-            if rdw is not None and rda is not None and rda <= rdw:
-                raise ValueError(
-                    f"relative_drop_alarm ({rda:g}) must be above relative_drop_warning ({rdw:g}) in {form} form "
-                    "(further below the baseline)"
-                )
-        if form == "zone_share":
-            for name, v in (("relative_warning", rw), ("relative_alarm", ra),
-                            ("relative_drop_warning", rdw), ("relative_drop_alarm", rda)):
-                if v is not None and v > 100.0:
-                    raise ValueError(f"{name} = {v:g}: in zone_share form a level is a percentage of the B/C boundary, 100 at most")
-        return self
-
-    @property
-    def has_drops(self) -> bool:
-        return any(v is not None for v in (self.drop_warning, self.drop_alarm, self.relative_drop_warning,
-                                           self.relative_drop_alarm))
-
-    @property
-    def has_any(self) -> bool:
-        return self.has_drops or any(
-            v is not None for v in (self.warning, self.alarm, self.relative_warning, self.relative_alarm)
-        )
-
-
-# ------------------------------------------------------------------------------------------------ bands
-Feature = Literal["shaft", "blade_pass", "bpfo", "bpfi", "bsf", "ftf"]
-
-
-class Band(Model):
-    """A band whose value is trended and alarmed, on every point of its machine (or on ``points``).
-
-    Exactly one way to place it:
-    - ``low_hz``/``high_hz``: fixed edges in Hz;
-    - ``low_order``/``high_order``: edges in orders of running speed, following the speed;
-    - ``feature``: centred on a kinematic frequency (``shaft``, ``blade_pass``, or a bearing defect
-      ``bpfo``/``bpfi``/``bsf``/``ftf`` of ``bearing``) and its first ``harmonics``, each searched within
-      ``tolerance_pct`` (slip and speed uncertainty).
-
-    ``quantity`` says which spectrum the band reads: ``acceleration`` (m/s^2 RMS), ``velocity``
-    (mm/s RMS) or ``envelope`` (m/s^2 RMS of the envelope spectrum). Levels are in that unit.
-    """
-
-    name: Ident
-    quantity: Literal["acceleration", "velocity", "envelope"]
-    low_hz: PositiveFloat | None = None
-    high_hz: PositiveFloat | None = None
-    low_order: PositiveFloat | None = None
-    high_order: PositiveFloat | None = None
-    feature: Feature | None = None
-    bearing: Ident | None = None
-    harmonics: int = Field(3, ge=1, le=10)
-    tolerance_pct: float = Field(3.0, gt=0, le=20)
-    points: list[Ident] | None = Field(None, description="limit the band to these points (default: all)")
-    levels: Levels = Levels()
-
-    @model_validator(mode="after")
-    def _one_placement(self) -> Band:
-        placements = {
-            "low_hz/high_hz": (self.low_hz, self.high_hz),
-            "low_order/high_order": (self.low_order, self.high_order),
-        }
-        given = []
-        for label, (lo, hi) in placements.items():
-            if (lo is None) != (hi is None):
-                raise ValueError(f"{label}: give both edges")
-            if lo is not None:
-                if lo >= hi:  # type: ignore[operator]
-                    raise ValueError(f"{label} = {lo:g}..{hi:g}: the low edge must be below the high edge")
-                given.append(label)
-        if self.feature is not None:
-            given.append("feature")
-        if len(given) != 1:
-            raise ValueError("place the band one way: low_hz/high_hz, low_order/high_order or feature")
-        if self.feature in ("bpfo", "bpfi", "bsf", "ftf") and self.bearing is None:
-            raise ValueError(f"feature '{self.feature}' needs bearing (the id of one of the machine's bearings)")
-        if self.bearing is not None and self.feature not in ("bpfo", "bpfi", "bsf", "ftf"):
-            raise ValueError("bearing is only used with a bearing-defect feature (bpfo, bpfi, bsf, ftf)")
-        if self.levels.relative_form == "zone_share":
-            raise ValueError(
-                "levels.relative_form = 'zone_share' is for the overall velocity only "
-                "(its levels are shares of the ISO 20816-3 B/C boundary); use ratio or sigma on a band"
             )
         return self
 
@@ -485,10 +329,7 @@ class Machine(Model):
             if p.bearing is not None and p.bearing not in bearing_ids:
                 problems.append(f"point {p.id!r} names bearing {p.bearing!r}, known: {bearing_ids or 'none'}")
         for b in self.bands:
-            if b.bearing is not None and b.bearing not in bearing_ids:
-                problems.append(f"band {b.name!r} names bearing {b.bearing!r}, known: {bearing_ids or 'none'}")
-            if b.feature == "blade_pass" and self.blades is None:
-                problems.append(f"band {b.name!r} uses blade_pass but the machine has no blades")
+            problems += b.reference_problems(bearing_ids, self.blades)
             for pid in b.points or []:
                 if pid not in point_ids:
                     problems.append(f"band {b.name!r} names point {pid!r}, known: {point_ids}")
@@ -579,7 +420,7 @@ class Config(Model):
                     )
             at = f"({nyquist:g} Hz at {self.acquisition.sample_rate_hz:g} Hz sampling)"
             for j, b in enumerate(m.bands):
-                if b.high_hz is not None and b.high_hz >= nyquist:
+                if isinstance(b, HzBand) and b.high_hz >= nyquist:
                     problems.append(f"machines[{i}].bands[{j}].high_hz = {b.high_hz:g}: must be below Nyquist {at}")
             if m.overall.high_hz >= nyquist:
                 problems.append(f"machines[{i}].overall.high_hz = {m.overall.high_hz:g}: must be below Nyquist {at}")

@@ -169,7 +169,7 @@ def band_regions(machine: Machine, point_id: str, result: PointResult, values: d
     shaft_hz = result.rpm / 60.0 if result.rpm and math.isfinite(result.rpm) else None
     regions = []
     for band in machine.bands_for(point_id):
-        if shaft_hz is None and band.low_hz is None:
+        if shaft_hz is None and band.follows_speed:
             continue
         parts = kinematics.band_edges_hz(machine, band, shaft_hz or 0.0)
         status = values.get(band.name)

@@ -14,8 +14,8 @@ import scipy.io.wavfile
 
 from rotorwatch.cli import main
 from rotorwatch.settings.models import Config
-from rotorwatch.storage import StorageError
 from rotorwatch.settings.storage import SnapshotSettings
+from rotorwatch.storage import StorageError
 from rotorwatch.storage.snapshot_policy import DailySchedule, SnapshotPolicy
 from rotorwatch.storage.snapshots import SnapshotStore, config_fingerprint
 
