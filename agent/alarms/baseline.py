@@ -39,6 +39,7 @@ import numpy as np
 
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FeatureBand, Machine
+from ..settings.quantities import quantity
 from .levels import Baseline
 
 log = logging.getLogger(__name__)
@@ -180,7 +181,7 @@ class BaselineStore:
     def _on_kept_band(self, value_name: str) -> bool:
         if self.machine.analysis.envelope.band_hz is not None:
             return False
-        return any(b.name == value_name and b.quantity == "envelope" for b in self.machine.bands)
+        return any(b.name == value_name and quantity(b.quantity).demodulated for b in self.machine.bands)
 
     # ------------------------------------------------------------------------------- envelope band
     def envelope_band(self, point_id: str) -> tuple[float, float] | None:

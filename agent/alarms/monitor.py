@@ -46,13 +46,13 @@ from ..analysis import severity
 from ..analysis.result import Finding, PointResult
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FindingRule, Levels, Machine
+from ..settings.quantities import OVERALL_QUANTITY, quantity
 from .baseline import OVERALL, BaselineStore
 from .levels import SEVERITY, EffectiveLevels, LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
 from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
 
 log = logging.getLogger(__name__)
 
-UNITS = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
 VALUE_RANK = {"normal": 0, "learning": 1, "warning": 2, "alarm": 3}
 VALUE_DERIVED = ("alarm", "warning", "learning", "normal")
 NAN = float("nan")
@@ -155,8 +155,8 @@ class MachineMonitor:
         self.slots: dict[str, dict[str, _Slot]] = {}
         self.finding_slots: dict[str, dict[str, _FindingSlot]] = {}
         for p in machine.points:
-            values = [(OVERALL, "mm/s", machine.overall.levels)]
-            values += [(b.name, UNITS[b.quantity], b.levels) for b in machine.bands_for(p.id)]
+            values = [(OVERALL, OVERALL_QUANTITY.unit, machine.overall.levels)]
+            values += [(b.name, quantity(b.quantity).unit, b.levels) for b in machine.bands_for(p.id)]
             self.slots[p.id] = {
                 name: _Slot(
                     name, unit, levels,

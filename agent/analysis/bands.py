@@ -28,6 +28,7 @@ import math
 import numpy as np
 
 from .. import kinematics
+from ..settings.quantities import quantity
 from .narrowband import NarrowSpectrum
 from .plan import HANN_LOBE_MARGIN_BINS, AnalysisPlan, BandPlan
 
@@ -84,9 +85,9 @@ def band_values(plan: AnalysisPlan, shaft_hz: float, narrow: NarrowSpectrum,
     out: dict[str, float] = {}
     for bp in plan.bands:
         edges = band_edges(plan, bp, shaft_hz)
-        if bp.quantity in ("acceleration", "velocity"):
+        if not quantity(bp.quantity).demodulated:
             spectrum = narrow if bp.fixed_edges_hz is not None or narrow_orders is None else narrow_orders
-            ms = spectrum.accel_ms if bp.quantity == "acceleration" else spectrum.velocity_ms
+            ms = spectrum.mean_square(quantity(bp.quantity).spectrum)
             leave_out = spectrum.electrical if bp.fixed_edges_hz is None else None
             out[bp.band.name] = math.sqrt(band_mean_square(ms, spectrum.df_hz, edges, leave_out=leave_out))
         elif env_psd is not None:

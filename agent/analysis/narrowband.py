@@ -98,6 +98,10 @@ class NarrowSpectrum:
     overall_velocity_mm_s: float
     electrical: np.ndarray | None  # lines near 2xLF and its harmonics, or None
 
+    def mean_square(self, spectrum: str) -> np.ndarray:
+        """Mean square per line of the spectrum a quantity reads (``Quantity.spectrum``)."""
+        return {"acceleration": self.accel_ms, "velocity": self.velocity_ms}[spectrum]
+
 
 class NarrowbandKernel:
     """Narrow-band spectra of blocks for one plan; caches its set-up per block length."""

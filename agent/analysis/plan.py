@@ -29,6 +29,7 @@ import numpy as np
 from .. import kinematics
 from ..errors import InputError
 from ..settings.models import Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
+from ..settings.quantities import quantity
 from .spectrum import hann
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
@@ -161,7 +162,7 @@ def defect_plans(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
             tol_pct, harmonics = DEFAULT_DEFECT_TOLERANCE_PCT, DEFAULT_DEFECT_HARMONICS
             for band in machine.bands_for(point.id):
                 if (isinstance(band, FeatureBand) and band.feature == name and band.bearing == b.id
-                        and band.quantity == "envelope"):
+                        and quantity(band.quantity).demodulated):
                     tol_pct, harmonics = band.tolerance_pct, max(band.harmonics, 2)
                     break
             out.append(DefectPlan(b.id, name, mult[name], tol_pct / 100.0, harmonics))
@@ -190,7 +191,7 @@ def _envelope_span_hz(machine: Machine, point: Point, defects: tuple[DefectPlan,
         order = 2 * d.order if d.name == "bsf" else d.order
         top = max(top, (d.harmonics * order * (1 + d.tolerance) + 2) * shaft_hz)
     for band in machine.bands_for(point.id):
-        if band.quantity != "envelope":
+        if not quantity(band.quantity).demodulated:
             continue
         for _, hi in kinematics.band_edges_hz(machine, band, shaft_hz):
             top = max(top, hi * 1.02)
@@ -240,11 +241,12 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     for band in machine.bands_for(point.id):
         edges_fast = kinematics.band_edges_hz(machine, band, fast_hz)
         top = max(hi for _, hi in edges_fast)
-        if band.quantity != "envelope":
+        q = quantity(band.quantity)
+        if not q.demodulated:
             narrow_top = max(narrow_top, top * 1.01)
-        if band.quantity != "envelope" and top >= nyquist:
+        if not q.demodulated and top >= nyquist:
             raise _too_fast(f"band {band.name!r}", top, fs_hz)
-        if band.quantity == "velocity":
+        if q.integrated:
             low = min(lo for lo, _ in kinematics.band_edges_hz(machine, band, slow_hz))
             cutoff = min(cutoff, 0.8 * low)
         fixed = None if band.follows_speed else tuple(edges_fast)

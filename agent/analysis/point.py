@@ -29,9 +29,10 @@ import numpy as np
 
 from ..errors import InputError
 from ..settings.models import Machine, Point
+from ..settings.quantities import SPECTRA, SPECTRUM_UNITS
 from . import bands as band_mod
 from . import ordertrack, severity
-from .envelope import BlockSpectrum, EnvelopeKernel
+from .envelope import BlockSpectrum, EnvelopeKernel, EnvelopeOutput
 from .findings import assess
 from .indicators import waveform
 from .narrowband import NarrowbandKernel, electrical_mask
@@ -128,6 +129,18 @@ class PointAnalyzer:
             self._speed_leave_out[key] = electrical_mask(np.arange(n_bins) * df_hz, self.plan.machine.line_frequency_hz, df_hz)
         return self._speed_leave_out[key]
 
+    def _display_spectra(self, x0: np.ndarray, env: EnvelopeOutput) -> dict[str, Spectrum | None]:
+        """The Welch acceleration and velocity spectra and the envelope spectrum, each in its unit."""
+        p = self.plan
+        accel_psd = self._welch.psd(x0)
+        if p.ac_power_gain is not None:
+            accel_psd *= p.ac_power_gain
+        freqs = p.freqs_hz[: p.n_keep]
+        accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
+        lines = {"acceleration": (freqs, accel_rms), "velocity": (freqs, velocity_line_rms(p, accel_rms)),
+                 "envelope": (env.freqs_hz, env.envelope_rms)}
+        return {name: Spectrum(*lines[name], SPECTRUM_UNITS[name]) for name in SPECTRA}
+
     def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
                 keep_spectra: bool = False, rpm_source: str | None = None,
                 envelope_band_hz: tuple[float, float] | None = None, review_band: bool = False,
@@ -178,16 +191,7 @@ class PointAnalyzer:
                                        line_frequency_hz=p.machine.line_frequency_hz)
                                 if running else ([], {}))
 
-        spectra: dict[str, Spectrum | None] = {"acceleration": None, "velocity": None, "envelope": None}
-        if keep_spectra:
-            accel_psd = self._welch.psd(x0)
-            if p.ac_power_gain is not None:
-                accel_psd *= p.ac_power_gain
-            freqs = p.freqs_hz[: p.n_keep]
-            accel_rms = self._welch.line_rms(accel_psd[: p.n_keep])
-            spectra["acceleration"] = Spectrum(freqs, accel_rms, "m/s^2")
-            spectra["velocity"] = Spectrum(freqs, velocity_line_rms(p, accel_rms), "mm/s")
-            spectra["envelope"] = Spectrum(env.freqs_hz, env.envelope_rms, "m/s^2")
+        spectra = self._display_spectra(x0, env) if keep_spectra else dict.fromkeys(SPECTRA)
         return PointResult(
             machine_id=p.machine.id,
             point_id=p.point.id,

@@ -26,6 +26,7 @@ import scipy.signal
 import scipy.stats
 
 from .. import kinematics
+from ..settings.quantities import quantity
 from . import severity
 from .findings import find_defects
 from .narrowband import ELECTRICAL_DEVIATION, ELECTRICAL_LOBE_LINES
@@ -109,15 +110,15 @@ def reference_analyze(plan: AnalysisPlan, block_m_s2: np.ndarray, rpm: float,
     bands: dict[str, float] = {}
     for bp in plan.bands:
         edges = kinematics.band_edges_hz(plan.machine, bp.band, shaft_hz)
+        q = quantity(bp.quantity)
+        if q.demodulated:
+            bands[bp.band.name] = float(np.sqrt(np.sum(env_psd[_mask(fe, edges, dfe, HANN_LOBE_MARGIN_BINS)]) * dfe))
+            continue
         keep = _mask(fn, edges, dfn, HANN_LOBE_MARGIN_BINS)
         if bp.band.follows_speed:
             keep &= ~electrical
-        if bp.quantity == "acceleration":
-            bands[bp.band.name] = float(np.sqrt(np.sum(psd_n[keep]) * dfn))
-        elif bp.quantity == "velocity":
-            bands[bp.band.name] = float(np.sqrt(np.sum(vel[keep]) * dfn))
-        else:
-            bands[bp.band.name] = float(np.sqrt(np.sum(env_psd[_mask(fe, edges, dfe, HANN_LOBE_MARGIN_BINS)]) * dfe))
+        psd = {"acceleration": psd_n, "velocity": vel}[q.spectrum]
+        bands[bp.band.name] = float(np.sqrt(np.sum(psd[keep]) * dfn))
     findings = (find_defects(sq_rms, dfe, shaft_hz, plan.defects, plan.machine.line_frequency_hz)
                 if rpm > plan.speed.stopped_rpm else [])
     return ReferenceResult(

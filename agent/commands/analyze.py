@@ -39,6 +39,7 @@ import numpy as np
 from ..errors import ConfigError, InputError
 from ..recordings import UNITS, decide_unit, open_recording, to_m_s2
 from ..settings.models import G_N
+from ..settings.quantities import quantity
 
 MIN_RATE_HZ = 1000.0
 MAX_SECONDS = 120.0  # one block: longer recordings are cut, to bound memory (about 40 bytes per sample)
@@ -285,7 +286,6 @@ def parse_band(text: str | None) -> tuple[float, float] | None:
 def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dict[str, Any]:
     from ..analysis.labels import kinematic_lines, match_line, strongest_peaks  # noqa: PLC0415
 
-    units = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
     band_q = {b.name: b.quantity for b in machine.bands_for(point.id)}
     shaft_hz = result.rpm / 60.0
     peaks = []
@@ -324,7 +324,7 @@ def build_report(path: str, machine, point, result, fs_hz: float, n: int) -> dic
         "envelope_band_hz": list(result.envelope_band_hz),
         "envelope_band_searched": machine.analysis.envelope.band_hz is None,
         "envelope_kurtosis": result.envelope_kurtosis,
-        "bands": {name: {"value": v, "unit": units[band_q[name]], "quantity": band_q[name]} for name, v in result.bands.items()},
+        "bands": {name: {"value": v, "unit": quantity(band_q[name]).unit, "quantity": band_q[name]} for name, v in result.bands.items()},
         "findings": [f.as_json() for f in result.findings],
         "defect_prominence": dict(result.defect_prominence),
         "envelope_peaks": peaks,

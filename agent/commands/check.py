@@ -33,6 +33,7 @@ from typing import TextIO
 from .. import kinematics
 from ..errors import ConfigError, InputError
 from ..settings.models import Config, Machine
+from ..settings.quantities import quantity
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -184,7 +185,7 @@ def machine_warnings(m: Machine) -> list[str]:
         rpm = m.speed.nominal_rpm
         in_bands = set()  # shaft orders that order or feature bands read
         for band in m.bands:
-            if band.quantity == "envelope" or not band.follows_speed:
+            if quantity(band.quantity).demodulated or not band.follows_speed:
                 continue
             for lo, hi in kinematics.band_edges_hz(m, band, rpm / 60.0):
                 in_bands.update(k for k in range(1, 11) if lo <= k * rpm / 60.0 <= hi)

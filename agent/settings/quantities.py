@@ -43,16 +43,24 @@ class Quantity:
     metric_unit: str
     #: True when the value is read from the envelope (demodulated) spectrum
     demodulated: bool = False
+    #: True when the spectrum is integrated from acceleration (its low lines are cut below a cut-off)
+    integrated: bool = False
 
 
 QUANTITIES: dict[str, Quantity] = {
     q.name: q
     for q in (
         Quantity("acceleration", "acceleration", "m/s^2", "meters_per_second_squared", 1.0, "m/s^2"),
-        Quantity("velocity", "velocity", "mm/s", "meters_per_second", 1e-3, "m/s"),
+        Quantity("velocity", "velocity", "mm/s", "meters_per_second", 1e-3, "m/s", integrated=True),
         Quantity("envelope", "envelope", "m/s^2", "meters_per_second_squared", 1.0, "m/s^2", demodulated=True),
     )
 }
+
+#: The spectra the quantities read, each once (the analysis result's spectra, in this order).
+SPECTRA: tuple[str, ...] = tuple(dict.fromkeys(q.spectrum for q in QUANTITIES.values()))
+
+#: The unit of each spectrum (RMS per line), as the quantities that read it write it.
+SPECTRUM_UNITS: dict[str, str] = {q.spectrum: q.unit for q in QUANTITIES.values()}
 
 #: The overall value's quantity (the overall velocity RMS and its ISO 20816-3 zone).
 OVERALL_QUANTITY = QUANTITIES["velocity"]

@@ -41,6 +41,7 @@ import numpy as np
 
 from ..alarms.records import MachineUpdate
 from ..analysis.result import Spectrum
+from ..settings.quantities import SPECTRA
 from . import SNAPSHOTS_DIR, StorageError
 
 log = logging.getLogger(__name__)
@@ -48,7 +49,6 @@ log = logging.getLogger(__name__)
 FORMAT = "rotorwatch-snapshot/1"
 SIDECAR = "snapshot.json"
 REASONS = ("transition", "command", "schedule")
-QUANTITIES = ("acceleration", "velocity", "envelope")
 _ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,160}$")
 _TMP_PREFIX = ".tmp-"
 
@@ -244,7 +244,7 @@ class SnapshotStore:
                     entry["waveform_file"] = name
                     entry["waveform_unit"] = "m/s^2"
                 arrays: dict[str, np.ndarray] = {}
-                for q in QUANTITIES:
+                for q in SPECTRA:
                     spec = getattr(res, q)
                     if spec is not None:
                         arrays[f"{q}_freqs_hz"] = np.asarray(spec.freqs_hz, dtype=np.float64)
@@ -329,7 +329,7 @@ class SnapshotStore:
             return {}
         with np.load(self.root / snap_id / entry["spectra_file"], allow_pickle=False) as z:
             return {q: Spectrum(z[f"{q}_freqs_hz"], z[f"{q}_amplitude"], str(z[f"{q}_unit"]))
-                    for q in QUANTITIES if f"{q}_freqs_hz" in z}
+                    for q in SPECTRA if f"{q}_freqs_hz" in z}
 
     def _point(self, snap_id: str, point_id: str) -> dict[str, Any]:
         points = self.load(snap_id).get("points", {})

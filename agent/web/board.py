@@ -26,11 +26,11 @@ import numpy as np
 
 from ..alarms.records import MachineUpdate, PointUpdate
 from ..settings.models import Config, Machine
+from ..settings.quantities import SPECTRA
 from . import views
 
 log = logging.getLogger(__name__)
 
-QUANTITIES = ("acceleration", "velocity", "envelope")
 
 
 @dataclass(frozen=True)
@@ -148,7 +148,7 @@ class StatusBoard:
         if result is None:
             return _PreparedPoint(pu, {}, None, [], [], views.value_rows(machine, pu.values), None, [])
         spectra = {q: views.spectrum_view(getattr(result, q), self.max_spectrum_points)
-                   for q in QUANTITIES if getattr(result, q) is not None}
+                   for q in SPECTRA if getattr(result, q) is not None}
         waveform = None
         if block_v is not None and np.asarray(block_v).size:
             sensor = machine.point(pu.point_id).sensor

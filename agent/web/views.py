@@ -27,9 +27,6 @@ from ..settings.models import Machine
 #: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
 MARKER_HARMONICS = {"shaft": 4, "blade_pass": 3, "bpfo": 5, "bpfi": 5, "bsf": 4, "ftf": 3, "electrical": 3}
 
-QUANTITY_UNITS = {"acceleration": "m/s^2", "velocity": "mm/s", "envelope": "m/s^2"}
-
-
 def sig(x: float | None, digits: int = 4) -> float | None:
     """``x`` rounded to ``digits`` significant digits for JSON; NaN and infinities become ``None``."""
     if x is None:
