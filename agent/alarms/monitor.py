@@ -36,7 +36,6 @@ from __future__ import annotations
 
 import logging
 import math
-import statistics
 import time
 from collections import deque
 from dataclasses import dataclass, field
@@ -44,6 +43,7 @@ from pathlib import Path
 
 from ..analysis import severity
 from ..analysis.result import Finding, PointResult
+from ..analysis.running_speed import machine_speed
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FindingRule, Levels, Machine
 from ..settings.quantities import OVERALL_QUANTITY, quantity
@@ -194,11 +194,7 @@ class MachineMonitor:
         """
         notes = notes or {}
         self.n_updates += 1
-        if rpm is None:
-            speeds = [r.rpm for r in results.values() if r is not None and math.isfinite(r.rpm)]
-            rpm = statistics.median(speeds) if speeds else None
-            if not rpm_source:
-                rpm_source = next((r.rpm_source for r in results.values() if r is not None), "")
+        rpm, rpm_source = machine_speed(rpm, rpm_source, ((r.rpm, r.rpm_source) for r in results.values() if r is not None))
         stopped = rpm is not None and rpm < self.stopped_rpm
         events: list[AlarmEvent] = []
         points: dict[str, PointUpdate] = {}

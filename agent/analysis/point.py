@@ -10,11 +10,8 @@ envelope and squared-envelope spectra; bearing findings and each defect's line p
 acceleration and velocity spectra (Hann) when spectra are kept for display. The block is calibrated acceleration in m/s^2
 (the caller divides volts by the sensor's sensitivity).
 
-Speed used when ``rpm`` is not given: ``fixed`` -> the configured rpm; ``estimated`` -> the harmonic-sum
-estimate within min_rpm..max_rpm, or the nominal rpm (source ``nominal``) when no clear series shows;
-``tach``/``mqtt`` without a reading -> the nominal rpm (source ``nominal``). A given ``rpm`` is reported
-with the speed mode as its source (``fixed`` for fixed and estimated machines) unless ``rpm_source``
-says otherwise.
+The speed used is decided by :func:`.running_speed.resolve` (tach pulses, a given ``rpm``, the configured
+speed or the estimate; the rules are written there).
 
 An analyzer keeps no state between blocks except cached set-ups, so blocks may be analysed in any order;
 a searched demodulation band that a point keeps is passed in by the caller (the pipeline keeps it with
@@ -31,13 +28,14 @@ from ..errors import InputError
 from ..settings.models import Machine, Point
 from ..settings.quantities import SPECTRA, SPECTRUM_UNITS
 from . import bands as band_mod
-from . import ordertrack, severity
+from . import ordertrack, running_speed, severity
 from .envelope import BlockSpectrum, EnvelopeKernel, EnvelopeOutput
 from .findings import assess
 from .indicators import waveform
 from .narrowband import NarrowbandKernel, electrical_mask
 from .plan import AnalysisPlan, build_plan
 from .result import PointResult, Spectrum
+from .running_speed import SpeedReading
 from .spectrum import WelchKernel
 from .speed import N_HARMONICS, estimate_speed
 from .velocity import velocity_line_rms
@@ -78,21 +76,6 @@ class PointAnalyzer:
         if not np.isfinite(x).all():
             raise InputError(f"block holds {int(np.count_nonzero(~np.isfinite(x)))} non-finite samples (NaN or inf)")
         return x
-
-    def _speed(self, bs: BlockSpectrum, rpm: float | None, rpm_source: str | None) -> tuple[float, str]:
-        sp = self.plan.speed
-        if rpm is not None:
-            if not (np.isfinite(rpm) and rpm >= 0):
-                raise InputError(f"rpm = {rpm!r}: must be a finite speed >= 0")
-            return float(rpm), rpm_source or (sp.mode if sp.mode in ("tach", "mqtt") else "fixed")
-        if sp.mode == "fixed":
-            return sp.nominal_rpm, "fixed"
-        if sp.mode == "estimated":
-            est = self._estimate(bs, sp.min_rpm, sp.max_rpm)  # type: ignore[arg-type]
-            if est.clear:
-                return est.rpm, "estimated"
-            log.debug("speed estimate not clear (harmonics=%d) point=%s", est.harmonics_clear, self.plan.point.id)
-        return sp.nominal_rpm, "nominal"
 
     @property
     def searches_band(self) -> bool:
@@ -159,13 +142,9 @@ class PointAnalyzer:
         narrow = self._narrow.spectrum(bs)
         overall = narrow.overall_velocity_mm_s
         zone = severity.zone(overall, p.iso_group, p.support)
-        angle = None
-        from_tach = False
-        if tach_pulses_s is not None:
-            angle = ordertrack.from_pulses(tach_pulses_s, p.speed.pulses_per_rev, x.size / p.fs_hz)
-            if angle is not None:
-                rpm, rpm_source, from_tach = 60.0 * angle.mean_hz, rpm_source or "tach", True
-        rpm_used, source = self._speed(bs, rpm, rpm_source)
+        used = running_speed.resolve(p.speed, SpeedReading(rpm, rpm_source, tach_pulses_s), x.size / p.fs_hz,
+                                     lambda lo, hi: self._estimate(bs, lo, hi), p.point.id)
+        rpm_used, source, angle, from_tach = used.rpm, used.source, used.angle, used.from_tach
         shaft_hz = rpm_used / 60.0
         change = angle.change_pct if angle is not None else None
         if source == "estimated":

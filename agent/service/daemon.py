@@ -36,6 +36,7 @@ import numpy as np
 
 from .. import __version__
 from ..alarms.records import MachineUpdate, SensorHealth
+from ..analysis.running_speed import outside_reading
 from ..errors import ConfigError, RotorwatchError
 from ..settings.loading import load_config
 from ..settings.models import Config, Machine
@@ -505,25 +506,20 @@ class Daemon:
         """An outside speed reading for this update: the tach channel (with its pulse times in seconds from
         the start of the window that ends at ``end_s``) or the MQTT speed topic."""
         speed = rt.machine.speed
+        tach = None
         if speed.mode == "tach" and rt.tach_channel is not None:
             from ..sources.tach import pulses_in_record
 
             pulses, tach_end_s = self.rings[rt.tach_channel].latest_with_time(rt.n_window)
-            if pulses is None:
-                return None, None, None
-            rpm, edges_s = pulses_in_record(pulses, self.config.acquisition.sample_rate_hz,  # type: ignore[union-attr]
-                                            speed.tach_threshold_v, speed.pulses_per_rev)
-            if tach_end_s is not None:
-                edges_s = edges_s + (tach_end_s - end_s)  # the tach ring may hold a chunk more or less
-            if rpm is None:
-                return 0.0, "tach", None  # no pulses over a whole window: standing still
-            return rpm, "tach", edges_s
-        if speed.mode == "mqtt" and self.speeds is not None:
-            rpm = self.speeds.rpm(rt.machine.id)
-            if rpm is None:
-                return speed.nominal_rpm, "nominal", None  # no reading, or older than mqtt_max_age_s
-            return rpm, "mqtt", None
-        return None, None, None
+            if pulses is not None:
+                rpm, edges_s = pulses_in_record(pulses, self.config.acquisition.sample_rate_hz,  # type: ignore[union-attr]
+                                                speed.tach_threshold_v, speed.pulses_per_rev)
+                if tach_end_s is not None:
+                    edges_s = edges_s + (tach_end_s - end_s)  # the tach ring may hold a chunk more or less
+                tach = (rpm, edges_s)
+        mqtt_rpm = self.speeds.rpm(rt.machine.id) if speed.mode == "mqtt" and self.speeds is not None else None
+        r = outside_reading(speed, tach=tach, mqtt_listening=self.speeds is not None, mqtt_rpm=mqtt_rpm)
+        return r.rpm, r.source, r.pulses_s
 
     def _deliver(self, rt: MachineRuntime, update: MachineUpdate, blocks: dict[str, np.ndarray] | None) -> None:
         rt.last_update = update
