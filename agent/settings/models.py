@@ -13,13 +13,15 @@ from __future__ import annotations
 import math
 from typing import Literal
 
-from pydantic import Field, PrivateAttr, model_validator
+from pydantic import Field, PrivateAttr, field_validator, model_validator
+from pydantic_core import PydanticCustomError
 
 from .bands import Band, BandBase, FeatureBand, HzBand, OrderBand, band_from  # noqa: F401 (the band kinds, as models.X)
 from .base import Ident, Model, NonNegFloat, PositiveFloat
 from .iso_band import overall_band_hz
 from .levels import Levels
 from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
+from .source_kinds import source_kinds
 
 G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901; ISO 80000-3)
 
@@ -368,10 +370,11 @@ class Acquisition(Model):
     - ``soundcard``: a sound interface through PortAudio (``device`` by name or index);
     - ``simulated``: a scenario from the simulator streamed as if it were a device (``scenario``);
     - ``recording``: a WAV file played as a stream (``recording``, ``loop``);
-    - ``stdin``: raw interleaved float32 frames on standard input.
+    - ``stdin``: raw interleaved float32 frames on standard input;
+    - a kind a plugin registered (:func:`rotorwatch.sources.base.register_source`).
     """
 
-    source: Literal["soundcard", "simulated", "recording", "stdin"] = "simulated"
+    source: str = "simulated"
     sample_rate_hz: PositiveFloat = 51200.0
     channels: int = Field(2, ge=1, le=64)
     device: str | int | None = None
@@ -381,6 +384,14 @@ class Acquisition(Model):
     loop: bool = False
     speedup: PositiveFloat = Field(1.0, description="simulated/recorded input: play this many times faster than real time")
     update_interval_s: PositiveFloat = Field(5.0, description="seconds between analysis updates")
+
+    @field_validator("source")
+    @classmethod
+    def _known_kind(cls, kind: str) -> str:
+        known = source_kinds()
+        if kind not in known:
+            raise PydanticCustomError("source_kind", "unknown input kind (known: {known})", {"known": ", ".join(known)})
+        return kind
 
 
 class Site(Model):

@@ -59,9 +59,9 @@ Adding an input kind (a DAQ driver, for example)
    (:class:`~rotorwatch.errors.SourceUnavailable` when retrying may help, ``InputError`` or
    ``ConfigError`` when it cannot). Apply ``full_scale_v`` if the driver delivers digital full-scale
    units; ignore it if it already delivers volts. Open no device or stream before ``start()``.
-2. Add ``"<kind>": "rotorwatch.sources.<kind>"`` to :data:`BUILTIN_SOURCES` below and the name to the
-   ``Acquisition.source`` choices in ``agent/settings/models.py`` (config validation rejects unknown
-   kinds before any I/O).
+2. Add ``"<kind>": "rotorwatch.sources.<kind>"`` to :data:`BUILTIN_SOURCES` below and the name to
+   ``BUILTIN_SOURCE_KINDS`` in ``agent/settings/source_kinds.py`` (config validation rejects unknown
+   kinds before any I/O, naming the known ones).
 3. Add tests under ``tests/unit/sources/`` (the file-backed parts) and ``tests/integration/`` (the
    real hardware path, through a real driver or simulator of it).
 A plugin living outside the package can instead call :func:`register_source` at import time.
@@ -84,6 +84,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ConfigError
+from ..settings.source_kinds import add_source_kind
 
 log = logging.getLogger(__name__)
 
@@ -396,8 +397,10 @@ _registered: dict[str, SourceFactory] = {}
 
 
 def register_source(kind: str, factory: SourceFactory) -> None:
-    """Register ``factory(acquisition, config_dir, **options) -> Source`` for ``acquisition.source == kind``."""
+    """Register ``factory(acquisition, config_dir, **options) -> Source`` for ``acquisition.source == kind``;
+    configurations accept the kind from then on."""
     _registered[kind] = factory
+    add_source_kind(kind)
 
 
 def source_kinds() -> list[str]:
