@@ -9,8 +9,8 @@ Mount the point's accelerometer on a handheld reference shaker (common practice:
 
 The tone's RMS volts come from :func:`rotorwatch.sources.calibration.measure_tone`; the sensitivity is
 volts / reference level, printed in mV/(m/s^2) and mV/g. ``--write`` changes only the number of the
-point's ``sensitivity_mv_per_g`` (or ``sensitivity_mv_per_m_s2``, whichever the file uses) in place, so
-comments and layout stay; the result is re-validated and must differ from the old configuration in that
+point's ``sensitivity_mv_per_g`` (or ``sensitivity_mv_per_m_s2``, whichever the file uses) in place,
+editing the file as a TOML document (tomlkit), so comments and layout stay; the result is re-validated and must differ from the old configuration in that
 one value, or nothing is written.
 """
 
@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import re
 import shutil
 import tempfile
 import time
@@ -116,50 +115,30 @@ def record_from_soundcard(config: Config, device, channel: int, seconds: float,
 
 
 # ------------------------------------------------------------------------------------------ writing
-_HEADER = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.\-]+)\s*\]\]?\s*(#.*)?$")
-_SENS = re.compile(r"(\bsensitivity_mv_per_(?:g|m_s2)\s*=\s*)([-+]?[0-9_]*\.?[0-9_]+(?:[eE][-+]?[0-9]+)?)")
-
-
-def _point_region(lines: list[str], machine_index: int, point_index: int) -> tuple[int, int] | None:
-    """Line range [start, end) of the point's ``[[machines.points]]`` table and its sub-tables."""
-    mi = pi = -1
-    start = None
-    for i, line in enumerate(lines):
-        m = _HEADER.match(line)
-        if not m:
-            continue
-        bracket, name = m.group(1), m.group(2)
-        if start is not None:
-            if name.startswith("machines.points.") and bracket == "[":
-                continue  # a sub-table of this point (e.g. [machines.points.sensor])
-            return start, i
-        if bracket == "[[" and name == "machines":
-            mi += 1
-            pi = -1
-        elif bracket == "[[" and name == "machines.points" and mi == machine_index:
-            pi += 1
-            if pi == point_index:
-                start = i
-    return (start, len(lines)) if start is not None else None
+SENSITIVITY_KEYS = ("sensitivity_mv_per_g", "sensitivity_mv_per_m_s2")
 
 
 def edit_sensitivity(text: str, machine_index: int, point_index: int, mv_per_m_s2: float) -> tuple[str, str, float]:
-    """The file text with the point's sensitivity replaced: (new text, key used, value written)."""
-    lines = text.splitlines(keepends=True)
-    region = _point_region(lines, machine_index, point_index)
-    if region is None:
-        raise ConfigError(["cannot find the point's [[machines.points]] table (inline point arrays are not "
-                           "edited automatically): write the sensitivity by hand"])
-    hits = [(i, m) for i in range(*region) for m in _SENS.finditer(lines[i].split("#", 1)[0])]
-    if len(hits) != 1:
-        raise ConfigError([f"expected one sensitivity key in the point's table, found {len(hits)}: "
+    """The file text with the point's sensitivity replaced: (new text, key used, value written).
+
+    The file is edited as a TOML document (tomlkit), so its layout and comments stay as they were,
+    whether the point is a ``[[machines.points]]`` table or an inline one."""
+    import tomlkit  # noqa: PLC0415 (only the writing path needs it)
+
+    try:
+        doc = tomlkit.parse(text)
+        sensor = doc["machines"][machine_index]["points"][point_index]["sensor"]  # type: ignore[index]
+        doc_keys = [k for k in SENSITIVITY_KEYS if k in sensor]
+    except (KeyError, IndexError, TypeError, tomlkit.exceptions.TOMLKitError):
+        raise ConfigError(["cannot find the point's sensor table in the file: write the sensitivity by hand"]) from None
+    if len(doc_keys) != 1:
+        raise ConfigError([f"expected one sensitivity key in the point's sensor table, found {len(doc_keys)}: "
                            "write the sensitivity by hand"])
-    i, m = hits[0]
-    key = m.group(1).split("=")[0].strip()
+    key = doc_keys[0]
     value = mv_per_m_s2 * G_N if key == "sensitivity_mv_per_g" else mv_per_m_s2
     written = float(f"{value:.5g}")
-    lines[i] = lines[i][:m.start(2)] + f"{written:.5g}" + lines[i][m.end(2):]
-    return "".join(lines), key, written
+    sensor[key] = written
+    return tomlkit.dumps(doc), key, written
 
 
 def write_sensitivity(path: Path, config: Config, machine_index: int, point_index: int,

@@ -150,6 +150,8 @@ def test_edit_finds_the_right_table_and_keeps_comments():
     assert key == "sensitivity_mv_per_m_s2" and value == 10.512
     assert "  sensitivity_mv_per_m_s2 = 10.512   # label value\n" in new
     assert "# sensitivity_mv_per_g = 100     (the other way to give it)" in new  # comment untouched
+    changed = [(a, b) for a, b in zip(text.splitlines(), new.splitlines(), strict=True) if a != b]
+    assert changed == [("  sensitivity_mv_per_m_s2 = 10.2   # label value", "  sensitivity_mv_per_m_s2 = 10.512   # label value")]
     new, key, value = edit_sensitivity(text, 1, 0, 10.0)  # the second machine's point "a"
     assert key == "sensitivity_mv_per_g" and value == pytest.approx(98.066)
     assert new.count("sensitivity_mv_per_g = 98.066") == 1 and "sensitivity_mv_per_g = 500" in new
@@ -164,6 +166,14 @@ def test_ambiguous_point_and_inline_arrays(tmp_path, capsys):
     _shaker_wav(wav, 100.0, fs=48000)
     assert main(["calibrate", "--config", str(config), "--point", "a", "--input", str(wav)]) == 2
     assert "several machines have it; give MACHINE/POINT (p1/a, p2/a)" in capsys.readouterr().err
-    inline = 'id = "m"\nspeed = { mode = "fixed", rpm = 1 }\npoints = [{ id = "a", sensor = { channel = 0, sensitivity_mv_per_g = 1 } }]\n'
+    # a point written inline in an array is edited in place too (the file is edited as a TOML document)
+    inline = ('[[machines]]\nid = "m"\nspeed = { mode = "fixed", rpm = 1 }\n'
+              'points = [{ id = "a", sensor = { channel = 0, sensitivity_mv_per_g = 1 } }]  # one point\n')
+    new, key, value = edit_sensitivity(inline, 0, 0, 1.0)
+    assert key == "sensitivity_mv_per_g" and value == pytest.approx(9.8066)  # 1 mV/(m/s^2) x g_n
+    assert new == inline.replace("sensitivity_mv_per_g = 1 ", "sensitivity_mv_per_g = 9.8066 ")
     with pytest.raises(ConfigError, match="by hand"):
-        edit_sensitivity("[[machines]]\n" + inline, 0, 0, 1.0)
+        edit_sensitivity(inline, 0, 1, 1.0)  # no such point
+    with pytest.raises(ConfigError, match="found 2: write the sensitivity by hand"):
+        edit_sensitivity(inline.replace("sensitivity_mv_per_g = 1", "sensitivity_mv_per_g = 1, sensitivity_mv_per_m_s2 = 1"),
+                         0, 0, 1.0)
