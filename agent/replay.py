@@ -312,11 +312,10 @@ def _value_order(machine: Machine, pid: str) -> list[str]:
     return ["overall"] + [b.name for b in machine.bands_for(pid)]
 
 
-def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None = None, max_lines: int = 40) -> str:
-    """A human timeline: baselines, first warning/alarm of each value, zones, faults, machine states."""
-    m, t0 = log.machine, log.start_unix_s
+def _baselines_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """When each point learned its baselines."""
+    t0 = log.start_unix_s
     lines: list[str] = []
-
     learned = [(t, e) for t, e in log.events if e.old_state == "learning" and e.new_state == "normal" and e.value_name not in ("point", "machine")]
     if learned:
         lines.append("Baselines learned")
@@ -327,7 +326,13 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
         for t, counts in list(by_time.items())[:max_lines]:
             lines.append(f"  {_when(t, t0)}  " + ", ".join(f"{p}: {n} value{'s' if n != 1 else ''}" for p, n in counts.items()))
         lines.append("")
+    return lines
 
+
+def _firsts_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """The first warning and alarm of each value, and the values that never reached warning."""
+    m, t0 = log.machine, log.start_unix_s
+    lines: list[str] = []
     lines.append("First warning and alarm of each value")
     firsts = []
     reached = set()
@@ -359,7 +364,13 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
     if quiet:
         lines.append("  never reached warning: " + "; ".join(quiet))
     lines.append("")
+    return lines
 
+
+def _zones_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """Each point's overall velocity and the ISO 20816-3 zones it went through."""
+    m, t0 = log.machine, log.start_unix_s
+    lines: list[str] = []
     limits = f": A/B {zone_limits_mm_s[0]:g}, B/C {zone_limits_mm_s[1]:g}, C/D {zone_limits_mm_s[2]:g} mm/s" if zone_limits_mm_s else ""
     lines.append(f"Overall velocity and ISO 20816-3 zone (group {m.iso_group}, {m.support}{limits})")
     for p in m.points:
@@ -379,7 +390,13 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
             parts[0] = f"zone {first_z} throughout"
         lines.append(f"  {p.id:<6} " + "; ".join(parts) + f"; peak {peak_v:.3g} mm/s at day {peak_t / 86400:.2f}")
     lines.append("")
+    return lines
 
+
+def _raises_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """How often each value and finding was raised, and its chatter."""
+    m = log.machine
+    lines: list[str] = []
     if log.last is not None:
         window = m.alarms.chatter_window_updates
         counted = []
@@ -392,7 +409,13 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
         if not counted:
             lines.append("  no value was raised")
         lines.append("")
+    return lines
 
+
+def _faults_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """Sensor faults and their ends."""
+    t0 = log.start_unix_s
+    lines: list[str] = []
     faults = [(t, e) for t, e in log.events if e.value_name == "point" and "sensor_fault" in (e.old_state, e.new_state)]
     if faults:
         lines.append("Sensor faults")
@@ -402,7 +425,13 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
         if len(faults) > max_lines:
             lines.append(f"  ... {len(faults) - max_lines} more")
         lines.append("")
+    return lines
 
+
+def _machine_states_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """The machine's state changes."""
+    t0 = log.start_unix_s
+    lines: list[str] = []
     machine_events = [(t, e) for t, e in log.events if e.value_name == "machine"]
     lines.append("Machine state changes")
     for t, e in machine_events[:max_lines]:
@@ -410,10 +439,28 @@ def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None
     if len(machine_events) > max_lines:
         lines.append(f"  ... {len(machine_events) - max_lines} more")
     lines.append("")
+    return lines
 
+
+def _final_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    """The state of the machine and of each point at the end."""
+    t0 = log.start_unix_s
+    lines: list[str] = []
     if log.last is not None and log.samples:
         last_t = log.samples[-1].elapsed_s
         lines.append(f"Final state ({_when(last_t, t0).strip()} UTC): machine {log.last.state}")
         for pid, pu in log.last.points.items():
             lines.append(f"  {pid:<6} {pu.state:<12} {pu.reason}")
+    return lines
+
+
+_TIMELINE_SECTIONS = (_baselines_lines, _firsts_lines, _zones_lines, _raises_lines, _faults_lines, _machine_states_lines,
+                      _final_lines)
+
+
+def timeline(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None = None, max_lines: int = 40) -> str:
+    """A human timeline: baselines, first warning/alarm of each value, zones, faults, machine states."""
+    lines: list[str] = []
+    for section in _TIMELINE_SECTIONS:
+        lines += section(log, zone_limits_mm_s, max_lines)
     return "\n".join(lines)

@@ -69,6 +69,22 @@ def _ramp(change, value_factor: float = 1.0) -> Ramp:
     return Ramp(start, end, change.to * value_factor, change.shape)
 
 
+def _point_tones(machine: Machine, seed: int) -> dict[str, list[_Tone]]:
+    """Each point's shaft-order tones (unbalance, misalignment, looseness, blade pass) with their fixed
+    random phases."""
+    out = {}
+    for p in machine.points:
+        rng = generator(seed, stream_key("phases", p.id))
+        tones = [_Tone(1, "unbalance", 1.0, 0.0), _Tone(2, "misalignment", 1.0, 0.0)]
+        tones += [_Tone(k, "looseness", w, 0.0) for k, w in zip(LOOSENESS_ORDERS, LOOSENESS_WEIGHTS)]
+        if machine.blades:
+            tones += [_Tone(machine.blades * (h + 1), "blade_pass", w, 0.0) for h, w in enumerate(BLADE_HARMONIC_WEIGHTS)]
+        out[p.id] = [
+            _Tone(t.order, t.component, t.weight, float(ph)) for t, ph in zip(tones, rng.uniform(0, 2 * math.pi, len(tones)))
+        ]
+    return out
+
+
 class ScenarioRenderer:
     """Signals of one scenario. Cheap to query at any time; holds no per-call state."""
 
@@ -109,17 +125,7 @@ class ScenarioRenderer:
         }
         self._defects = {key: Profile(0.0, ramps, hold) for key, ramps in defect_ramps.items()}
 
-        # tones with their fixed random phases
-        self._tones: dict[str, list[_Tone]] = {}
-        for p in m.points:
-            rng = generator(self.seed, stream_key("phases", p.id))
-            tones = [_Tone(1, "unbalance", 1.0, 0.0), _Tone(2, "misalignment", 1.0, 0.0)]
-            tones += [_Tone(k, "looseness", w, 0.0) for k, w in zip(LOOSENESS_ORDERS, LOOSENESS_WEIGHTS)]
-            if m.blades:
-                tones += [_Tone(m.blades * (h + 1), "blade_pass", w, 0.0) for h, w in enumerate(BLADE_HARMONIC_WEIGHTS)]
-            self._tones[p.id] = [
-                _Tone(t.order, t.component, t.weight, float(ph)) for t, ph in zip(tones, rng.uniform(0, 2 * math.pi, len(tones)))
-            ]
+        self._tones = _point_tones(m, self.seed)
 
         # one impact train per (bearing, defect) that ever shows anywhere
         self.kernel = ImpactKernel(structure.resonance_hz, structure.damping_ratio)

@@ -38,18 +38,18 @@ import logging
 import math
 import time
 from collections import deque
-from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..analysis import severity
 from ..analysis.result import Finding, PointResult
 from ..analysis.running_speed import machine_speed
 from ..errors import ConfigError
-from ..settings.models import AlarmPolicy, FindingRule, Levels, Machine
+from ..settings.models import AlarmPolicy, Machine
 from ..settings.quantities import OVERALL_QUANTITY, quantity
 from .baseline import OVERALL, BaselineStore
-from .levels import SEVERITY, EffectiveLevels, LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
+from .levels import LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
 from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
+from .slots import Counts, FindingSlot, ValueSlot
 
 log = logging.getLogger(__name__)
 
@@ -64,66 +64,6 @@ def worst(states: list[str]) -> str:
 
 
 FINDING_PREFIX = "finding:"
-
-
-@dataclass
-class _Counts:
-    """Raises and chatter of one value or finding."""
-
-    raises: int = 0
-    chatter: int = 0
-    lowered_at: int | None = None  # the monitor's update number at the last lowering
-
-
-@dataclass
-class _Slot:
-    """One trended value of one point."""
-
-    name: str
-    unit: str
-    levels: Levels
-    tracker: LevelTracker  # rises
-    drop: LevelTracker | None  # drops, when drop levels are set
-    shown: str  # last state shown outside suppression: learning | normal | warning | alarm
-    value: float = NAN
-    eff: EffectiveLevels = EffectiveLevels(None, None)
-    drop_eff: EffectiveLevels = EffectiveLevels(None, None)
-    counts: _Counts = field(default_factory=_Counts)
-
-    @property
-    def trackers(self) -> list[LevelTracker]:
-        return [self.tracker] if self.drop is None else [self.tracker, self.drop]
-
-    @property
-    def top(self) -> LevelTracker:
-        """The tracker in the more severe state (rises first on a tie)."""
-        return max(self.trackers, key=lambda t: SEVERITY[t.state])
-
-    @property
-    def state(self) -> str:
-        return self.top.state
-
-    @property
-    def latched(self) -> bool:
-        return any(t.latched for t in self.trackers)
-
-    def levels_of(self, tracker: LevelTracker) -> EffectiveLevels:
-        return self.drop_eff if tracker is self.drop else self.eff
-
-
-@dataclass
-class _FindingSlot:
-    """One finding name on one point, when its rule lets it raise the point's state."""
-
-    name: str
-    rule: FindingRule
-    history: deque = field(default_factory=deque)  # present or not, the last rule.window updates
-    state: str = "normal"  # normal | warning | alarm
-    absent_run: int = 0
-    last: Finding | None = None  # the last update's finding of this name, when present
-    last_seen: Finding | None = None  # the most recent finding of this name
-    reason: str = ""
-    counts: _Counts = field(default_factory=_Counts)
 
 
 class MachineMonitor:
@@ -152,13 +92,13 @@ class MachineMonitor:
         except ValueError:
             self.zone_limits_mm_s = None
         self.n_updates = 0
-        self.slots: dict[str, dict[str, _Slot]] = {}
-        self.finding_slots: dict[str, dict[str, _FindingSlot]] = {}
+        self.slots: dict[str, dict[str, ValueSlot]] = {}
+        self.finding_slots: dict[str, dict[str, FindingSlot]] = {}
         for p in machine.points:
             values = [(OVERALL, OVERALL_QUANTITY.unit, machine.overall.levels)]
             values += [(b.name, quantity(b.quantity).unit, b.levels) for b in machine.bands_for(p.id)]
             self.slots[p.id] = {
-                name: _Slot(
+                name: ValueSlot(
                     name, unit, levels,
                     LevelTracker(name, unit, levels, off_delay_updates=off_delay_updates),
                     LevelTracker(name, unit, levels, direction="drop", off_delay_updates=off_delay_updates)
@@ -168,7 +108,7 @@ class MachineMonitor:
                 for name, unit, levels in values
             }
             self.finding_slots[p.id] = {
-                name: _FindingSlot(name, rule, deque(maxlen=rule.window))
+                name: FindingSlot(name, rule, deque(maxlen=rule.window))
                 for name, rule in machine.alarms.findings.items()
             }
         self.point_states = {p.id: "no_data" for p in machine.points}
@@ -259,7 +199,7 @@ class MachineMonitor:
         return out
 
     @staticmethod
-    def _status(slot: _Slot, x: float, state: str, baseline: float | None, reason: str) -> ValueStatus:
+    def _status(slot: ValueSlot, x: float, state: str, baseline: float | None, reason: str) -> ValueStatus:
         eff, drop = slot.eff, slot.drop_eff
         return ValueStatus(
             slot.name, x, slot.unit, state,
@@ -278,7 +218,7 @@ class MachineMonitor:
             out[fs.name] = self._finding_status(fs, "suppressed", reason)
         return out
 
-    def _count(self, counts: _Counts, old: str, new: str) -> None:
+    def _count(self, counts: Counts, old: str, new: str) -> None:
         """Count a raise (and a chatter, when soon after the last lowering) or note a lowering."""
         rank = {"learning": 0, "normal": 0, "warning": 1, "alarm": 2}
         if rank[new] > rank[old]:
@@ -296,7 +236,7 @@ class MachineMonitor:
         except (TypeError, ValueError):
             return NAN
 
-    def _evaluate(self, pid: str, slot: _Slot, result: PointResult, time_s: float) -> tuple[ValueStatus, AlarmEvent | None]:
+    def _evaluate(self, pid: str, slot: ValueSlot, result: PointResult, time_s: float) -> tuple[ValueStatus, AlarmEvent | None]:
         x = self._value_of(result, slot.name)
         if not math.isfinite(x):
             for t in slot.trackers:
@@ -329,12 +269,12 @@ class MachineMonitor:
         return self._status(slot, x, shown, base.median if base else None, reason), event
 
     @staticmethod
-    def _shown(slot: _Slot, learned: bool) -> str:
+    def _shown(slot: ValueSlot, learned: bool) -> str:
         if slot.state != "normal":
             return slot.state
         return "normal" if learned else "learning"
 
-    def _describe(self, pid: str, slot: _Slot, shown: str, x: float) -> str:
+    def _describe(self, pid: str, slot: ValueSlot, shown: str, x: float) -> str:
         head = f"{slot.name} {fmt(x)} {slot.unit}"
         if shown in ("warning", "alarm"):
             top = slot.top
@@ -372,7 +312,7 @@ class MachineMonitor:
             f"{f.harmonics_found} harmonic{'s' if f.harmonics_found != 1 else ''}"
         )
 
-    def _finding_status(self, fs: _FindingSlot, state: str, reason: str) -> FindingStatus:
+    def _finding_status(self, fs: FindingSlot, state: str, reason: str) -> FindingStatus:
         f = fs.last
         return FindingStatus(
             fs.name, state, f is not None, sum(fs.history), fs.rule.window,
@@ -381,7 +321,7 @@ class MachineMonitor:
             reason, fs.counts.raises, fs.counts.chatter,
         )
 
-    def _evaluate_finding(self, pid: str, fs: _FindingSlot, result: PointResult,
+    def _evaluate_finding(self, pid: str, fs: FindingSlot, result: PointResult,
                           time_s: float) -> tuple[FindingStatus, AlarmEvent | None]:
         same = [f for f in result.findings if f.name == fs.name]
         f = max(same, key=lambda x: x.strength) if same else None
@@ -421,7 +361,7 @@ class MachineMonitor:
         return self._finding_status(fs, fs.state, fs.reason), event
 
     def _value_event(
-        self, time_s: float, pid: str, slot: _Slot, shown: str, x: float, tr: Transition | None, reason: str,
+        self, time_s: float, pid: str, slot: ValueSlot, shown: str, x: float, tr: Transition | None, reason: str,
     ) -> AlarmEvent:
         if tr is not None:
             return AlarmEvent(

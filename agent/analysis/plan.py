@@ -28,7 +28,7 @@ import numpy as np
 
 from .. import kinematics
 from ..errors import InputError
-from ..settings.models import Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
+from ..settings.models import Analysis, Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
 from ..settings.quantities import quantity
 from .spectrum import hann
 
@@ -198,46 +198,29 @@ def _envelope_span_hz(machine: Machine, point: Point, defects: tuple[DefectPlan,
     return 50.0 * math.ceil(top / 50.0)
 
 
-def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
-    """Turn the settings of ``point`` on ``machine`` into an :class:`AnalysisPlan` at ``fs_hz``."""
-    if not (fs_hz > 0 and math.isfinite(fs_hz)):
-        raise InputError(f"sample rate {fs_hz!r}: must be a positive number of Hz")
+def _ac_power_gain(corner_hz: float | None, freqs: np.ndarray) -> np.ndarray | None:
+    """Power gain that undoes a first-order AC coupling at ``corner_hz`` (capped; None without one)."""
+    if corner_hz is None:
+        return None
+    with np.errstate(divide="ignore"):
+        gain = 1.0 + (corner_hz / freqs) ** 2  # |H|^-2 of a first-order high-pass
+    ac_gain = np.minimum(gain, AC_CORRECTION_MAX**2)
+    ac_gain[0] = 0.0
+    return ac_gain
+
+
+def _band_plans(machine: Machine, point: Point, speed: SpeedPlan, fs_hz: float) -> tuple[list[BandPlan], float, float]:
+    """The point's bands, the velocity integration cut-off and the top of the narrow-band spectrum.
+
+    Velocity integration cut-off: the overall band's low edge, lowered for velocity bands that reach
+    below it (at the slowest expected speed); the caller keeps it above two bins (DC and its leakage).
+    """
     nyquist = fs_hz / 2.0
-    an = machine.analysis
-    fmax = an.fmax_hz if an.fmax_hz is not None else fs_hz / 2.56
-    if fmax > nyquist:
-        raise _too_fast("analysis.fmax_hz", fmax, fs_hz)
-    n_per_seg = _segment_length(fs_hz, fmax, an.lines)
-    slowest_1x_hz = machine.speed.lowest_rpm / 60.0
-    window_n = int(an.window_s * fs_hz)
-    while fs_hz / n_per_seg > slowest_1x_hz / MIN_1X_LINE and 2 * n_per_seg <= window_n:
-        n_per_seg *= 2
-    n_overlap = min(int(round(n_per_seg * an.overlap_pct / 100.0)), n_per_seg - 1)
-    freqs = np.fft.rfftfreq(n_per_seg, 1.0 / fs_hz)
-    df = fs_hz / n_per_seg
-    n_keep = int(np.searchsorted(freqs, fmax, side="right"))
-
-    window = hann(n_per_seg)
-
-    corner = point.sensor.ac_coupling_corner_hz
-    ac_gain = None
-    if corner is not None:
-        with np.errstate(divide="ignore"):
-            gain = 1.0 + (corner / freqs) ** 2  # |H|^-2 of a first-order high-pass
-        ac_gain = np.minimum(gain, AC_CORRECTION_MAX**2)
-        ac_gain[0] = 0.0
-
-    ov = machine.overall
-    if ov.high_hz >= nyquist:
-        raise _too_fast("overall.high_hz", ov.high_hz, fs_hz)
-    speed = _speed(machine)
     slow_hz = (speed.min_rpm or speed.nominal_rpm) / 60.0
     fast_hz = highest_rpm(speed) / 60.0
-    # Velocity integration cut-off: the overall band's low edge, lowered for velocity bands that reach
-    # below it (at the slowest expected speed), never below two bins (DC and its leakage).
-    cutoff = ov.low_hz
+    cutoff = machine.overall.low_hz
+    narrow_top = machine.overall.high_hz
     bands = []
-    narrow_top = ov.high_hz
     for band in machine.bands_for(point.id):
         edges_fast = kinematics.band_edges_hz(machine, band, fast_hz)
         top = max(hi for _, hi in edges_fast)
@@ -251,15 +234,13 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
             cutoff = min(cutoff, 0.8 * low)
         fixed = None if band.follows_speed else tuple(edges_fast)
         bands.append(BandPlan(band, band.quantity, fixed))
-    integration_cutoff = cutoff
-    cutoff = max(cutoff, 2.0 * df)
-    with np.errstate(divide="ignore"):
-        vel_w = (1000.0 / (2.0 * np.pi * freqs)) ** 2
-    vel_w[freqs < cutoff] = 0.0
+    return bands, cutoff, narrow_top  # type: ignore[return-value]
 
-    defects = defect_plans(machine, point)
+
+def _envelope_plan(an: Analysis, fs_hz: float, df: float, env_fmax: float) -> EnvelopePlan:
+    """The envelope spectrum's plan: its band (or the search's range), span and lines."""
+    nyquist = fs_hz / 2.0
     env_cfg = an.envelope
-    env_fmax = env_cfg.fmax_hz if env_cfg.fmax_hz is not None else _envelope_span_hz(machine, point, defects, fast_hz)
     if env_cfg.band_hz is not None and env_cfg.band_hz[1] >= nyquist:
         raise _too_fast("analysis.envelope.band_hz", env_cfg.band_hz[1], fs_hz)
     auto_max = 0.98 * nyquist
@@ -282,7 +263,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
             f"a window of {an.window_s:.3g} s (analysis.window_s) is too short for an envelope spectrum of "
             f"{MIN_ENVELOPE_LINES} lines to {env_fmax:g} Hz: it needs at least {need_s:.3g} s"
         )
-    envelope = EnvelopePlan(
+    return EnvelopePlan(
         band_hz=tuple(env_cfg.band_hz) if env_cfg.band_hz is not None else None,  # type: ignore[arg-type]
         auto_min_hz=env_cfg.auto_min_hz,
         auto_max_hz=auto_max,
@@ -293,6 +274,47 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         overlap_frac=an.overlap_pct / 100.0,
         min_bandwidth_hz=min_bw,
     )
+
+
+def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
+    """Turn the settings of ``point`` on ``machine`` into an :class:`AnalysisPlan` at ``fs_hz``."""
+    if not (fs_hz > 0 and math.isfinite(fs_hz)):
+        raise InputError(f"sample rate {fs_hz!r}: must be a positive number of Hz")
+    nyquist = fs_hz / 2.0
+    an = machine.analysis
+    fmax = an.fmax_hz if an.fmax_hz is not None else fs_hz / 2.56
+    if fmax > nyquist:
+        raise _too_fast("analysis.fmax_hz", fmax, fs_hz)
+    n_per_seg = _segment_length(fs_hz, fmax, an.lines)
+    slowest_1x_hz = machine.speed.lowest_rpm / 60.0
+    window_n = int(an.window_s * fs_hz)
+    while fs_hz / n_per_seg > slowest_1x_hz / MIN_1X_LINE and 2 * n_per_seg <= window_n:
+        n_per_seg *= 2
+    n_overlap = min(int(round(n_per_seg * an.overlap_pct / 100.0)), n_per_seg - 1)
+    freqs = np.fft.rfftfreq(n_per_seg, 1.0 / fs_hz)
+    df = fs_hz / n_per_seg
+    n_keep = int(np.searchsorted(freqs, fmax, side="right"))
+
+    window = hann(n_per_seg)
+
+    ac_gain = _ac_power_gain(point.sensor.ac_coupling_corner_hz, freqs)
+
+    ov = machine.overall
+    if ov.high_hz >= nyquist:
+        raise _too_fast("overall.high_hz", ov.high_hz, fs_hz)
+    speed = _speed(machine)
+    fast_hz = highest_rpm(speed) / 60.0
+    bands, cutoff, narrow_top = _band_plans(machine, point, speed, fs_hz)
+    integration_cutoff = cutoff
+    cutoff = max(cutoff, 2.0 * df)
+    with np.errstate(divide="ignore"):
+        vel_w = (1000.0 / (2.0 * np.pi * freqs)) ** 2
+    vel_w[freqs < cutoff] = 0.0
+
+    defects = defect_plans(machine, point)
+    env_fmax = (an.envelope.fmax_hz if an.envelope.fmax_hz is not None
+                else _envelope_span_hz(machine, point, defects, fast_hz))
+    envelope = _envelope_plan(an, fs_hz, df, env_fmax)
     return AnalysisPlan(
         machine=machine,
         point=point,

@@ -21,6 +21,7 @@ import tempfile
 import time
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
@@ -116,16 +117,24 @@ def _emit(obj: dict, out) -> None:
     out.write(json.dumps(obj, allow_nan=False, separators=(",", ":")) + "\n")
 
 
-def run(args: argparse.Namespace) -> int:
-    from ..pipeline import MachinePipeline
+@dataclasses.dataclass
+class _Input:
+    """What a replay reads: the machine and its config, and the frames of a scenario or a recording."""
+
+    config: Any
+    machine: Any
+    fs_hz: float
+    window_s: float
+    frames: Any  # a generator of replay frames (closed to stop render workers early)
+    total: int
+    source: str
+    cadence: str
+    scenario: Any = None
+
+
+def _open_input(args: argparse.Namespace) -> _Input:
     from ..settings.loading import load_config
 
-    out = sys.stdout
-    start = _start_unix_s(args.start)
-    if args.learning_updates is not None and args.learning_updates < 1:
-        raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
-    if args.workers < 1:
-        raise InputError(f"--workers = {args.workers}: must be at least 1")
     scenario = renderer = None
     if args.scenario:
         scenario, renderer = _open_scenario(args)
@@ -152,6 +161,47 @@ def run(args: argparse.Namespace) -> int:
             print(f"rotorwatch: {args.input}: no channel for point(s) {', '.join(rec.unmapped)}: they read no_data", file=sys.stderr)
         if rec.dropped_frames:
             print(f"rotorwatch: {args.input}: the last {rec.dropped_frames} frames (less than one window) are not replayed", file=sys.stderr)
+    return _Input(config, machine, fs_hz, window_s, frames, total, source, cadence, scenario)
+
+
+def _write_text(out: Any, args: argparse.Namespace, inp: _Input, log: ReplayLog, wall_s: float,
+                verdicts: list[Any], failed: list[Any]) -> None:
+    """The human report: what was replayed, the timeline and the expectations."""
+    from ..analysis.severity import boundaries
+
+    machine, n = inp.machine, len(log.samples)
+    last = log.samples[-1].elapsed_s
+    out.write(f"rotorwatch replay: {inp.source}\n")
+    out.write(
+        f"machine {machine.id} ({machine.name or 'unnamed'}), points {', '.join(p.id for p in machine.points)}; "
+        f"{n} updates {inp.cadence} over {last / 86400:.2f} days from {args.start}; "
+        f"{inp.window_s:g} s windows at {inp.fs_hz:g} Hz\n"
+    )
+    out.write(f"replay took {wall_s:.1f} s ({1000 * wall_s / n:.0f} ms per update)\n\n")
+    try:
+        limits = boundaries(machine.iso_group, machine.support)
+    except ValueError:
+        limits = None
+    out.write(timeline(log, limits) + "\n")
+    if verdicts:
+        out.write("\nExpectations\n")
+        for v in verdicts:
+            out.write(f"  {'PASS' if v.passed else 'FAIL'}  {v.expectation.text}  ({v.detail})\n")
+        out.write(f"  {len(verdicts) - len(failed)} of {len(verdicts)} passed\n")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..pipeline import MachinePipeline
+
+    out = sys.stdout
+    start = _start_unix_s(args.start)
+    if args.learning_updates is not None and args.learning_updates < 1:
+        raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
+    if args.workers < 1:
+        raise InputError(f"--workers = {args.workers}: must be at least 1")
+    inp = _open_input(args)
+    config, machine, fs_hz, frames, total = inp.config, inp.machine, inp.fs_hz, inp.frames, inp.total
+    scenario = inp.scenario
     expectations = _expectations(args, machine, scenario)
     policy = AlarmPolicy(learning_hours=0.0, min_learning_updates=args.learning_updates) if args.learning_updates else None
 
@@ -199,26 +249,7 @@ def run(args: argparse.Namespace) -> int:
             "expectations": len(verdicts), "failed": len(failed),
         }, out)
     else:
-        from ..analysis.severity import boundaries
-
-        last = log.samples[-1].elapsed_s
-        out.write(f"rotorwatch replay: {source}\n")
-        out.write(
-            f"machine {machine.id} ({machine.name or 'unnamed'}), points {', '.join(p.id for p in machine.points)}; "
-            f"{n} updates {cadence} over {last / 86400:.2f} days from {args.start}; "
-            f"{window_s:g} s windows at {fs_hz:g} Hz\n"
-        )
-        out.write(f"replay took {wall_s:.1f} s ({1000 * wall_s / n:.0f} ms per update)\n\n")
-        try:
-            limits = boundaries(machine.iso_group, machine.support)
-        except ValueError:
-            limits = None
-        out.write(timeline(log, limits) + "\n")
-        if verdicts:
-            out.write("\nExpectations\n")
-            for v in verdicts:
-                out.write(f"  {'PASS' if v.passed else 'FAIL'}  {v.expectation.text}  ({v.detail})\n")
-            out.write(f"  {len(verdicts) - len(failed)} of {len(verdicts)} passed\n")
+        _write_text(out, args, inp, log, wall_s, verdicts, failed)
     out.flush()
     if failed:
         names = "; ".join(repr(v.expectation.text) for v in failed[:3])

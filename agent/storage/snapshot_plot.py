@@ -126,6 +126,48 @@ def plot_snapshot(store: Any, snap_id: str, out_path: str | Path, point_id: str 
     return out
 
 
+def _velocity_panel(ax: Any, spec: Any, bands: list, markers: list, entry: dict, shaft_hz: float) -> set[str]:
+    """Velocity spectrum up to the overall band's top (or a dozen orders, past blade pass), with its bands."""
+    f_top = float(np.asarray(spec.freqs_hz).max())
+    overall_hi = next((b["parts_hz"][0][1] for b in bands if b.get("name") == "overall"), f_top)
+    blade_hz = max((m["frequency_hz"] for m in markers if m.get("family") == "blade"), default=0.0)
+    wanted = max(12 * shaft_hz, 1.15 * blade_hz)
+    x_max = min(f_top, overall_hi, wanted) if wanted > 0 else min(f_top, overall_hi)
+    _spectrum_panel(ax, spec, x_max, "velocity spectrum", f"{spec.unit} RMS", log_y=False)
+    _draw_bands(ax, bands, "velocity", x_max)
+    return _draw_markers(ax, markers, ("shaft", "blade"), x_max)
+
+
+def _acceleration_panel(ax: Any, spec: Any, bands: list, markers: list, entry: dict, shaft_hz: float) -> set[str]:
+    """Acceleration spectrum over its whole span, with the demodulation band hatched."""
+    x_max = float(np.asarray(spec.freqs_hz).max())
+    _spectrum_panel(ax, spec, x_max, "acceleration spectrum", f"{spec.unit} RMS", log_y=True)
+    demod = entry.get("envelope_band_hz")
+    if demod:
+        ax.axvspan(demod[0], min(demod[1], x_max), facecolor="none", edgecolor=DEMOD, hatch="////",
+                   lw=0.0, zorder=0)
+        ax.text(min(demod[1], x_max), 0.985, f"demodulation band {demod[0]:g}-{demod[1]:g} Hz ",
+                transform=ax.get_xaxis_transform(), fontsize=7, color="#4f6f64", va="top", ha="right",
+                clip_on=True)
+    _draw_bands(ax, bands, "acceleration", x_max)
+    return _draw_markers(ax, markers, ("blade",), x_max)
+
+
+def _envelope_panel(ax: Any, spec: Any, bands: list, markers: list, entry: dict, shaft_hz: float) -> set[str]:
+    """Envelope spectrum up to a little past the highest defect marker, with the envelope bands."""
+    f_top = float(np.asarray(spec.freqs_hz).max())
+    defect_top = max((m["frequency_hz"] for m in markers if m.get("family") in ("bpfo", "bpfi", "bsf", "ftf")),
+                     default=0.0)
+    x_max = min(f_top, defect_top * 1.1) if defect_top else f_top
+    _spectrum_panel(ax, spec, x_max, "envelope spectrum", f"{spec.unit} RMS", log_y=False)
+    _draw_bands(ax, bands, "envelope", x_max)
+    return _draw_markers(ax, markers, ("shaft", "bpfo", "bpfi", "bsf", "ftf"), x_max)
+
+
+#: The panels of a snapshot plot, top to bottom, by the spectrum they draw.
+_PANELS = {"velocity": _velocity_panel, "acceleration": _acceleration_panel, "envelope": _envelope_panel}
+
+
 def draw_snapshot(store: Any, snap_id: str, point_id: str | None = None, all_bearings: bool = False) -> Any:
     """The matplotlib figure :func:`plot_snapshot` saves (close it with ``pyplot.close``)."""
     doc = store.load(snap_id)
@@ -145,39 +187,11 @@ def draw_snapshot(store: Any, snap_id: str, point_id: str | None = None, all_bea
     if own is not None and not all_bearings:
         markers = [m for m in markers if m.get("bearing") in (None, own)]
     shaft_hz = (doc.get("speed") or {}).get("shaft_hz") or 0.0
-    panels = [q for q in ("velocity", "acceleration", "envelope") if q in spectra]
+    panels = [q for q in _PANELS if q in spectra]
     fig, axes = plt.subplots(len(panels), 1, figsize=(11, 2.9 * len(panels) + 0.8), facecolor=PAPER, squeeze=False)
     legend_families: set[str] = set()
     for ax, q in zip(axes[:, 0], panels):
-        spec = spectra[q]
-        f_top = float(np.asarray(spec.freqs_hz).max())
-        if q == "velocity":
-            overall_hi = next((b["parts_hz"][0][1] for b in bands if b.get("name") == "overall"), f_top)
-            blade_hz = max((m["frequency_hz"] for m in markers if m.get("family") == "blade"), default=0.0)
-            wanted = max(12 * shaft_hz, 1.15 * blade_hz)
-            x_max = min(f_top, overall_hi, wanted) if wanted > 0 else min(f_top, overall_hi)
-            _spectrum_panel(ax, spec, x_max, "velocity spectrum", f"{spec.unit} RMS", log_y=False)
-            _draw_bands(ax, bands, "velocity", x_max)
-            legend_families |= _draw_markers(ax, markers, ("shaft", "blade"), x_max)
-        elif q == "acceleration":
-            x_max = f_top
-            _spectrum_panel(ax, spec, x_max, "acceleration spectrum", f"{spec.unit} RMS", log_y=True)
-            demod = entry.get("envelope_band_hz")
-            if demod:
-                ax.axvspan(demod[0], min(demod[1], x_max), facecolor="none", edgecolor=DEMOD, hatch="////",
-                           lw=0.0, zorder=0)
-                ax.text(min(demod[1], x_max), 0.985, f"demodulation band {demod[0]:g}-{demod[1]:g} Hz ",
-                        transform=ax.get_xaxis_transform(), fontsize=7, color="#4f6f64", va="top", ha="right",
-                        clip_on=True)
-            _draw_bands(ax, bands, "acceleration", x_max)
-            legend_families |= _draw_markers(ax, markers, ("blade",), x_max)
-        else:
-            defect_top = max((m["frequency_hz"] for m in markers if m.get("family") in ("bpfo", "bpfi", "bsf", "ftf")),
-                             default=0.0)
-            x_max = min(f_top, defect_top * 1.1) if defect_top else f_top
-            _spectrum_panel(ax, spec, x_max, "envelope spectrum", f"{spec.unit} RMS", log_y=False)
-            _draw_bands(ax, bands, "envelope", x_max)
-            legend_families |= _draw_markers(ax, markers, ("shaft", "bpfo", "bpfi", "bsf", "ftf"), x_max)
+        legend_families |= _PANELS[q](ax, spectra[q], bands, markers, entry, shaft_hz)
         ax.set_xlabel("frequency (Hz)", fontsize=8)
     speed = doc.get("speed") or {}
     rpm = speed.get("rpm")
