@@ -218,7 +218,7 @@ def _band_plans(machine: Machine, point: Point, speed: SpeedPlan, fs_hz: float) 
     nyquist = fs_hz / 2.0
     slow_hz = (speed.min_rpm or speed.nominal_rpm) / 60.0
     fast_hz = highest_rpm(speed) / 60.0
-    cutoff = machine.overall.low_hz
+    cutoff: float = machine.overall.low_hz  # type: ignore[assignment]  # validation fills it in
     narrow_top = machine.overall.high_hz
     bands = []
     for band in machine.bands_for(point.id):
@@ -234,7 +234,7 @@ def _band_plans(machine: Machine, point: Point, speed: SpeedPlan, fs_hz: float) 
             cutoff = min(cutoff, 0.8 * low)
         fixed = None if band.follows_speed else tuple(edges_fast)
         bands.append(BandPlan(band, band.quantity, fixed))
-    return bands, cutoff, narrow_top  # type: ignore[return-value]
+    return bands, cutoff, narrow_top
 
 
 def _envelope_plan(an: Analysis, fs_hz: float, df: float, env_fmax: float) -> EnvelopePlan:

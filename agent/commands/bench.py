@@ -76,7 +76,7 @@ def bench_machine(fixed_band: bool = True):
     bearing = models.Bearing(id="de", elements=9, element_diameter=12.7, pitch_diameter=62.0)
     points = [models.Point(id=f"p{i}", bearing="de", sensor=models.Sensor(channel=i, sensitivity_mv_per_g=100.0))
               for i in range(4)]
-    bands = [
+    bands: list[models.AnyBand] = [
         models.FeatureBand(name="shaft-1x", quantity="velocity", feature="shaft", harmonics=1),
         models.OrderBand(name="shaft-2x", quantity="velocity", low_order=1.9, high_order=2.1),
         models.FeatureBand(name="blade-pass", quantity="velocity", feature="blade_pass", harmonics=2),

@@ -127,7 +127,7 @@ def edit_sensitivity(text: str, machine_index: int, point_index: int, mv_per_m_s
 
     try:
         doc = tomlkit.parse(text)
-        sensor = doc["machines"][machine_index]["points"][point_index]["sensor"]  # type: ignore[index]
+        sensor = doc["machines"][machine_index]["points"][point_index]["sensor"]
         doc_keys = [k for k in SENSITIVITY_KEYS if k in sensor]
     except (KeyError, IndexError, TypeError, tomlkit.exceptions.TOMLKitError):
         raise ConfigError(["cannot find the point's sensor table in the file: write the sensitivity by hand"]) from None

@@ -230,15 +230,18 @@ def band_kind(value: Any) -> str | None:
     return kinds[0] if len(kinds) == 1 else None
 
 
+#: Any kind of band, as a type.
+AnyBand = HzBand | OrderBand | FeatureBand
+
 Band = Annotated[
     Annotated[HzBand, Tag(HzBand.kind)] | Annotated[OrderBand, Tag(OrderBand.kind)]
     | Annotated[FeatureBand, Tag(FeatureBand.kind)],
     Discriminator(band_kind, custom_error_type=PLACEMENT_ERROR, custom_error_message=PLACEMENT_MESSAGE),
 ]
 
-_BAND_ADAPTER: TypeAdapter[BandBase] = TypeAdapter(Band)
+_BAND_ADAPTER: TypeAdapter[AnyBand] = TypeAdapter(Band)
 
 
-def band_from(data: dict[str, Any]) -> BandBase:
+def band_from(data: dict[str, Any]) -> AnyBand:
     """A band of the kind its placement keys say (``pydantic.ValidationError`` when it is no band)."""
     return _BAND_ADAPTER.validate_python(data)

@@ -16,7 +16,7 @@ from typing import Literal
 from pydantic import Field, PrivateAttr, field_validator, model_validator
 from pydantic_core import PydanticCustomError
 
-from .bands import Band, BandBase, FeatureBand, HzBand, OrderBand, band_from  # noqa: F401 (the band kinds, as models.X)
+from .bands import AnyBand, Band, BandBase, FeatureBand, HzBand, OrderBand, band_from  # noqa: F401 (the band kinds, as models.X)
 from .base import Ident, Model, NonNegFloat, PositiveFloat
 from .iso_band import overall_band_hz
 from .levels import Levels
