@@ -36,10 +36,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import RotorwatchError
+from ..logs import RepeatLimiter, fields
+from ..selfstats import SelfStats
 from ..settings.models import Acquisition
-from .logs import RepeatLimiter, fields
 from .ring import Ring
-from .selfstats import SelfStats
 
 log = logging.getLogger(__name__)
 

@@ -18,15 +18,15 @@ from prometheus_client.parser import text_string_to_metric_families
 
 from rotorwatch.alarms.records import SensorHealth
 from rotorwatch.pipeline import MachinePipeline
-from rotorwatch.service.metrics import UpdateCollector, make_registry
-from rotorwatch.service.mqtt import MqttLink
-from rotorwatch.service.publisher import UpdatePublisher
-from rotorwatch.service.selfstats import SelfStats
+from rotorwatch.publishers.mqtt.link import MqttLink
+from rotorwatch.publishers.mqtt.sink import UpdatePublisher
+from rotorwatch.publishers.prometheus import UpdateCollector, make_registry
+from rotorwatch.selfstats import SelfStats
 from rotorwatch.settings.loading import load_config
 from rotorwatch.settings.service import MqttSettings
 from rotorwatch.storage.spool import Spool
 
-REPO = Path(__file__).resolve().parents[3]
+REPO = Path(__file__).resolve().parents[2]
 CONFIG = load_config(REPO / "config" / "demo-fan.toml")
 MACHINE = CONFIG.machines[0]
 FS_HZ = CONFIG.acquisition.sample_rate_hz
