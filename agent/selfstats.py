@@ -3,9 +3,9 @@
 Each count is a ``prometheus_client`` :class:`~prometheus_client.Counter` or
 :class:`~prometheus_client.Gauge` declared below with its labels and help, on a
 :class:`~prometheus_client.CollectorRegistry` of the :class:`SelfStats` instance (one per daemon, so two
-daemons in one process, or two tests, never share a count). Writers call :meth:`SelfStats.inc` /
-:meth:`SelfStats.set` from any thread by the short name (``"updates"``); an unknown name or a wrong
-label set is a programming error (KeyError / ValueError).
+daemons in one process, or two tests, never share a count). Writers use the objects, attributes of
+:class:`SelfStats` named as below (``stats.updates.labels(machine="ef3").inc()``), from any thread;
+a wrong label set is a programming error (ValueError).
 
 The metrics publisher (:mod:`rotorwatch.publishers.prometheus.collector`) exposes :meth:`SelfStats.families`
 with the ``agent`` label in front (the agent id can change on a reload; the counts stay). Names carry
@@ -17,7 +17,6 @@ from __future__ import annotations
 import threading
 from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Any
 
 from prometheus_client import CollectorRegistry, Counter, Gauge
 from prometheus_client.core import CounterMetricFamily, GaugeMetricFamily, Metric
@@ -65,54 +64,85 @@ GAUGES = {
 }
 
 
+class _ShownWhenSet(Gauge):
+    """An unlabelled gauge exposed from its first ``set()`` on: before, the agent has no such figure
+    (``mqtt_connected`` without ``[mqtt]`` would read as a broker that is down)."""
+
+    def __init__(self, name: str, documentation: str, registry: CollectorRegistry):
+        super().__init__(name, documentation, registry=None)  # registered at the first set()
+        self._pending_registry: CollectorRegistry | None = registry
+        self._register_lock = threading.Lock()
+
+    def set(self, value: float) -> None:
+        super().set(value)
+        with self._register_lock:
+            if self._pending_registry is not None:
+                self._pending_registry.register(self)
+                self._pending_registry = None
+
+
 class SelfStats:
-    """The counts of one agent, as prometheus_client objects on :attr:`registry`."""
+    """The counts of one agent, as prometheus_client objects on :attr:`registry` (one attribute per
+    name in :data:`COUNTERS` and :data:`GAUGES`): ``stats.updates.labels(machine="ef3").inc()``,
+    ``stats.mqtt_connected.set(1)``."""
+
+    updates: Counter
+    updates_skipped: Counter
+    samples_captured: Counter
+    input_overflows: Counter
+    input_gaps: Counter
+    source_stalls: Counter
+    source_reopens: Counter
+    mqtt_messages_published: Counter
+    mqtt_publish_failures: Counter
+    mqtt_reconnects: Counter
+    mqtt_connect_failures: Counter
+    commands: Counter
+    config_reloads: Counter
+    alarm_events: Counter
+    sensor_faults: Counter
+    spool_dropped_records: Counter
+    mqtt_connected: Gauge
+    source_up: Gauge
+    update_duration_seconds: Gauge
+    last_update_timestamp_seconds: Gauge
+    spool_records: Gauge
+    spool_bytes: Gauge
 
     def __init__(self) -> None:
         self.registry = CollectorRegistry(auto_describe=True)
-        self._counters = {n: Counter(PREFIX + n, c.help, c.labels, registry=self.registry) for n, c in COUNTERS.items()}
-        self._gauges = {n: Gauge(PREFIX + n, c.help, c.labels, registry=self.registry) for n, c in GAUGES.items()}
+        for name, c in COUNTERS.items():
+            setattr(self, name, Counter(PREFIX + name, c.help, c.labels, registry=self.registry))
+        for name, c in GAUGES.items():
+            gauge = Gauge(PREFIX + name, c.help, c.labels, registry=self.registry) if c.labels \
+                else _ShownWhenSet(PREFIX + name, c.help, self.registry)
+            setattr(self, name, gauge)
         self._lock = threading.Lock()
         self._mirrored: dict[tuple[str, Labels], float] = {}
-        self._unset = {n for n, c in GAUGES.items() if not c.labels}  # unlabelled gauges never set: not exposed
 
-    @staticmethod
-    def _child(metric: Any, labels: dict[str, str]) -> Any:
-        return metric.labels(**{k: str(v) for k, v in labels.items()}) if labels else metric
-
-    def inc(self, name: str, amount: float = 1.0, **labels: str) -> None:
-        self._child(self._counters[name], labels).inc(amount)
-
-    def mirror_counter(self, name: str, value: float, **labels: str) -> None:
-        """Raise a counter to a total kept elsewhere (the spool's own drop counts)."""
-        key = name, tuple(sorted(labels.items()))
+    def mirror(self, counter: Counter, total: float, **labels: str) -> None:
+        """Raise ``counter`` to a total kept elsewhere (the spool's own drop counts)."""
+        key = str(id(counter)), tuple(sorted(labels.items()))
         with self._lock:
-            step = float(value) - self._mirrored.get(key, 0.0)
+            step = float(total) - self._mirrored.get(key, 0.0)
             if step <= 0:
                 return
-            self._mirrored[key] = float(value)
-        self.inc(name, step, **labels)
+            self._mirrored[key] = float(total)
+        (counter.labels(**labels) if labels else counter).inc(step)
 
-    def set(self, name: str, value: float, **labels: str) -> None:
-        self._child(self._gauges[name], labels).set(float(value))
-        self._unset.discard(name)
-
+    # -- reading (tests, the MQTT data-quality block) ---------------------------------------------
     def counter(self, name: str, **labels: str) -> float:
+        """The value of counter ``name`` (0 when the series does not exist yet)."""
         if name not in COUNTERS:
             raise KeyError(f"unknown counter {name!r}")
         v = self.registry.get_sample_value(f"{PREFIX}{name}_total", {k: str(x) for k, x in labels.items()})
         return 0.0 if v is None else v
 
     def gauge(self, name: str, **labels: str) -> float | None:
+        """The value of gauge ``name`` (None when never set)."""
         if name not in GAUGES:
             raise KeyError(f"unknown gauge {name!r}")
-        if name in self._unset:
-            return None
         return self.registry.get_sample_value(PREFIX + name, {k: str(x) for k, x in labels.items()})
-
-    def touch(self, name: str, **labels: str) -> None:
-        """Make a labelled counter's series exist at 0 (``updates`` of every configured machine)."""
-        self._child(self._counters[name], labels)
 
     def copy(self) -> tuple[dict[tuple[str, Labels], float], dict[tuple[str, Labels], float]]:
         """(counters, gauges): (short name, sorted labels) -> value, of the series that exist."""
@@ -122,10 +152,9 @@ class SelfStats:
             name = fam.name[len(PREFIX):]
             for s in fam.samples:
                 labels = tuple(sorted(s.labels.items()))
-                if fam.type == "counter" and s.name.endswith("_total") and (labels or name in COUNTERS):
-                    if labels or not COUNTERS[name].labels:
-                        counters[(name, labels)] = s.value
-                elif fam.type == "gauge" and name not in self._unset:
+                if fam.type == "counter" and s.name.endswith("_total"):
+                    counters[(name, labels)] = s.value
+                elif fam.type == "gauge":
                     gauges[(name, labels)] = s.value
         return counters, gauges
 

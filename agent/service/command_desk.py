@@ -78,7 +78,7 @@ class CommandDesk:
             self._requests.put_nowait(_Request(None, raw=payload, origin=origin, answer=reply))
             self._wake.set()
         except queue.Full:
-            self.stats.inc("commands", result="rejected")
+            self.stats.commands.labels(result="rejected").inc()
             ok, held = self._limiter.allow("commands-full")
             if ok:
                 log.warning("command queue full; command dropped", extra=fields(repeats=held or None))
@@ -142,16 +142,16 @@ class CommandDesk:
             if cmd is None:
                 cmd = parse_command(req.raw or b"", config)
             ok, message, detail = self.run(cmd, req.origin)
-            self.stats.inc("commands", result="ok" if ok else "failed")
+            self.stats.commands.labels(result="ok" if ok else "failed").inc()
             body = command_result_payload(agent, now, cmd.name, ok, message, cmd.request_id, **detail)
             log.info(f"command {cmd.name}: {message}", extra=fields(origin=req.origin, ok=ok, machine=cmd.machine or "-"))
         except RotorwatchError as e:  # the command was fine but could not be carried out
             assert cmd is not None
-            self.stats.inc("commands", result="failed")
+            self.stats.commands.labels(result="failed").inc()
             log.warning(f"command {cmd.name} failed: {e}", extra=fields(origin=req.origin))
             body = command_result_payload(agent, now, cmd.name, False, str(e), cmd.request_id)
         except CommandRejected as e:
-            self.stats.inc("commands", result="rejected")
+            self.stats.commands.labels(result="rejected").inc()
             ok, held = self._limiter.allow(f"rejected:{e}")
             if ok:
                 log.warning(f"command rejected: {e}", extra=fields(origin=req.origin, repeats=held or None))
@@ -184,7 +184,7 @@ class CommandDesk:
             raise CommandRejected(f"acknowledge: unknown point or value {e.args[0]!r}", cmd.request_id, cmd.name) from None
         events = list(events or [])
         if events:
-            self.stats.inc("alarm_events", len(events), machine=rt.machine.id)
+            self.stats.alarm_events.labels(machine=rt.machine.id).inc(len(events))
             self.target.deliver_events(rt, events)
         cleared = sorted({f"{e.point_id}/{e.value_name}" for e in events if e.value_name not in ("point", "machine")})
         message = f"cleared {len(cleared)} latched value(s)" if cleared else "nothing latched to clear"

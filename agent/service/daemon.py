@@ -303,7 +303,7 @@ class Daemon:
         if blocks is not None:
             rt.last_blocks = blocks
         if update.events:
-            self.stats.inc("alarm_events", len(update.events), machine=update.machine_id)
+            self.stats.alarm_events.labels(machine=update.machine_id).inc(len(update.events))
         assert self.sinks is not None
         self.sinks.on_update(update, blocks, rt.machine)
 
@@ -313,7 +313,7 @@ class Daemon:
             key = (update.machine_id, pid)
             fault = None if pu.health.ok else (pu.health.fault or "unknown")
             if fault is not None and self._faults_now.get(key) != fault:
-                self.stats.inc("sensor_faults", machine=update.machine_id, point=pid, fault=fault)
+                self.stats.sensor_faults.labels(machine=update.machine_id, point=pid, fault=fault).inc()
             self._faults_now[key] = fault
 
     def _input_ended(self, status: CaptureStatus) -> None:

@@ -87,10 +87,10 @@ class Reloader:
         except RotorwatchError as e:
             # the new settings parsed but cannot be put to work (a port in use, a missing TLS file)
             log.error(f"reload applied partly: {e}", extra=fields(origin=origin))
-            self.stats.inc("config_reloads", result="failed")
+            self.stats.config_reloads.labels(result="failed").inc()
             self.notifier.reloaded(self.target.status_line())
             return False, str(e)
-        self.stats.inc("config_reloads", result="applied")
+        self.stats.config_reloads.labels(result="applied").inc()
         if self.on_applied is not None:
             self.on_applied(new)
         what = changed + [f"machine {m}" for m in machines_changed]
@@ -101,7 +101,7 @@ class Reloader:
 
     def _rejected(self, msg: str, origin: str) -> tuple[bool, str]:
         log.error(f"reload rejected, keeping the running configuration: {msg}", extra=fields(origin=origin))
-        self.stats.inc("config_reloads", result="rejected")
+        self.stats.config_reloads.labels(result="rejected").inc()
         self.sinks.on_agent_event("reload_rejected", msg, time.time(), origin=origin)
         self.notifier.reloaded(self.target.status_line())
         return False, msg

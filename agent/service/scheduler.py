@@ -103,7 +103,7 @@ class UpdateScheduler:
             good = good or any(p.result is not None for p in update.points.values())
             self.deliver(rt, update, blocks)
         if updated and behind > 0:
-            self.stats.inc("updates_skipped", behind)
+            self.stats.updates_skipped.inc(behind)
             ok, held = self._limiter.allow("behind")
             if ok:
                 log.warning("analysis is behind the input; skipped updates", extra=fields(
@@ -122,9 +122,9 @@ class UpdateScheduler:
             if ok:
                 log.error(f"analysis failed: {e}", extra=fields(machine=rt.machine.id, repeats=held or None))
             return None
-        self.stats.set("update_duration_seconds", self._clock() - t0, machine=rt.machine.id)
-        self.stats.set("last_update_timestamp_seconds", end_s, machine=rt.machine.id)
-        self.stats.inc("updates", machine=rt.machine.id)
+        self.stats.update_duration_seconds.labels(machine=rt.machine.id).set(self._clock() - t0)
+        self.stats.last_update_timestamp_seconds.labels(machine=rt.machine.id).set(end_s)
+        self.stats.updates.labels(machine=rt.machine.id).inc()
         return update
 
     def _report_overflow(self, rt: MachineRuntime, time_s: float, lost_at_s: float, n_overflows: int) -> None:
@@ -136,7 +136,7 @@ class UpdateScheduler:
         pids = list(rt.channels)
         update = rt.pipeline.monitor.update(time_s, {p: None for p in pids}, {p: health for p in pids},
                                             rpm=None, rpm_source="", notes={})
-        self.stats.inc("updates", machine=rt.machine.id)
+        self.stats.updates.labels(machine=rt.machine.id).inc()
         self.deliver(rt, update, None)
 
     # -- no input --------------------------------------------------------------------------------

@@ -75,9 +75,11 @@ def test_metrics_doc_names_every_metric():
     stats = SelfStats()
     example = {"machine": "ef3", "point": "de-h", "result": "ok", "fault": "clipping", "reason": "full"}
     for name, count in COUNTERS.items():
-        stats.inc(name, **{k: example[k] for k in count.labels})
+        counter = getattr(stats, name)
+        (counter.labels(**{k: example[k] for k in count.labels}) if count.labels else counter).inc()
     for name, count in GAUGES.items():
-        stats.set(name, 1.0, **{k: example[k] for k in count.labels})
+        gauge = getattr(stats, name)
+        (gauge.labels(**{k: example[k] for k in count.labels}) if count.labels else gauge).set(1.0)
     col = UpdateCollector(cfg, stats)
     col.observe(machine_update())
     families = {(m.name, m.type) for m in make_registry(col).collect()}

@@ -78,9 +78,11 @@ def exported(tmp_path_factory) -> dict[str, set[str]]:
     example = {"machine": machine.id, "point": machine.points[0].id, "result": "ok", "fault": "clipping",
                "reason": "full"}
     for name, count in COUNTERS.items():  # every self-statistic, with the labels it is declared with
-        stats.inc(name, **{k: example[k] for k in count.labels})
+        counter = getattr(stats, name)
+        (counter.labels(**{k: example[k] for k in count.labels}) if count.labels else counter).inc()
     for name, count in GAUGES.items():
-        stats.set(name, 1.0, **{k: example[k] for k in count.labels})
+        gauge = getattr(stats, name)
+        (gauge.labels(**{k: example[k] for k in count.labels}) if count.labels else gauge).set(1.0)
     collector = UpdateCollector(config, stats)
     collector.observe(update)
     text = generate_latest(make_registry(collector)).decode()

@@ -24,10 +24,10 @@ def exposition(updates, stats):
 
 def test_promtool_accepts_the_exposition(promtool):
     stats = SelfStats()
-    for name in ("updates_skipped", "input_overflows", "mqtt_reconnects"):
-        stats.inc(name)
-    stats.inc("config_reloads", result="rejected")
-    stats.set("update_duration_seconds", 0.05, machine="ef3")
+    for counter in (stats.updates_skipped, stats.input_overflows, stats.mqtt_reconnects):
+        counter.inc()
+    stats.config_reloads.labels(result="rejected").inc()
+    stats.update_duration_seconds.labels(machine="ef3").set(0.05)
     text = exposition([machine_update(), stalled_update("ef3")], stats)
     rc, findings = promtool.check_metrics(text)
     assert rc == 0, findings

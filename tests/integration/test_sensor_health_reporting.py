@@ -63,7 +63,7 @@ def test_prometheus_shows_the_fault_kind_and_the_clipped_share(tmp_path, promtoo
     good, clipped, stalled = updates(tmp_path)
     assert clipped.points["de-h"].state == "sensor_fault"
     stats = SelfStats()
-    stats.inc("sensor_faults", machine="ef3", point="de-h", fault="clipping")
+    stats.sensor_faults.labels(machine="ef3", point="de-h", fault="clipping").inc()
     m, text = scrape(clipped, stats)
     de = (("machine", "ef3"), ("point", "de-h"))
     assert m[("rotorwatch_sensor_check", tuple(sorted((*de, ("check", "clipping")))))] == 1.0
@@ -86,8 +86,8 @@ def test_prometheus_shows_the_fault_kind_and_the_clipped_share(tmp_path, promtoo
 def test_mqtt_records_carry_the_data_quality_block(tmp_path):
     good, clipped, stalled = updates(tmp_path)
     stats = SelfStats()
-    stats.inc("input_overflows", 2)
-    stats.inc("sensor_faults", machine="ef3", point="de-h", fault="clipping")
+    stats.input_overflows.inc(2)
+    stats.sensor_faults.labels(machine="ef3", point="de-h", fault="clipping").inc()
     with Spool(tmp_path / "spool.sqlite") as spool:
         link = MqttLink(MqttSettings(metrics_interval_s=0.001), CONFIG.site.agent_id, tmp_path, stats, spool=spool)
         clock = iter(range(0, 1000, 10))

@@ -143,7 +143,7 @@ class MqttLink:
     def start(self) -> None:
         """Set up the client (file and TLS problems raise one-line errors) and connect in the background."""
         self._client = self.build_client()
-        self.stats.set("mqtt_connected", 0)  # exposed from the start, not only after a first connect
+        self.stats.mqtt_connected.set(0)  # exposed from the start, not only after a first connect
         s = self.settings
         clean = {"clean_start": True} if s.protocol == "5" else {}
         self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
@@ -195,7 +195,7 @@ class MqttLink:
             c.loop_stop()
             self._client = None
             self._connected.clear()
-            self.stats.set("mqtt_connected", 0)
+            self.stats.mqtt_connected.set(0)
         log.info("mqtt disconnected", extra=fields(host=self.settings.host, port=self.settings.port))
 
     # -- publishing (through the outbox) -----------------------------------------------------------
@@ -218,7 +218,7 @@ class MqttLink:
     # -- callbacks (paho network thread) ---------------------------------------------------------
     def _handle_connect(self, client, userdata, flags, reason_code, properties) -> None:
         if reason_code.is_failure:
-            self.stats.inc("mqtt_connect_failures")
+            self.stats.mqtt_connect_failures.inc()
             self.last_failure = str(reason_code)
             ok, held = self._limiter.allow(f"refused:{reason_code}")
             if ok:
@@ -233,11 +233,11 @@ class MqttLink:
         self._limiter.reset("tls-fail")
         first = not self._ever_connected
         if not first:
-            self.stats.inc("mqtt_reconnects")
+            self.stats.mqtt_reconnects.inc()
         self._ever_connected = True
         self.last_failure = None
         self._connected.set()
-        self.stats.set("mqtt_connected", 1)
+        self.stats.mqtt_connected.set(1)
         log.info("mqtt connected" if first else "mqtt reconnected",
                  extra=fields(host=self.settings.host, port=self.settings.port))
         with self._lock:
@@ -248,7 +248,7 @@ class MqttLink:
             self.outbox.publish(self.topics.availability, availability_payload(True), retain=True, urgent=True)
 
     def _handle_connect_fail(self, client, userdata) -> None:
-        self.stats.inc("mqtt_connect_failures")
+        self.stats.mqtt_connect_failures.inc()
         error = getattr(client, "last_connect_error", None)
         if isinstance(error, ssl.SSLError):
             # CA pinning at work, or a certificate that does not name the host: say so, not "not reachable"
@@ -272,14 +272,14 @@ class MqttLink:
         self.outbox.on_disconnect(client, userdata, disconnect_flags, reason_code, properties)
         was = self._connected.is_set()
         self._connected.clear()
-        self.stats.set("mqtt_connected", 0)
+        self.stats.mqtt_connected.set(0)
         if was and not self._stopping:
             log.warning("mqtt connection lost; reconnecting with back-off",
                         extra=fields(host=self.settings.host, reason=str(reason_code)))
         elif not was and not self._stopping and self.last_failure is None:
             # closed before the broker accepted us (no CONNACK): with TLS 1.3 a broker that requires a
             # client certificate ends the handshake this way; otherwise paho would retry in silence
-            self.stats.inc("mqtt_connect_failures")
+            self.stats.mqtt_connect_failures.inc()
             ok, held = self._limiter.allow("closed-before-connack")
             if ok:
                 hint = " (a client certificate required? check mqtt.client_cert_file / client_key_file)" \

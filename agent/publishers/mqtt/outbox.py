@@ -42,11 +42,12 @@ import time
 from collections import deque
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import Any
 
 import paho.mqtt.client as mqtt
 
 from ...errors import RotorwatchError
+from ...selfstats import SelfStats
 from ...storage import StorageError
 from ...storage.spool import Record, Spool
 from .payloads import encode
@@ -55,10 +56,6 @@ from .spool_lanes import LaneSplit, SpoolLanes
 log = logging.getLogger(__name__)
 
 __all__ = ["LaneSplit", "Outbox", "OutboxStats"]
-
-
-class Counts(Protocol):
-    def inc(self, name: str, amount: float = 1.0, **labels: str) -> None: ...
 
 
 @dataclass
@@ -95,7 +92,7 @@ class Outbox:
 
     def __init__(self, client: mqtt.Client | None, *, spool: Spool | None = None, qos: int = 1,
                  in_flight_window: int = 20, backlog_rate_per_s: float = 200.0, live_reserve: int = 4,
-                 max_queued_messages: int = 0, stats: Counts | None = None,
+                 max_queued_messages: int = 0, stats: SelfStats | None = None,
                  clock: Callable[[], float] = time.monotonic) -> None:
         self.client: mqtt.Client | None = None
         self.spool = spool
@@ -178,7 +175,7 @@ class Outbox:
                 self._dirty[topic] = None  # queued as soon as there is room
         self._events.put(("wake",))
         if room:
-            self._count("mqtt_messages_published")
+            self._published()
         else:
             self._refused(topic, "the in-memory queue is full (mqtt.max_queued_messages)")
         return room
@@ -193,10 +190,10 @@ class Outbox:
         if self.spool is not None and self.record_goes_to_spool():
             try:
                 self.spool.append(kind, topic, body, retain=retain, qos=self.qos)
-                self._count("mqtt_messages_published")
+                self._published()
                 return True
             except (RotorwatchError, OSError, ValueError) as e:
-                self._count("mqtt_publish_failures")
+                self._failed()
                 now = time.monotonic()
                 if now - self._last_error_log > 300.0:
                     self._last_error_log = now
@@ -206,12 +203,16 @@ class Outbox:
     def _room(self) -> bool:
         return not self.max_queued or len(self._queue) + len(self._memory_flight) < self.max_queued
 
-    def _count(self, name: str) -> None:
+    def _published(self) -> None:
         if self._stats is not None:
-            self._stats.inc(name)
+            self._stats.mqtt_messages_published.inc()
+
+    def _failed(self) -> None:
+        if self._stats is not None:
+            self._stats.mqtt_publish_failures.inc()
 
     def _refused(self, topic: str, why: str) -> None:
-        self._count("mqtt_publish_failures")
+        self._failed()
         now = time.monotonic()
         if now - self._last_refusal_log > 300.0:
             self._last_refusal_log = now

@@ -236,10 +236,10 @@ class MqttSink(Publisher):
         except RotorwatchError:
             return
         stats = self.context.stats
-        stats.set("spool_records", st.depth)
-        stats.set("spool_bytes", st.stored_bytes)
+        stats.spool_records.set(st.depth)
+        stats.spool_bytes.set(st.stored_bytes)
         for reason, n in st.dropped.items():
-            stats.mirror_counter("spool_dropped_records", n, reason=reason)
+            stats.mirror(stats.spool_dropped_records, n, reason=reason)
 
     def on_agent_event(self, kind: str, message: str, time_s: float, detail: dict[str, Any]) -> None:
         self.publisher.publish_agent_event(kind, message, time_s, **detail)

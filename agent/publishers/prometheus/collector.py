@@ -262,7 +262,7 @@ class UpdateCollector:
 
     def _self_stats(self, config: Config) -> Iterator[Metric]:
         for m in config.machines:  # every configured machine's update count, from 0
-            self.stats.touch("updates", machine=m.id)
+            self.stats.updates.labels(machine=m.id)
         return self.stats.families(config.site.agent_id)
 
 

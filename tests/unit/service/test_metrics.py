@@ -135,15 +135,15 @@ def test_counters_start_at_zero_and_count():
     text = exposition([], stats)
     assert value(text, "rotorwatch_source_stalls_total") == 0.0
     assert value(text, "rotorwatch_updates_total", machine="ef3") == 0.0
-    stats.inc("source_stalls")
-    stats.inc("updates", machine="ef3")
-    stats.inc("updates", machine="ef3")
-    stats.inc("commands", result="rejected")
-    stats.set("mqtt_connected", 1)
+    stats.source_stalls.inc()
+    stats.updates.labels(machine="ef3").inc()
+    stats.updates.labels(machine="ef3").inc()
+    stats.commands.labels(result="rejected").inc()
+    stats.mqtt_connected.set(1)
     text = exposition([], stats)
     assert value(text, "rotorwatch_source_stalls_total") == 1.0
     assert value(text, "rotorwatch_updates_total", machine="ef3") == 2.0
     assert value(text, "rotorwatch_commands_total", result="rejected") == 1.0
     assert value(text, "rotorwatch_mqtt_connected") == 1.0
-    with pytest.raises(KeyError):
-        stats.inc("no_such_counter")
+    with pytest.raises(ValueError):  # the labels are declared with the metric
+        stats.updates.labels(point="de-h").inc()
