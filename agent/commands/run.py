@@ -24,8 +24,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..logs import setup_logging
     from ..service.daemon import Daemon, RunOptions
-    from ..service.logs import setup_logging
 
     if args.max_updates is not None and args.max_updates < 1:
         raise RotorwatchError(f"--max-updates = {args.max_updates}: must be at least 1")

@@ -36,10 +36,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import RotorwatchError
+from ..logs import RepeatLimiter, fields
+from ..selfstats import SelfStats
 from ..settings.models import Acquisition
-from .logs import RepeatLimiter, fields
 from .ring import Ring
-from .selfstats import SelfStats
 
 log = logging.getLogger(__name__)
 
@@ -121,7 +121,7 @@ class Capture:
             if changed:
                 self._status = CaptureStatus(state, reason, time.monotonic())
         if changed:
-            self.stats.set("source_up", 1 if state == "running" else 0)
+            self.stats.source_up.set(1 if state == "running" else 0)
             self._wake.set()
             level = logging.INFO if state in ("running", "stopped", "ended") else logging.WARNING
             ok, held = self._limiter.allow(f"status:{state}") if level == logging.WARNING else (True, 0)
@@ -177,7 +177,7 @@ class Capture:
         try:
             while not self._stop.is_set():
                 if self.source is None:
-                    self.stats.inc("source_reopens")
+                    self.stats.source_reopens.inc()
                     try:
                         src = self._open_fn()
                         src.start()  # type: ignore[attr-defined]
@@ -212,7 +212,7 @@ class Capture:
                         self._stop.wait(self.backoff_max_s)  # a raw stream's writer may come back
                         continue
                     if self.last_data_monotonic is not None and now - self.last_data_monotonic > self.stall_after_s:
-                        self.stats.inc("source_stalls")
+                        self.stats.source_stalls.inc()
                         self._set_status("stalled", f"no samples for {now - self.last_data_monotonic:.1f} s")
                         self._close_source()
                         self._stop.wait(delay)
@@ -231,10 +231,10 @@ class Capture:
         frames = chunk.frames
         n = frames.shape[0]
         if chunk.overflow:
-            self.stats.inc("input_overflows")
+            self.stats.input_overflows.inc()
         if chunk.gap or new_run:
             if chunk.gap:
-                self.stats.inc("input_gaps")
+                self.stats.input_gaps.inc()
             for ring in self.rings.values():
                 ring.reset()
             self.run_id += 1
@@ -247,6 +247,6 @@ class Capture:
         end = t0 + duration
         for ch, ring in self.rings.items():
             ring.write(frames[:, ch], end)
-        self.stats.inc("samples_captured", n * len(self.rings))
+        self.stats.samples_captured.inc(n * len(self.rings))
         self.chunks += 1
         self._wake.set()

@@ -15,8 +15,8 @@ import threading
 import time
 from collections.abc import Callable
 
+from ..logs import RepeatLimiter, fields
 from ..settings.models import Config
-from .logs import RepeatLimiter, fields
 
 log = logging.getLogger(__name__)
 

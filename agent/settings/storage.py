@@ -1,4 +1,4 @@
-"""Settings of local storage: the publish spool and its forwarder, the trend store, snapshots.
+"""Settings of local storage: the publish spool and how it drains, the trend store, snapshots.
 
 These models are meant to sit under ``[storage]`` in the configuration file, next to ``state_dir``::
 
@@ -54,7 +54,7 @@ class SpoolSettings(_Model):
 
 
 class ForwardingSettings(_Model):
-    """How the spool drains into the broker (see :class:`rotorwatch.storage.forwarder.Forwarder`).
+    """How the spool drains into the broker (see :mod:`rotorwatch.publishers.mqtt.spool_lanes`).
 
     ``in_flight_window``: records published and not yet acknowledged, at most. ``backlog_rate_per_s``
     bounds the replay of what piled up during an outage; live records are not rate-bounded.

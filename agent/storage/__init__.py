@@ -5,9 +5,8 @@ API overview (each module has one job; all of them take their paths and clocks f
 - :mod:`rotorwatch.storage.spool` -- :class:`~rotorwatch.storage.spool.Spool`: a durable
   store-and-forward queue (sqlite3, WAL). Every record the agent publishes gets a per-agent sequence
   number that survives restarts and is never reused.
-- :mod:`rotorwatch.storage.forwarder` -- :class:`~rotorwatch.storage.forwarder.Forwarder`: drains the
-  spool into a paho-mqtt 2.x client at QoS 1, deleting a record only on its PUBACK; a live lane and a
-  rate-bounded backlog lane after an outage.
+  It is drained into the broker by the MQTT publisher's outbox
+  (:class:`rotorwatch.publishers.mqtt.outbox.Outbox`), which deletes a record only on its PUBACK.
 - :mod:`rotorwatch.storage.trends` -- :class:`~rotorwatch.storage.trends.TrendStore`: per-update values
   (time, machine, point, value name, value, unit, state) with retention by age and row count.
 - :mod:`rotorwatch.storage.snapshots` -- :class:`~rotorwatch.storage.snapshots.SnapshotStore`:

@@ -2,7 +2,7 @@
 
 Every record (``state``, ``metrics`` or ``event``) is written to sqlite before anything is sent, and
 deleted only when the broker has acknowledged it (:meth:`Spool.ack`, called on PUBACK by the
-forwarder). Each record gets
+MQTT outbox). Each record gets
 
 - ``seq``: a per-agent sequence number, strictly increasing, persisted in the same transaction as the
   record, never reused (not after a restart, not after the record is deleted, not after a drop);
@@ -36,7 +36,7 @@ the spool is back under 95 % of both bounds, each step counted in :meth:`stats` 
 5. ``state_oldest``: the oldest remaining states (only when the spool holds nothing else).
 
 Records in flight are never dropped (so the bounds may be passed by the records in flight, at most
-the forwarder's window). A record larger than ``max_bytes`` on its own is not stored
+the outbox's window). A record larger than ``max_bytes`` on its own is not stored
 (``oversize``); its seq is still consumed. Records the broker refuses or paho cannot send are
 deleted through :meth:`reject` (``broker_rejected``, ``unsendable``).
 """
@@ -44,9 +44,7 @@ deleted through :meth:`reject` (``broker_rejected``, ``unsendable``).
 from __future__ import annotations
 
 import fcntl
-import json
 import logging
-import math
 import os
 import sqlite3
 import threading
@@ -58,6 +56,7 @@ from pathlib import Path
 from typing import Any, Literal
 
 from . import SPOOL_FILE, StorageError
+from .spool_payloads import check_topic, encode_payload
 
 log = logging.getLogger(__name__)
 
@@ -121,54 +120,6 @@ class SpoolStats:
     @property
     def dropped_total(self) -> int:
         return sum(self.dropped.values())
-
-
-def _json_default(obj: Any) -> Any:
-    # numpy scalars and arrays without importing numpy here
-    if hasattr(obj, "tolist"):
-        return obj.tolist()
-    if hasattr(obj, "item"):
-        return obj.item()
-    raise TypeError(f"{type(obj).__name__} is not JSON-serialisable")
-
-
-def _finite_or_none(obj: Any) -> Any:
-    """JSON has no NaN or infinity: a non-finite number becomes null (no value)."""
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, Mapping):
-        return {k: _finite_or_none(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_finite_or_none(v) for v in obj]
-    return obj
-
-
-def encode_payload(payload: Mapping[str, Any] | bytes, seq: int, ts_s: float) -> bytes:
-    """The bytes that go on the wire: JSON objects get ``seq`` and ``ts`` first, bytes stay as given."""
-    if isinstance(payload, (bytes, bytearray, memoryview)):
-        return bytes(payload)
-    if not isinstance(payload, Mapping):
-        raise TypeError(f"payload must be a dict or bytes, not {type(payload).__name__}")
-    clash = [k for k in ("seq", "ts") if k in payload]
-    if clash:
-        raise ValueError(f"payload keys {clash} are reserved: the spool adds seq and ts")
-    doc = {"seq": seq, "ts": round(ts_s, 3), **payload}
-    try:
-        text = json.dumps(doc, separators=(",", ":"), allow_nan=False, default=_json_default)
-    except ValueError:
-        text = json.dumps(_finite_or_none(json.loads(json.dumps(doc, default=_json_default))),
-                          separators=(",", ":"), allow_nan=False)
-    return text.encode("utf-8")
-
-
-def check_topic(topic: str) -> None:
-    """Raise ValueError unless ``topic`` is a valid MQTT topic name for publishing."""
-    if not isinstance(topic, str) or not topic:
-        raise ValueError(f"topic {topic!r}: must be a non-empty string")
-    if "+" in topic or "#" in topic or "\0" in topic:
-        raise ValueError(f"topic {topic!r}: wildcards and NUL are not allowed in a published topic")
-    if len(topic.encode("utf-8")) > 65535:
-        raise ValueError(f"topic of {len(topic)} characters: MQTT allows at most 65535 bytes")
 
 
 class Spool:

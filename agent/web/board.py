@@ -28,6 +28,7 @@ from ..alarms.records import MachineUpdate, PointUpdate
 from ..settings.models import Config, Machine
 from ..settings.quantities import SPECTRA
 from . import views
+from .health import freshness, health
 
 log = logging.getLogger(__name__)
 
@@ -199,12 +200,7 @@ class StatusBoard:
                 **input_clock(config.acquisition)}
 
     def _freshness(self, config: Config, received_s: float | None, now: float) -> tuple[float | None, bool]:
-        if received_s is None:
-            return None, True
-        age = max(0.0, now - received_s)
-        acq = config.acquisition
-        limit = max(self.min_stale_s, self.stale_after_updates * acq.update_interval_s / acq.speedup)
-        return age, age > limit
+        return freshness(config, received_s, now, self.stale_after_updates, self.min_stale_s)
 
     def overview(self) -> dict:
         """Every machine and point: states with reasons, speed, overall velocity and ISO zone."""
@@ -353,16 +349,5 @@ class StatusBoard:
     def health(self) -> tuple[bool, str]:
         """(healthy, reason): healthy when every machine has published recently."""
         config, machines, _, _ = self._snapshot()
-        now = self._clock()
-        waiting, stale = [], []
-        for m in config.machines:
-            age, is_stale = self._freshness(config, machines[m.id].received_s, now)
-            if age is None:
-                waiting.append(m.id)
-            elif is_stale:
-                stale.append(f"{m.id} ({age:.0f} s)")
-        if waiting:
-            return False, "waiting for the first update of " + ", ".join(waiting)
-        if stale:
-            return False, "no recent update from " + ", ".join(stale)
-        return True, "ok"
+        return health(config, {m: e.received_s for m, e in machines.items()}, self._clock(),
+                      self.stale_after_updates, self.min_stale_s)

@@ -51,6 +51,13 @@ CONTENT_TYPES = {
 }
 MAX_BODY_BYTES = 4096
 LOOPBACK_NAMES = {"localhost", "localhost.localdomain", "ip6-localhost"}
+#: Sent with every reply (the status page's and the metrics endpoint's).
+SECURITY_HEADERS = {
+    "X-Content-Type-Options": "nosniff",
+    "Referrer-Policy": "no-referrer",
+    "Content-Security-Policy": "default-src 'self'; img-src 'self' data:; style-src 'self'; script-src 'self'; "
+                               "connect-src 'self'; frame-ancestors 'none'",
+}
 
 #: Acknowledge callback: (machine_id, point_id or None, value name or None) -> a short message.
 AckCallback = Callable[[str, "str | None", "str | None"], str]
@@ -70,7 +77,7 @@ def read_token(path: str | Path) -> str:
     return token
 
 
-def _is_loopback(host: str) -> bool:
+def is_loopback(host: str) -> bool:
     if host in LOOPBACK_NAMES:
         return True
     try:
@@ -79,7 +86,7 @@ def _is_loopback(host: str) -> bool:
         return False
 
 
-def _host_of(header: str) -> str:
+def host_of(header: str) -> str:
     header = header.strip().lower()
     if header.startswith("["):
         return header[1:header.find("]")] if "]" in header else header
@@ -186,7 +193,7 @@ class StatusServer:
             raise RotorwatchError(
                 f"status_page: cannot listen on {self.bind}:{self.requested_port}: {exc.strerror or exc}"
             ) from exc
-        self._loopback_only = _is_loopback(self.bind)
+        self._loopback_only = is_loopback(self.bind)
         self._httpd = httpd
         self._thread = threading.Thread(target=httpd.serve_forever, kwargs={"poll_interval": 0.2},
                                         name="status-page", daemon=True)
@@ -241,12 +248,7 @@ class _Handler(BaseHTTPRequestHandler):
         self.send_response(status)
         self.send_header("Content-Type", content_type)
         self.send_header("Content-Length", str(len(body)))
-        self.send_header("X-Content-Type-Options", "nosniff")
-        self.send_header("Referrer-Policy", "no-referrer")
-        self.send_header("Content-Security-Policy",
-                         "default-src 'self'; img-src 'self' data:; style-src 'self'; script-src 'self'; "
-                         "connect-src 'self'; frame-ancestors 'none'")
-        for k, v in (extra or {}).items():
+        for k, v in {**SECURITY_HEADERS, **(extra or {})}.items():
             self.send_header(k, v)
         self.end_headers()
         if self.command != "HEAD":
@@ -265,8 +267,8 @@ class _Handler(BaseHTTPRequestHandler):
     def _host_ok(self) -> bool:
         if not getattr(self.app, "_loopback_only", True):
             return True
-        host = _host_of(self.headers.get("Host", ""))
-        if _is_loopback(host):
+        host = host_of(self.headers.get("Host", ""))
+        if is_loopback(host):
             return True
         self._error(HTTPStatus.MISDIRECTED_REQUEST, f"host {host!r} not served: this page answers on loopback only")
         return False

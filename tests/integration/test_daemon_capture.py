@@ -425,11 +425,11 @@ def test_vanished_device_is_reported_and_retried_until_it_is_back(mosquitto_brok
 # ------------------------------------------------------------------------------------------------
 def test_messages_held_while_the_broker_was_away_are_confirmed(make_mosquitto_broker, tmp_path):
     """Found through the stops above, which took 3.5 s instead of under 1 s: the retained ``info`` a
-    daemon publishes before its first connection is re-sent by the spool's forwarder under a new message
-    id, and the link kept waiting for the old id, so every clean stop sat out the whole flush timeout
+    daemon publishes before its first connection was re-sent by the old spool forwarder under a new
+    message id, and the link kept waiting for the old id (today the outbox holds it until connected), so every clean stop sat out the whole flush timeout
     and then asked the broker for the last will instead of confirming its own ``offline``."""
-    from rotorwatch.service.mqtt import MqttLink
-    from rotorwatch.service.selfstats import SelfStats
+    from rotorwatch.publishers.mqtt.link import MqttLink
+    from rotorwatch.selfstats import SelfStats
     from rotorwatch.settings.service import MqttSettings
     from rotorwatch.storage.spool import Spool
 
@@ -441,7 +441,7 @@ def test_messages_held_while_the_broker_was_away_are_confirmed(make_mosquitto_br
     link = MqttLink(settings, "edge-1", tmp_path, SelfStats(), spool=spool)
     link.start()
     try:
-        assert link.publish(link.topics.info, b'{"agent": "edge-1"}', retain=True)  # paho holds it offline
+        assert link.publish(link.topics.info, b'{"agent": "edge-1"}', retain=True)  # the outbox holds it offline
         assert link.pending == 1
         broker.start()
         assert link.wait_connected(10)

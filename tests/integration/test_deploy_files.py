@@ -11,9 +11,9 @@ from pathlib import Path
 import pytest
 
 from components import find_binary
-from rotorwatch.service.metrics import UpdateCollector, make_registry
-from rotorwatch.service.mqtt import Topics
-from rotorwatch.service.selfstats import COUNTERS, GAUGES, SelfStats
+from rotorwatch.publishers.mqtt.topics import Topics
+from rotorwatch.publishers.prometheus import UpdateCollector, make_registry
+from rotorwatch.selfstats import COUNTERS, GAUGES, SelfStats
 from rotorwatch.settings.loading import load_config
 
 REPO = Path(__file__).resolve().parents[2]
@@ -73,10 +73,13 @@ def test_sample_service_settings_append_to_the_demo_config(tmp_path):
 def test_metrics_doc_names_every_metric():
     cfg = load_config(REPO / "config" / "demo-fan.toml")
     stats = SelfStats()
-    for name in COUNTERS:
-        stats.inc(name)
-    for name in GAUGES:
-        stats.set(name, 1.0)
+    example = {"machine": "ef3", "point": "de-h", "result": "ok", "fault": "clipping", "reason": "full"}
+    for name, count in COUNTERS.items():
+        counter = getattr(stats, name)
+        (counter.labels(**{k: example[k] for k in count.labels}) if count.labels else counter).inc()
+    for name, count in GAUGES.items():
+        gauge = getattr(stats, name)
+        (gauge.labels(**{k: example[k] for k in count.labels}) if count.labels else gauge).set(1.0)
     col = UpdateCollector(cfg, stats)
     col.observe(machine_update())
     families = {(m.name, m.type) for m in make_registry(col).collect()}

@@ -22,9 +22,9 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from components import MosquittoBroker, MqttListener, make_mosquitto_broker, wait_until
-from rotorwatch.service.mqtt import MqttLink
-from rotorwatch.service.publisher import UpdatePublisher
-from rotorwatch.service.selfstats import SelfStats
+from rotorwatch.publishers.mqtt.link import MqttLink
+from rotorwatch.publishers.mqtt.sink import UpdatePublisher
+from rotorwatch.selfstats import SelfStats
 from rotorwatch.settings.service import MqttSettings
 
 pytestmark = pytest.mark.integration

@@ -18,7 +18,7 @@ Checked (zero loss is the done criterion; deploy/data-guarantees.md states what 
   left in the spool) reached the subscriber: loss 0;
 - duplicates are allowed, counted and printed, and identified by seq: every copy of a seq carries
   the same topic and the same bytes (a seq is never reused, not across the kill -9 either);
-- order per lane (the documented ordering): within each seq range between the forwarder's backlog
+- order per lane (the documented ordering): within each seq range between the outbox's backlog
   split points (logged at every connect, in both daemons' logs), first arrivals increase;
 - the second daemon's seqs continue above everything the first one handed out.
 
@@ -42,7 +42,7 @@ from .daemon_support import DaemonProcess, daemon_config, fast_fault_scenario, w
 pytestmark = pytest.mark.integration
 
 AGENT = "halden-ef3"
-SPLIT_RX = re.compile(r"forwarder: link up, backlog of -?\d+ records through seq=(\d+)")
+SPLIT_RX = re.compile(r"outbox: link up, backlog of -?\d+ records through seq=(\d+)")
 
 
 class SeqCollector(PersistentSubscriber):
@@ -136,7 +136,7 @@ def test_broker_kill_and_daemon_kill9_lose_no_record(make_mosquitto_broker, tmp_
         fig["outage_s"] = time.monotonic() - t0
         fig["outage_backlog"] = counter(d1, "rotorwatch_spool_records")
         broker.start()
-        assert wait_until(lambda: "forwarder: backlog drained" in d1.log(), 40), d1.describe()
+        assert wait_until(lambda: "outbox: backlog drained" in d1.log(), 40), d1.describe()
         seen = collector.distinct()
         assert wait_until(lambda: collector.distinct() >= seen + 20, 20), d1.describe()
 

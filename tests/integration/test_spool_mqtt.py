@@ -1,11 +1,11 @@
-"""Spool + Forwarder against a real mosquitto: nothing is lost across a broker outage or a kill -9.
+"""Spool + Outbox against a real mosquitto: nothing is lost across a broker outage or a kill -9.
 
-The publisher appends records at a steady rate through :class:`Spool` and :class:`Forwarder` while a
+The publisher appends records at a steady rate through :class:`Spool` and :class:`Outbox` while a
 persistent-session QoS 1 subscriber (MQTT 5, clean_start=False + SessionExpiryInterval, as in the
 shared recipes section 2) collects them. The checks:
 
 - every seq the spool handed out arrives (loss count 0); duplicates are allowed, counted and printed;
-- order per lane: the lanes are the seq ranges between the forwarder's backlog split points (one per
+- order per lane: the lanes are the seq ranges between the outbox's backlog split points (one per
   connect); within each range the first arrivals of the seqs are increasing;
 - live records are not held behind the backlog: some live record arrives before the backlog is done.
 
@@ -28,7 +28,7 @@ from pathlib import Path
 import paho.mqtt.client as mqtt
 import pytest
 
-from rotorwatch.storage.forwarder import Forwarder
+from rotorwatch.publishers.mqtt.outbox import Outbox
 from rotorwatch.storage.spool import Spool
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))  # tests/components.py, any import mode
@@ -146,11 +146,11 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
     spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
     client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
     backlog_rate = 150.0
-    forwarder = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=backlog_rate, live_reserve=4)
-    forwarder.install()
+    outbox = Outbox(client, spool=spool, in_flight_window=20, backlog_rate_per_s=backlog_rate, live_reserve=4)
+    outbox.install()
     client.connect_async(broker.host, broker.port, keepalive=5)
     client.loop_start()
-    forwarder.start()
+    outbox.start()
     n_records, rate_per_s = 900, 100.0
     outage = {}
     try:
@@ -169,7 +169,7 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
             if delay > 0:
                 time.sleep(delay)
         append_s = time.monotonic() - t0
-        assert forwarder.wait_drained(30.0), f"spool not drained: {spool.stats()} {forwarder.stats()}"
+        assert outbox.wait_drained(30.0), f"spool not drained: {spool.stats()} {outbox.stats()}"
         drained_s = time.monotonic() - t0
         expected = set(range(1, spool.last_seq + 1))
         missing = collector.wait_for_all(expected, 20.0)
@@ -178,20 +178,20 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
     finally:
         if not broker.running:
             broker.start()
-        forwarder.stop()
+        outbox.stop()
         client.disconnect()
         client.loop_stop()
         collector.close()
-    st, fs = spool.stats(), forwarder.stats()
+    st, fs = spool.stats(), outbox.stats()
     spool.close()
     arrivals = collector.received()
-    splits = [s.backlog_through_seq for s in forwarder.lane_splits]
-    reconnect = next(s for s in forwarder.lane_splits if s.backlog_through_seq > outage["seq_at_stop"])
+    splits = [s.backlog_through_seq for s in outbox.lane_splits]
+    reconnect = next(s for s in outbox.lane_splits if s.backlog_through_seq > outage["seq_at_stop"])
     backlog_n = reconnect.backlog_depth
     print(f"\n[outage] appended {spool.last_seq} records in {append_s:.1f} s; broker down "
           f"{outage['stop_s']:.1f}-{outage['start_s']:.1f} s; backlog {backlog_n} records at <= {backlog_rate:.0f}/s; "
           f"drained at {drained_s:.1f} s; received {len(arrivals)} messages, loss {len(missing)}, "
-          f"duplicates {_duplicates(arrivals)}; lane splits {list(forwarder.lane_splits)}; forwarder {fs}")
+          f"duplicates {_duplicates(arrivals)}; lane splits {list(outbox.lane_splits)}; outbox {fs}")
     assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
     assert st.dropped_total == 0 and st.depth == 0
     assert fs.connects >= 2 and len(splits) >= 2  # the outage really happened
@@ -216,18 +216,19 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
 
 
 def test_frozen_broker_requeues_what_was_in_flight(make_mosquitto_broker, tmp_path):
-    """SIGSTOP the broker: PUBACKs stop, the window fills, paho's keepalive gives up, the in-flight
-    records are requeued and published again after SIGCONT (duplicates counted, none lost)."""
+    """SIGSTOP the broker: PUBACKs stop, the window fills, paho's keepalive gives up; the records in
+    flight stay in flight under their ids, paho sends them again after SIGCONT and their PUBACKs delete
+    them (duplicates counted, none lost)."""
     broker = make_mosquitto_broker()  # private: freezing it must not disturb other tests
     prefix = f"rwtest/{uuid.uuid4().hex}"
     collector = Collector(broker.host, broker.port, prefix)
     spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
     client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
-    forwarder = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=300.0)
-    forwarder.install()
+    outbox = Outbox(client, spool=spool, in_flight_window=20, backlog_rate_per_s=300.0)
+    outbox.install()
     client.connect(broker.host, broker.port, keepalive=2)
     client.loop_start()
-    forwarder.start()
+    outbox.start()
     frozen = False
     try:
         t0 = time.monotonic()
@@ -242,23 +243,23 @@ def test_frozen_broker_requeues_what_was_in_flight(make_mosquitto_broker, tmp_pa
             delay = t0 + (i + 1) / 100.0 - time.monotonic()
             if delay > 0:
                 time.sleep(delay)
-        assert forwarder.wait_drained(30.0), f"not drained: {spool.stats()} {forwarder.stats()}"
+        assert outbox.wait_drained(30.0), f"not drained: {spool.stats()} {outbox.stats()}"
         missing = collector.wait_for_all(set(range(1, spool.last_seq + 1)), 20.0)
     finally:
         if frozen:
             os.kill(broker.pid, signal.SIGCONT)
-        forwarder.stop()
+        outbox.stop()
         client.disconnect()
         client.loop_stop()
         collector.close()
-    fs = forwarder.stats()
+    fs = outbox.stats()
     spool.close()
     arrivals = collector.received()
     print(f"\n[freeze] {len(set(arrivals))} records, {len(arrivals)} messages: loss {len(missing)}, "
-          f"duplicates {_duplicates(arrivals)}; requeued {fs.requeued}; splits {list(forwarder.lane_splits)}")
+          f"duplicates {_duplicates(arrivals)}; held over {fs.held_over}; splits {list(outbox.lane_splits)}")
     assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
-    assert fs.requeued > 0 and fs.connects >= 2  # the window really was in flight when the link died
-    _check_order_per_lane(arrivals, [sp.backlog_through_seq for sp in forwarder.lane_splits])
+    assert fs.held_over > 0 and fs.connects >= 2  # the window really was in flight when the link died
+    _check_order_per_lane(arrivals, [sp.backlog_through_seq for sp in outbox.lane_splits])
 
 
 def test_a_record_the_broker_refuses_is_counted_and_does_not_block(tmp_path):
@@ -274,23 +275,23 @@ def test_a_record_the_broker_refuses_is_counted_and_does_not_block(tmp_path):
         collector = Collector(broker.host, broker.port, "rwtest/ok")
         spool = Spool(tmp_path / "spool.sqlite")
         client = _publisher_client(broker.host, broker.port, "edge-acl")
-        forwarder = Forwarder(spool, client)
-        forwarder.install()
+        outbox = Outbox(client, spool=spool)
+        outbox.install()
         client.connect(broker.host, broker.port, keepalive=10)
         client.loop_start()
-        forwarder.start()
+        outbox.start()
         try:
             ok = [spool.append("event", "rwtest/ok/m1/events", {"i": 0})]
             denied = spool.append("event", "rwtest/denied/m1/events", {"i": 1})
             ok += [spool.append("event", "rwtest/ok/m1/events", {"i": i}) for i in range(2, 6)]
-            assert forwarder.wait_drained(10.0), f"not drained: {spool.stats()}"
+            assert outbox.wait_drained(10.0), f"not drained: {spool.stats()}"
             missing = collector.wait_for_all(set(ok), 10.0)
         finally:
-            forwarder.stop()
+            outbox.stop()
             client.disconnect()
             client.loop_stop()
             collector.close()
-        st, fs = spool.stats(), forwarder.stats()
+        st, fs = spool.stats(), outbox.stats()
         spool.close()
     finally:
         broker.stop()
@@ -298,66 +299,55 @@ def test_a_record_the_broker_refuses_is_counted_and_does_not_block(tmp_path):
     assert st.dropped["broker_rejected"] == 1 and fs.rejected == 1 and st.depth == 0
 
 
-def test_a_shared_client_keeps_the_other_publishers_messages(make_mosquitto_broker, tmp_path):
-    """The daemon's own publisher shares the client: its callbacks still run (chained by install()),
-    its message queued by paho while offline survives the forwarder's on_connect (published again,
-    new mid reported through on_republish), and it never sees the forwarder's PUBACKs."""
+def test_memory_messages_wait_for_the_link_and_are_confirmed(make_mosquitto_broker, tmp_path):
+    """One owner of the client's publishing: a memory message submitted while the broker is away
+    waits in the outbox (paho never holds it offline), goes out after the reconnect with the spool's
+    records, and its PUBACK is matched (wait_sent), with the spool's records confirmed beside it."""
     broker = make_mosquitto_broker()
     prefix = f"rwtest/{uuid.uuid4().hex}"
     collector = Collector(broker.host, broker.port, prefix)
     spool = Spool(tmp_path / "spool.sqlite")
     client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
-    own_mids: set[int] = set()
-    own_acks: list[int] = []
-    connects: list[bool] = []
-    client.on_connect = lambda c, u, f, rc, p: connects.append(True)
-    client.on_publish = lambda c, u, mid, rc, p: own_acks.append(mid)
-    republished: list[tuple[int, int]] = []
-    forwarder = Forwarder(spool, client, on_republish=lambda old, new: (republished.append((old, new)),
-                                                                        own_mids.add(new)))
-    forwarder.install()
+    outbox = Outbox(client, spool=spool)
+    outbox.install()
     client.connect(broker.host, broker.port, keepalive=5)
     client.loop_start()
-    forwarder.start()
+    outbox.start()
     try:
         for i in range(30):
             spool.append("metrics", _topic(prefix, "metrics"), {"i": i})
-        assert forwarder.wait_drained(10.0)
+        assert outbox.wait_drained(10.0)
         broker.stop()
         deadline = time.monotonic() + 10
         while client.is_connected() and time.monotonic() < deadline:
             time.sleep(0.02)
-        info = client.publish(f"{prefix}/note", b"queued while offline", qos=1)
-        assert info.rc == mqtt.MQTT_ERR_NO_CONN  # paho holds it in memory (shared recipes section 2)
-        own_mids.add(info.mid)
+        assert outbox.publish(f"{prefix}/note", b"queued while offline")
+        assert outbox.pending == 1 and outbox.stats().queued == 1  # in the outbox, not in paho
         for i in range(30, 40):
             spool.append("event", _topic(prefix, "event"), {"i": i})
         broker.start()
-        assert forwarder.wait_drained(15.0), f"not drained: {spool.stats()} {forwarder.stats()}"
+        assert outbox.wait_drained(15.0), f"not drained: {spool.stats()} {outbox.stats()}"
+        assert outbox.wait_sent(10.0), f"the note's acknowledgement never matched: {outbox.stats()}"
         missing = collector.wait_for_all(set(range(1, 41)), 10.0)
         wait_deadline = time.monotonic() + 10
         while not collector.others and time.monotonic() < wait_deadline:
             time.sleep(0.02)
-        ack_deadline = time.monotonic() + 5
-        while not (set(own_acks) & own_mids) and time.monotonic() < ack_deadline:
-            time.sleep(0.02)
     finally:
-        forwarder.stop()
+        outbox.stop()
         client.disconnect()
         client.loop_stop()
         collector.close()
         spool.close()
     assert not missing
-    assert len(connects) >= 2  # the previous on_connect ran on both connects
     assert collector.others == [(f"{prefix}/note", b"queued while offline")]
-    assert republished and republished[0][0] == info.mid
-    assert set(own_acks) <= own_mids and set(own_acks) & own_mids  # only its own PUBACKs, and its note's
+    st = outbox.stats()
+    assert st.connects >= 2 and st.rejected == 0 and st.in_flight == 0 and st.queued == 0
 
 
 _CHILD = textwrap.dedent("""
     import json, os, sys, time
     import paho.mqtt.client as mqtt
-    from rotorwatch.storage.forwarder import Forwarder
+    from rotorwatch.publishers.mqtt.outbox import Outbox
     from rotorwatch.storage.spool import Spool
 
     spool_path, host, port, prefix, start_i, n, rate, splits_path = sys.argv[1:9]
@@ -367,7 +357,7 @@ _CHILD = textwrap.dedent("""
     spool = Spool(spool_path, max_bytes=1 << 30, max_records=1_000_000)
     client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="edge-" + prefix[-8:], protocol=mqtt.MQTTv5)
     client.reconnect_delay_set(1, 2)
-    fwd = Forwarder(spool, client, in_flight_window=20, backlog_rate_per_s=400.0)
+    fwd = Outbox(client, spool=spool, in_flight_window=20, backlog_rate_per_s=400.0)
     fwd.install()
     client.connect_async(host, port, keepalive=5)
     client.loop_start()
@@ -484,18 +474,18 @@ def test_backlog_drain_figures(tmp_path, window):
         raise
     spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
     client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
-    forwarder = Forwarder(spool, client, in_flight_window=window, backlog_rate_per_s=1e9, live_reserve=0)
-    forwarder.install()
+    outbox = Outbox(client, spool=spool, in_flight_window=window, backlog_rate_per_s=1e9, live_reserve=0)
+    outbox.install()
     try:
         client.connect(broker.host, broker.port, keepalive=10)
         t0 = time.monotonic()
         client.loop_start()
-        forwarder.start()
-        assert forwarder.wait_drained(40.0), f"not drained: {spool.stats()}"
+        outbox.start()
+        assert outbox.wait_drained(40.0), f"not drained: {spool.stats()}"
         drain_s = time.monotonic() - t0
         missing = collector.wait_for_all(set(range(1, n + 1)), 15.0)
     finally:
-        forwarder.stop()
+        outbox.stop()
         client.disconnect()
         client.loop_stop()
         collector.close()

@@ -10,9 +10,9 @@ import time
 import numpy as np
 
 from rotorwatch.errors import SourceUnavailable
+from rotorwatch.selfstats import SelfStats
 from rotorwatch.service.capture import Capture, SourceClock
 from rotorwatch.service.ring import Ring
-from rotorwatch.service.selfstats import SelfStats
 from rotorwatch.settings.models import Acquisition
 from rotorwatch.sources.base import Chunk, Source
 

@@ -4,7 +4,7 @@ import io
 import json
 import logging
 
-from rotorwatch.service.logs import RepeatLimiter, fields, setup_logging
+from rotorwatch.logs import RepeatLimiter, fields, setup_logging
 
 
 def test_text_lines(tmp_path):

@@ -3,8 +3,8 @@
 import json
 import math
 
-from rotorwatch.service import payloads
-from rotorwatch.service.mqtt import Topics
+from rotorwatch.publishers.mqtt import payloads
+from rotorwatch.publishers.mqtt.topics import Topics
 from rotorwatch.settings.loading import load_config
 
 from .helpers import T0, machine_update, stalled_update

@@ -9,9 +9,8 @@ import re
 import pytest
 
 from rotorwatch.alarms.records import STATES
-from rotorwatch.service import payloads
-from rotorwatch.service.mqtt import Topics
-from rotorwatch.web import discovery
+from rotorwatch.publishers.mqtt import discovery, payloads
+from rotorwatch.publishers.mqtt.topics import Topics
 
 from . import helpers
 
@@ -90,31 +89,3 @@ def test_removal_clears_the_same_topics(config):
     gone = discovery.removal_messages(config, "rotorwatch", "hub")
     assert [t for t, _ in gone] == shown and all(p == b"" for _, p in gone)
     assert all(t.startswith("hub/") for t in shown)
-
-
-@pytest.mark.integration
-def test_published_configs_are_retained_on_a_real_broker(config, mosquitto_broker, tmp_path):
-    from components import MqttListener, wait_until
-    from rotorwatch.service.mqtt import MqttLink
-    from rotorwatch.service.selfstats import SelfStats
-    from rotorwatch.settings.service import MqttSettings
-
-    settings = MqttSettings(host=mosquitto_broker.host, port=mosquitto_broker.port, client_id="rw-discovery-test")
-    link = MqttLink(settings, config.site.agent_id, tmp_path, SelfStats())
-    link.start()
-    try:
-        assert link.wait_connected(10.0)
-        prefix = f"hub-{tmp_path.name}"  # private prefix: the session broker is shared
-        n = discovery.publish_discovery(link, config, "rotorwatch", prefix)
-        assert n == 12 and link.flush(5.0)
-        with MqttListener(mosquitto_broker, [f"{prefix}/#"], client_id="late-hub") as hub:
-            assert wait_until(lambda: len(hub.messages) >= n, 10.0)
-            assert all(m.retain for m in hub.messages)
-            assert {m.topic for m in hub.messages} == {t for t, _ in discovery.discovery_messages(config, "rotorwatch", prefix)}
-        for topic, payload in discovery.removal_messages(config, "rotorwatch", prefix):
-            link.publish(topic, payload, retain=True)
-        assert link.flush(5.0)
-        with MqttListener(mosquitto_broker, [f"{prefix}/#"], client_id="later-hub") as hub:
-            assert not wait_until(lambda: hub.messages, 1.0)  # nothing retained any more
-    finally:
-        link.stop()

@@ -14,17 +14,15 @@ import math
 from datetime import UTC, datetime
 from typing import Any
 
-from .. import __version__
-from ..alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
-from ..alarms.sensor_checks import BLOCK_FAULTS
-from ..settings.models import Machine
+from ... import __version__
+from ...alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
+from ...alarms.sensor_checks import BLOCK_FAULTS
+from ...settings.models import Machine
+from ..quantities import band_quantities, payload_unit
 
 #: Carried in every state payload so no dashboard mistakes the agent for a trip system.
 ADVISORY = ("condition monitoring only: not a protection or trip system; act on alarms through "
             "your site's procedures")
-
-#: Unit of each band quantity, as the analysis reports band values (agent/analysis/result.py).
-QUANTITY_UNITS = {"velocity": "mm/s", "acceleration": "m/s^2", "envelope": "m/s^2"}
 
 SCHEMA = 2  # bumped when a payload changes incompatibly (2: findings' fields renamed, see deploy/mqtt-topics.md)
 
@@ -52,13 +50,6 @@ def iso_time(time_s: float) -> str:
 
 def encode(payload: dict[str, Any]) -> bytes:
     return json.dumps(payload, allow_nan=False, separators=(",", ":"), ensure_ascii=False).encode("utf-8")
-
-
-def band_quantities(machine: Machine | None) -> dict[str, str]:
-    out = {"overall": "velocity"}
-    if machine is not None:
-        out.update({b.name: b.quantity for b in machine.bands})
-    return out
 
 
 def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]:
@@ -181,7 +172,7 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
         "overall_velocity_mm_s": num(r.overall_velocity_mm_s),
         "iso_zone": r.iso_zone,
         "bands": {
-            name: {"value": num(v), "unit": QUANTITY_UNITS.get(quantities.get(name, ""), ""),
+            name: {"value": num(v), "unit": payload_unit(quantities.get(name)),
                    "quantity": quantities.get(name)}
             for name, v in r.bands.items()
         },

@@ -1,16 +1,14 @@
-"""The MQTT link: our topic tree on a broker, through paho-mqtt 2.x (callback API version 2).
+"""The MQTT link: our connection to a broker, through paho-mqtt 2.x (callback API version 2).
 
 The connection is made in the background (``connect_async`` + ``loop_start``), so a broker that is
 away never blocks start-up; paho reconnects with back-off (``reconnect_delay_set``). A refused login
 (``reason_code.is_failure`` on CONNACK) is logged once, clearly, and retried with the same back-off.
 The last will marks the agent ``offline`` (retained) if the process dies or the link drops.
 
-Delivery: QoS 1 messages published while offline wait in paho's in-memory queue (bounded by
-``max_queued_messages``) and go out after reconnecting; ``publish()`` then returns ``MQTT_ERR_NO_CONN``,
-which is not a failure. ``MQTTMessageInfo.wait_for_publish()`` raises for such messages, so delivery is
-tracked through ``on_publish`` message ids instead (:meth:`MqttLink.flush`). Retained messages are
-also cached here and re-sent after every reconnect, so a broker restarted without persistence gets
-the current states back.
+Publishing belongs to the :class:`~rotorwatch.publishers.mqtt.outbox.Outbox`: :meth:`MqttLink.publish`
+and :meth:`MqttLink.publish_record` hand messages to it, it owns paho's ``on_publish`` and every
+message id. The link owns the connection callbacks (it tells the outbox of each connect and
+disconnect first), the subscriptions (commands, speed topics) and the clean stop.
 
 Thread rules: ``publish`` may be called from any thread; the callbacks run on paho's network thread
 and only count, log, route speed readings and queue commands (``on_command``), never block.
@@ -22,58 +20,25 @@ import logging
 import os
 import ssl
 import threading
-import time
 from collections.abc import Callable
 from pathlib import Path
 
 import paho.mqtt.client as mqtt
-from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
+from paho.mqtt.enums import CallbackAPIVersion
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.reasoncodes import ReasonCode
 
-from ..errors import RotorwatchError
-from ..settings.service import MqttSettings
-from .logs import RepeatLimiter, fields
-from .payloads import availability_payload, encode
-from .selfstats import SelfStats
+from ...errors import RotorwatchError
+from ...logs import RepeatLimiter, fields
+from ...selfstats import SelfStats
+from ...settings.service import MqttSettings
+from ...settings.storage import ForwardingSettings
+from ...storage.spool import Spool
+from .outbox import Outbox
+from .payloads import availability_payload
+from .topics import Topics
 
 log = logging.getLogger(__name__)
-
-
-class Topics:
-    """Our topic tree under ``<prefix>/<agent>`` (deploy/mqtt-topics.md)."""
-
-    def __init__(self, prefix: str, agent_id: str):
-        self.root = f"{prefix}/{agent_id}"
-
-    @property
-    def availability(self) -> str:
-        return f"{self.root}/availability"
-
-    @property
-    def info(self) -> str:
-        return f"{self.root}/info"
-
-    @property
-    def events(self) -> str:
-        return f"{self.root}/events"
-
-    @property
-    def command(self) -> str:
-        return f"{self.root}/command"
-
-    @property
-    def command_result(self) -> str:
-        return f"{self.root}/command/result"
-
-    def machine_state(self, machine_id: str) -> str:
-        return f"{self.root}/machine/{machine_id}/state"
-
-    def point_state(self, machine_id: str, point_id: str) -> str:
-        return f"{self.root}/machine/{machine_id}/point/{point_id}/state"
-
-    def point_metrics(self, machine_id: str, point_id: str) -> str:
-        return f"{self.root}/machine/{machine_id}/point/{point_id}/metrics"
 
 
 def read_password(settings: MqttSettings, base_dir: Path) -> str | None:
@@ -118,8 +83,9 @@ class _Client(mqtt.Client):
 class MqttLink:
     def __init__(self, settings: MqttSettings, agent_id: str, base_dir: Path, stats: SelfStats,
                  on_command: Callable[[bytes], None] | None = None,
-                 on_message: Callable[[str, bytes], None] | None = None,
-                 extra_topics: list[str] | None = None, spool=None, forwarding=None):
+                 on_message: Callable[[str, bytes], object] | None = None,
+                 extra_topics: list[str] | None = None, spool: Spool | None = None,
+                 forwarding: ForwardingSettings | None = None):
         self.settings = settings
         self.agent_id = agent_id
         self.base_dir = base_dir
@@ -129,11 +95,6 @@ class MqttLink:
         self._on_message = on_message
         self._extra_topics = list(extra_topics or [])
         self._lock = threading.Lock()
-        self._retained: dict[str, bytes] = {}
-        self._dirty: set[str] = set()  # retained topics whose newest payload paho has not taken yet
-        self._pending: set[int] = set()
-        self._early_acks: set[int] = set()
-        self._moved: dict[int, int] = {}  # message id paho held offline -> the id it went out under
         self._limiter = RepeatLimiter(300.0)
         self._connected = threading.Event()
         self._ever_connected = False
@@ -141,8 +102,9 @@ class MqttLink:
         self._client: mqtt.Client | None = None
         self.last_failure: str | None = None
         self.spool = spool  # a rotorwatch.storage.spool.Spool, owned by the caller, or None
-        self._forwarding = forwarding
-        self.forwarder = None
+        self._forwarding = forwarding or ForwardingSettings.model_validate({})
+        # the one owner of publishing: messages wait in it (memory or the spool) until the client exists
+        self.outbox = Outbox.from_settings(None, settings, self._forwarding, spool, stats=stats)
 
     # -- life cycle ------------------------------------------------------------------------------
     def _path(self, name: str | None) -> str | None:
@@ -170,32 +132,23 @@ class MqttLink:
             c.username_pw_set(s.username, read_password(s, self.base_dir))
         c.will_set(self.topics.availability, availability_payload(False), qos=1, retain=True)
         c.reconnect_delay_set(min_delay=s.reconnect_min_s, max_delay=s.reconnect_max_s)  # type: ignore[arg-type]
-        c.max_queued_messages_set(s.max_queued_messages)
+        self.outbox.attach(c)
         c.on_connect = self._handle_connect
         c.on_connect_fail = self._handle_connect_fail
         c.on_disconnect = self._handle_disconnect
-        c.on_publish = self._handle_publish
+        c.on_publish = self.outbox.on_publish  # the one owner of message ids
         c.on_message = self._handle_message
-        if self.spool is not None:
-            from ..storage.forwarder import Forwarder
-
-            # its hooks run first and chain to ours; its on_publish takes only its own message ids
-            # it re-sends what paho held while offline under new ids: on_republish lets flush() follow them
-            self.forwarder = Forwarder.from_settings(self.spool, c, self._forwarding, on_republish=self._handle_republish) \
-                if self._forwarding is not None else Forwarder(self.spool, c, on_republish=self._handle_republish)
-            self.forwarder.install()
         return c
 
     def start(self) -> None:
         """Set up the client (file and TLS problems raise one-line errors) and connect in the background."""
         self._client = self.build_client()
-        self.stats.set("mqtt_connected", 0)  # exposed from the start, not only after a first connect
+        self.stats.mqtt_connected.set(0)  # exposed from the start, not only after a first connect
         s = self.settings
         clean = {"clean_start": True} if s.protocol == "5" else {}
         self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
         self._client.loop_start()
-        if self.forwarder is not None:
-            self.forwarder.start()
+        self.outbox.start()
         log.info("mqtt connecting in the background", extra=fields(
             host=s.host, port=s.port, tls=s.tls, user=s.username or "-", root=self.topics.root))
 
@@ -222,20 +175,16 @@ class MqttLink:
 
     def stop(self, flush_timeout_s: float = 3.0) -> None:
         """Publish retained ``offline``, wait (bounded) for outstanding messages, disconnect."""
-        c = self._client
+        c, outbox = self._client, self.outbox
         if c is None:
             return
         self._stopping = True
         delivered = False
         if self.connected:
-            self.tick()
-            if self.forwarder is not None:  # what is in the spool waits there for the next start if not sent
-                self.forwarder.wait_drained(flush_timeout_s)
+            outbox.wait_drained(flush_timeout_s)  # what stays in the spool waits there for the next start
             queued = self.publish(self.topics.availability, availability_payload(False), retain=True)
-            delivered = self.flush(flush_timeout_s) and queued
-        if self.forwarder is not None:
-            self.forwarder.stop()
-            self.forwarder = None
+            delivered = outbox.wait_sent(flush_timeout_s) and queued
+        outbox.stop()
         try:
             if not delivered and self.settings.protocol == "5":
                 # "offline" did not make it: MQTT 5 reason 0x04 asks the broker to publish the will
@@ -246,104 +195,30 @@ class MqttLink:
             c.loop_stop()
             self._client = None
             self._connected.clear()
-            self.stats.set("mqtt_connected", 0)
+            self.stats.mqtt_connected.set(0)
         log.info("mqtt disconnected", extra=fields(host=self.settings.host, port=self.settings.port))
 
-    # -- publishing ------------------------------------------------------------------------------
+    # -- publishing (through the outbox) -----------------------------------------------------------
     def publish(self, topic: str, payload: bytes, retain: bool = False) -> bool:
-        """Hand one message to paho; False (and a counted failure) if it was refused.
-
-        A retained message that paho refuses (its offline queue is full) is kept and handed over again
-        by :meth:`tick` once there is room, so the broker always ends up with the newest state.
-        """
-        if retain:
-            with self._lock:
-                if payload:
-                    self._retained[topic] = payload
-                else:  # an empty retained message clears the topic
-                    self._retained.pop(topic, None)
-        ok = self._send(topic, payload, retain)
-        if retain:
-            with self._lock:
-                if ok:
-                    self._dirty.discard(topic)
-                else:
-                    self._dirty.add(topic)
-        return ok
+        """Queue one message in memory (availability, info, discovery, command results)."""
+        return self.outbox.publish(topic, payload, retain=retain)
 
     def publish_record(self, kind: str, topic: str, body: dict, retain: bool = False) -> bool:
-        """A state, metrics record or event: into the durable spool when there is one (the forwarder
-        sends it and deletes it on the broker's acknowledgement), else straight to paho."""
-        if self.spool is not None:
-            try:
-                self.spool.append(kind, topic, body, retain=retain, qos=self.settings.qos)
-                self.stats.inc("mqtt_messages_published")
-                return True
-            except (RotorwatchError, OSError, ValueError) as e:
-                self.stats.inc("mqtt_publish_failures")
-                ok, held = self._limiter.allow("spool-append")
-                if ok:
-                    log.error(f"publish spool write failed, sending directly: {e}", extra=fields(repeats=held or None))
-        return self.publish(topic, encode(body), retain=retain)
-
-    def _send(self, topic: str, payload: bytes, retain: bool) -> bool:
-        c = self._client
-        if c is None:
-            self.stats.inc("mqtt_publish_failures")
-            return False
-        qos = self.settings.qos
-        info = c.publish(topic, payload, qos=qos, retain=retain)
-        self.stats.inc("mqtt_messages_published")
-        rc = info.rc
-        queued = rc == MQTTErrorCode.MQTT_ERR_SUCCESS or (rc == MQTTErrorCode.MQTT_ERR_NO_CONN and qos > 0)
-        if not queued:
-            self.stats.inc("mqtt_publish_failures")
-            ok, held = self._limiter.allow(f"publish:{int(rc)}")
-            if ok:
-                log.warning("mqtt publish refused", extra=fields(topic=topic, error=mqtt.error_string(rc),
-                                                                 repeats=held or None))
-            return False
-        with self._lock:
-            mid = self._moved.pop(info.mid, info.mid)  # re-sent under a new id before we noted it
-            if mid in self._early_acks:
-                self._early_acks.discard(mid)
-            else:
-                self._pending.add(mid)
-        return True
-
-    def tick(self) -> None:
-        """Called from the analysis loop: re-send retained states paho refused earlier (bounded)."""
-        if not self.connected:
-            return
-        with self._lock:
-            todo = [(t, self._retained.get(t, b"")) for t in sorted(self._dirty)][:50]
-        for topic, payload in todo:
-            if not self._send(topic, payload, True):
-                break  # still no room: try again next time
-            with self._lock:
-                if self._retained.get(topic, b"") == payload:
-                    self._dirty.discard(topic)
+        """A state, metrics record or event: into the durable spool when there is one."""
+        return self.outbox.publish_record(kind, topic, body, retain=retain)
 
     def flush(self, timeout_s: float) -> bool:
-        """Wait until every message handed to paho was acknowledged (QoS 1) or sent (QoS 0)."""
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            with self._lock:
-                if not self._pending:
-                    return True
-            time.sleep(0.01)
-        with self._lock:
-            return not self._pending
+        """Wait until every memory message was acknowledged (QoS 1) or handed over (QoS 0)."""
+        return self.outbox.wait_sent(timeout_s)
 
     @property
     def pending(self) -> int:
-        with self._lock:
-            return len(self._pending)
+        return self.outbox.pending
 
     # -- callbacks (paho network thread) ---------------------------------------------------------
     def _handle_connect(self, client, userdata, flags, reason_code, properties) -> None:
         if reason_code.is_failure:
-            self.stats.inc("mqtt_connect_failures")
+            self.stats.mqtt_connect_failures.inc()
             self.last_failure = str(reason_code)
             ok, held = self._limiter.allow(f"refused:{reason_code}")
             if ok:
@@ -353,30 +228,27 @@ class MqttLink:
                           extra=fields(host=self.settings.host, port=self.settings.port,
                                        user=self.settings.username or "-", repeats=held or None))
             return
+        self.outbox.on_connect(client, userdata, flags, reason_code, properties)
         self._limiter.reset("connect-fail")
         self._limiter.reset("tls-fail")
         first = not self._ever_connected
         if not first:
-            self.stats.inc("mqtt_reconnects")
+            self.stats.mqtt_reconnects.inc()
         self._ever_connected = True
         self.last_failure = None
         self._connected.set()
-        self.stats.set("mqtt_connected", 1)
+        self.stats.mqtt_connected.set(1)
         log.info("mqtt connected" if first else "mqtt reconnected",
                  extra=fields(host=self.settings.host, port=self.settings.port))
         with self._lock:
             extra = list(self._extra_topics)
-            if not first:
-                # after a reconnect, re-send the current retained states (the broker may have lost them);
-                # on the first connect paho itself sends what was queued while connecting
-                self._dirty.update(self._retained)
         client.subscribe([(self.topics.command, self.settings.qos)] + [(t, self.settings.qos) for t in extra])
         if not self._stopping:
-            self.publish(self.topics.availability, availability_payload(True), retain=True)
-            self.tick()
+            # the outbox sends the other retained messages again after a reconnect, this one first
+            self.outbox.publish(self.topics.availability, availability_payload(True), retain=True, urgent=True)
 
     def _handle_connect_fail(self, client, userdata) -> None:
-        self.stats.inc("mqtt_connect_failures")
+        self.stats.mqtt_connect_failures.inc()
         error = getattr(client, "last_connect_error", None)
         if isinstance(error, ssl.SSLError):
             # CA pinning at work, or a certificate that does not name the host: say so, not "not reachable"
@@ -397,16 +269,17 @@ class MqttLink:
                                      error=str(error).splitlines()[0] if error else None, repeats=held or None))
 
     def _handle_disconnect(self, client, userdata, disconnect_flags, reason_code, properties) -> None:
+        self.outbox.on_disconnect(client, userdata, disconnect_flags, reason_code, properties)
         was = self._connected.is_set()
         self._connected.clear()
-        self.stats.set("mqtt_connected", 0)
+        self.stats.mqtt_connected.set(0)
         if was and not self._stopping:
             log.warning("mqtt connection lost; reconnecting with back-off",
                         extra=fields(host=self.settings.host, reason=str(reason_code)))
         elif not was and not self._stopping and self.last_failure is None:
             # closed before the broker accepted us (no CONNACK): with TLS 1.3 a broker that requires a
             # client certificate ends the handshake this way; otherwise paho would retry in silence
-            self.stats.inc("mqtt_connect_failures")
+            self.stats.mqtt_connect_failures.inc()
             ok, held = self._limiter.allow("closed-before-connack")
             if ok:
                 hint = " (a client certificate required? check mqtt.client_cert_file / client_key_file)" \
@@ -414,29 +287,6 @@ class MqttLink:
                 log.error(f"mqtt broker closed the connection before accepting it{hint}; retrying with back-off",
                           extra=fields(host=self.settings.host, port=self.settings.port, reason=str(reason_code),
                                        repeats=held or None))
-
-    def _handle_publish(self, client, userdata, mid, reason_code, properties) -> None:
-        with self._lock:
-            if mid in self._pending:
-                self._pending.discard(mid)
-            else:
-                self._early_acks.add(mid)
-                if len(self._early_acks) > 10000:  # never grows without bound
-                    self._early_acks.clear()
-
-    def _handle_republish(self, old_mid: int, new_mid: int) -> None:
-        """The forwarder's on_connect re-sent a message we handed to paho while offline: follow its id."""
-        with self._lock:
-            if old_mid in self._pending:
-                self._pending.discard(old_mid)
-                if new_mid in self._early_acks:
-                    self._early_acks.discard(new_mid)
-                else:
-                    self._pending.add(new_mid)
-            else:  # _send has not noted old_mid yet
-                self._moved[old_mid] = new_mid
-                if len(self._moved) > 10000:  # never grows without bound
-                    self._moved.clear()
 
     def _handle_message(self, client, userdata, msg) -> None:
         try:

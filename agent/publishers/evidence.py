@@ -1,4 +1,4 @@
-"""What the daemon keeps on disk per update: trend rows and evidence snapshots (rotorwatch.storage).
+"""The evidence publisher: what the daemon keeps on disk per update, trend rows and snapshots.
 
 - every update goes into the trend store (``<state_dir>/trends.sqlite``, read by ``rotorwatch trend``);
 - a snapshot (``<state_dir>/snapshots/<id>/``: calibrated waveforms, spectra, a JSON sidecar) is
@@ -14,18 +14,23 @@ from __future__ import annotations
 
 import logging
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..alarms.records import MachineUpdate
 from ..errors import RotorwatchError
+from ..logs import RepeatLimiter, fields
 from ..settings.models import Config, Machine
-from .logs import RepeatLimiter, fields
+from .base import Blocks, Publisher, SinkContext
+
+if TYPE_CHECKING:
+    from ..storage.snapshots import SnapshotInfo
 
 log = logging.getLogger(__name__)
 
 
-def calibrated(blocks_v: dict[str, np.ndarray], machine: Machine) -> dict[str, np.ndarray]:
+def calibrated(blocks_v: Blocks, machine: Machine) -> dict[str, np.ndarray]:
     """Volts at the input -> acceleration in m/s^2, per point (the sensor's sensitivity)."""
     out = {}
     for pid, block in blocks_v.items():
@@ -37,7 +42,15 @@ def calibrated(blocks_v: dict[str, np.ndarray], machine: Machine) -> dict[str, n
     return out
 
 
-class Evidence:
+class Evidence(Publisher):
+    """The trend store and the snapshot store in the state folder (always on: ``[storage]``)."""
+
+    name = "evidence"
+
+    @classmethod
+    def from_config(cls, config: Config, context: SinkContext) -> Evidence:
+        return cls(config, context.state_dir)  # StorageError (one line) if the stores cannot open
+
     def __init__(self, config: Config, state_dir: Path):
         from ..storage.snapshot_policy import SnapshotPolicy
         from ..storage.snapshots import SnapshotStore, config_fingerprint
@@ -56,12 +69,16 @@ class Evidence:
         self.config = config
         self._fingerprint = config_fingerprint(config)
 
+    def reconfigure(self, config: Config) -> bool:
+        self.set_config(config)
+        return False
+
     def _failed(self, what: str, e: Exception) -> None:
         ok, held = self._limiter.allow(what)
         if ok:
             log.error(f"{what} failed: {e}", extra=fields(repeats=held or None))
 
-    def on_update(self, update: MachineUpdate, blocks_v: dict[str, np.ndarray] | None, machine: Machine) -> None:
+    def on_update(self, update: MachineUpdate, blocks_v: Blocks | None, machine: Machine) -> None:
         try:
             self.trends.record(update)
         except (RotorwatchError, OSError) as e:
@@ -73,8 +90,8 @@ class Evidence:
             reason, detail = decision
             self.save(update, blocks_v, machine, reason, detail)
 
-    def save(self, update: MachineUpdate, blocks_v: dict[str, np.ndarray], machine: Machine, reason: str,
-             detail: str):
+    def save(self, update: MachineUpdate, blocks_v: Blocks, machine: Machine, reason: str,
+             detail: str) -> SnapshotInfo | None:
         """Save one snapshot; returns its SnapshotInfo, or None after a (logged) failure."""
         try:
             return self.snapshots.save(update, calibrated(blocks_v, machine), reason=reason, machine=machine,

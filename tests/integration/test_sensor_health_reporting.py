@@ -18,15 +18,15 @@ from prometheus_client.parser import text_string_to_metric_families
 
 from rotorwatch.alarms.records import SensorHealth
 from rotorwatch.pipeline import MachinePipeline
-from rotorwatch.service.metrics import UpdateCollector, make_registry
-from rotorwatch.service.mqtt import MqttLink
-from rotorwatch.service.publisher import UpdatePublisher
-from rotorwatch.service.selfstats import SelfStats
+from rotorwatch.publishers.mqtt.link import MqttLink
+from rotorwatch.publishers.mqtt.sink import UpdatePublisher
+from rotorwatch.publishers.prometheus import UpdateCollector, make_registry
+from rotorwatch.selfstats import SelfStats
 from rotorwatch.settings.loading import load_config
 from rotorwatch.settings.service import MqttSettings
 from rotorwatch.storage.spool import Spool
 
-REPO = Path(__file__).resolve().parents[3]
+REPO = Path(__file__).resolve().parents[2]
 CONFIG = load_config(REPO / "config" / "demo-fan.toml")
 MACHINE = CONFIG.machines[0]
 FS_HZ = CONFIG.acquisition.sample_rate_hz
@@ -63,7 +63,7 @@ def test_prometheus_shows_the_fault_kind_and_the_clipped_share(tmp_path, promtoo
     good, clipped, stalled = updates(tmp_path)
     assert clipped.points["de-h"].state == "sensor_fault"
     stats = SelfStats()
-    stats.inc("sensor_faults", machine="ef3", point="de-h", fault="clipping")
+    stats.sensor_faults.labels(machine="ef3", point="de-h", fault="clipping").inc()
     m, text = scrape(clipped, stats)
     de = (("machine", "ef3"), ("point", "de-h"))
     assert m[("rotorwatch_sensor_check", tuple(sorted((*de, ("check", "clipping")))))] == 1.0
@@ -86,8 +86,8 @@ def test_prometheus_shows_the_fault_kind_and_the_clipped_share(tmp_path, promtoo
 def test_mqtt_records_carry_the_data_quality_block(tmp_path):
     good, clipped, stalled = updates(tmp_path)
     stats = SelfStats()
-    stats.inc("input_overflows", 2)
-    stats.inc("sensor_faults", machine="ef3", point="de-h", fault="clipping")
+    stats.input_overflows.inc(2)
+    stats.sensor_faults.labels(machine="ef3", point="de-h", fault="clipping").inc()
     with Spool(tmp_path / "spool.sqlite") as spool:
         link = MqttLink(MqttSettings(metrics_interval_s=0.001), CONFIG.site.agent_id, tmp_path, stats, spool=spool)
         clock = iter(range(0, 1000, 10))

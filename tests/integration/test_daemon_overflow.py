@@ -12,15 +12,12 @@ simulator's, untouched. Every wait is bounded.
 
 from __future__ import annotations
 
-import sys
 import threading
 from dataclasses import replace
-from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+from rotorwatch.service.daemon import Daemon, RunOptions, default_source_factory
 
-from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-from rotorwatch.service.daemon import Daemon, RunOptions, default_source_factory  # noqa: E402
+from .daemon_support import daemon_config, write_setup
 
 OVERFLOW_AT_CHUNK = 40  # 40 x 4096 frames at 51.2 kHz: 3.2 s in, after the first good updates
 

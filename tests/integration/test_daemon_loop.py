@@ -7,15 +7,12 @@ the daemon runs in a thread (so it installs no signal handlers in the test proce
 
 from __future__ import annotations
 
-import sys
 import threading
 import time
-from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory
 
-from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory  # noqa: E402
+from .daemon_support import daemon_config, write_setup
 
 
 class SlowPipeline:

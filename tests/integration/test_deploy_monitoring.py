@@ -4,9 +4,9 @@
   scrape configuration and the one the compose example assembles from its mounts, and parses every
   dashboard query (written out as recording rules);
 - every metric name and label the rules and the dashboard use must exist in what the daemon exports:
-  a real scrape of :class:`rotorwatch.service.metrics.UpdateCollector` fed with a real
+  a real scrape of :class:`rotorwatch.publishers.prometheus.collector.UpdateCollector` fed with a real
   :class:`~rotorwatch.pipeline.MachinePipeline` update of the demo fan, plus every self-statistic of
-  :mod:`rotorwatch.service.selfstats`;
+  :mod:`rotorwatch.selfstats`;
 - the compose file parses, mounts only files that exist, and the agent configuration it mounts loads
   (machine identical to config/demo-fan.toml) in the folder layout the mounts create.
 
@@ -56,8 +56,8 @@ def exported(tmp_path_factory) -> dict[str, set[str]]:
     from prometheus_client.parser import text_string_to_metric_families
 
     from rotorwatch.pipeline import MachinePipeline
-    from rotorwatch.service.metrics import UpdateCollector, make_registry
-    from rotorwatch.service.selfstats import COUNTERS, GAUGES, SelfStats
+    from rotorwatch.publishers.prometheus import UpdateCollector, make_registry
+    from rotorwatch.selfstats import COUNTERS, GAUGES, SelfStats
     from rotorwatch.settings.loading import load_config
     from rotorwatch.settings.models import AlarmPolicy
 
@@ -75,12 +75,14 @@ def exported(tmp_path_factory) -> dict[str, set[str]]:
         update = pipeline.step(1_767_225_600.0 + 5.0 * k, blocks)
     assert update.state != "learning", update.reason
     stats = SelfStats()
-    for name in COUNTERS:  # every self-statistic, labelled as its help text says it is
-        labels = {"machine": machine.id} if "per machine" in COUNTERS[name] else {}
-        labels |= {"result": "ok"} if "by result" in COUNTERS[name] else {}
-        stats.inc(name, **labels)
-    for name in GAUGES:
-        stats.set(name, 1.0, **({"machine": machine.id} if "per machine" in GAUGES[name] else {}))
+    example = {"machine": machine.id, "point": machine.points[0].id, "result": "ok", "fault": "clipping",
+               "reason": "full"}
+    for name, count in COUNTERS.items():  # every self-statistic, with the labels it is declared with
+        counter = getattr(stats, name)
+        (counter.labels(**{k: example[k] for k in count.labels}) if count.labels else counter).inc()
+    for name, count in GAUGES.items():
+        gauge = getattr(stats, name)
+        (gauge.labels(**{k: example[k] for k in count.labels}) if count.labels else gauge).set(1.0)
     collector = UpdateCollector(config, stats)
     collector.observe(update)
     text = generate_latest(make_registry(collector)).decode()

@@ -9,20 +9,17 @@ analysis reports must be the simulated one.
 
 from __future__ import annotations
 
-import sys
 import threading
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory
+from rotorwatch.settings.loading import load_config
+from rotorwatch.simulators.render import ScenarioRenderer
+from rotorwatch.simulators.scenario import load_scenario
 
-from integration.daemon_support import daemon_config, write_setup  # noqa: E402
-from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory  # noqa: E402
-from rotorwatch.settings.loading import load_config  # noqa: E402
-from rotorwatch.simulators.render import ScenarioRenderer  # noqa: E402
-from rotorwatch.simulators.scenario import load_scenario  # noqa: E402
+from .daemon_support import daemon_config, write_setup
 
 
 class RecordingPipeline:

@@ -25,9 +25,9 @@ from __future__ import annotations
 import json
 import re
 
-from .. import __version__
-from ..alarms.records import STATES
-from ..settings.models import Config
+from ... import __version__
+from ...alarms.records import STATES
+from ...settings.models import Config
 
 DEFAULT_DISCOVERY_PREFIX = "homeassistant"
 _SAFE = re.compile(r"[^A-Za-z0-9_-]")

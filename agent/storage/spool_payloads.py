@@ -1,0 +1,61 @@
+"""What the spool stores on the wire: a record's payload bytes and the topic check.
+
+JSON objects get ``seq`` and ``ts`` first (``{"seq": 17, "ts": 1767225600.123, ...}``); a non-finite
+number becomes null (JSON has no NaN); bytes payloads stay as given. Used by
+:class:`~rotorwatch.storage.spool.Spool` at every append.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Mapping
+from typing import Any
+
+
+def _json_default(obj: Any) -> Any:
+    # numpy scalars and arrays without importing numpy here
+    if hasattr(obj, "tolist"):
+        return obj.tolist()
+    if hasattr(obj, "item"):
+        return obj.item()
+    raise TypeError(f"{type(obj).__name__} is not JSON-serialisable")
+
+
+def _finite_or_none(obj: Any) -> Any:
+    """JSON has no NaN or infinity: a non-finite number becomes null (no value)."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, Mapping):
+        return {k: _finite_or_none(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite_or_none(v) for v in obj]
+    return obj
+
+
+def encode_payload(payload: Mapping[str, Any] | bytes, seq: int, ts_s: float) -> bytes:
+    """The bytes that go on the wire: JSON objects get ``seq`` and ``ts`` first, bytes stay as given."""
+    if isinstance(payload, (bytes, bytearray, memoryview)):
+        return bytes(payload)
+    if not isinstance(payload, Mapping):
+        raise TypeError(f"payload must be a dict or bytes, not {type(payload).__name__}")
+    clash = [k for k in ("seq", "ts") if k in payload]
+    if clash:
+        raise ValueError(f"payload keys {clash} are reserved: the spool adds seq and ts")
+    doc = {"seq": seq, "ts": round(ts_s, 3), **payload}
+    try:
+        text = json.dumps(doc, separators=(",", ":"), allow_nan=False, default=_json_default)
+    except ValueError:
+        text = json.dumps(_finite_or_none(json.loads(json.dumps(doc, default=_json_default))),
+                          separators=(",", ":"), allow_nan=False)
+    return text.encode("utf-8")
+
+
+def check_topic(topic: str) -> None:
+    """Raise ValueError unless ``topic`` is a valid MQTT topic name for publishing."""
+    if not isinstance(topic, str) or not topic:
+        raise ValueError(f"topic {topic!r}: must be a non-empty string")
+    if "+" in topic or "#" in topic or "\0" in topic:
+        raise ValueError(f"topic {topic!r}: wildcards and NUL are not allowed in a published topic")
+    if len(topic.encode("utf-8")) > 65535:
+        raise ValueError(f"topic of {len(topic)} characters: MQTT allows at most 65535 bytes")
