@@ -226,6 +226,8 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         ac_gain[0] = 0.0
 
     ov = machine.overall
+    if ov.low_hz is None:  # a validated Machine has it, configured or chosen from the speed
+        raise ValueError("overall.low_hz is unset: plan from a validated Machine")
     if ov.high_hz >= nyquist:
         raise _too_fast("overall.high_hz", ov.high_hz, fs_hz)
     speed = _speed(machine)
@@ -306,7 +308,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         velocity_weight=vel_w,
         velocity_cutoff_hz=float(cutoff),
         integration_cutoff_hz=float(integration_cutoff),
-        overall_band_hz=(float(ov.low_hz), float(ov.high_hz)),  # type: ignore[arg-type]
+        overall_band_hz=(float(ov.low_hz), float(ov.high_hz)),
         narrow_top_hz=float(min(narrow_top, nyquist)),
         iso_group=machine.iso_group,
         support=machine.support,

@@ -182,7 +182,7 @@ def machine_warnings(m: Machine) -> list[str]:
     if lf is not None:
         df = 1.0 / m.analysis.window_s
         rpm = m.speed.nominal_rpm
-        in_bands = set()  # shaft orders that order or feature bands read
+        in_bands: set[int] = set()  # shaft orders that order or feature bands read
         for band in m.bands:
             if band.quantity == "envelope" or band.low_hz is not None:
                 continue
