@@ -39,7 +39,9 @@ the day numbers. Examples::
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import NoReturn
 
 from .alarms.records import STATES
 from .errors import ConfigError
@@ -119,7 +121,7 @@ class Verdict:
 
 # -------------------------------------------------------------------------------------------- parsing
 class _Tokens:
-    def __init__(self, text: str, fail):
+    def __init__(self, text: str, fail: Callable[[str], NoReturn]):
         self.words = text.split()
         self.i = 0
         self.fail = fail
@@ -137,7 +139,7 @@ class _Tokens:
         if w is None:
             self.fail(f"ends early, expected {what}")
         self.i += 1
-        return w  # type: ignore[return-value]
+        return w
 
     def expect(self, word: str) -> None:
         w = self.take(f"'{word}'")
@@ -166,7 +168,7 @@ def _number(tok: _Tokens, unit_s: float | None) -> tuple[float, float]:
         tok.fail(f"{raw!r} is not a number")
     if not math.isfinite(x) or x < 0:
         tok.fail(f"{raw!r}: a time must be a finite number of days or hours from the start, 0 or more")
-    return x * unit_s, unit_s  # type: ignore[operator]
+    return x * unit_s, unit_s
 
 
 def _window(tok: _Tokens) -> Window:
@@ -268,7 +270,7 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
     Raises :class:`ConfigError` with one line ``where = 'text': problem`` on any mistake.
     """
 
-    def fail(problem: str):
+    def fail(problem: str) -> NoReturn:
         raise ConfigError([f"{where} = {text!r}: {problem}; {GRAMMAR_HINT}"])
 
     tok = _Tokens(text, fail)

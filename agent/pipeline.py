@@ -18,6 +18,7 @@ Not thread-safe: one owner calls :meth:`step`.
 from __future__ import annotations
 
 import logging
+from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
@@ -68,7 +69,7 @@ class MachinePipeline:
     def step(
         self,
         time_s: float,
-        blocks_v: dict[str, np.ndarray | None],
+        blocks_v: Mapping[str, np.ndarray | None],
         rpm: float | None = None,
         *,
         rpm_source: str | None = None,

@@ -100,7 +100,7 @@ def write_wav(path: str | Path, frames: np.ndarray, fs_hz: float, unit: str,
                                  subtype="FLOAT", format="WAV") as f:
             f.comment = comment
             f.write(data)
-    except (OSError, RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
+    except (OSError, RuntimeError, soundfile.LibsndfileError) as e:
         raise InputError(f"{p}: cannot write: {e}") from None
     return p
 
@@ -139,7 +139,7 @@ class Recording:
         try:
             data = self._handle.read(n, dtype="float32" if np.dtype(dtype) == np.float32 else "float64",
                                      always_2d=True)
-        except (RuntimeError, soundfile.LibsndfileError) as e:  # type: ignore[attr-defined]
+        except (RuntimeError, soundfile.LibsndfileError) as e:
             raise InputError(f"{self.path}: read failed at frame {self._pos}: {e}") from None
         self._pos += data.shape[0]
         return data
@@ -202,7 +202,7 @@ def _open_sound(p: Path) -> Recording:
 
     try:
         handle = soundfile.SoundFile(str(p))
-    except soundfile.LibsndfileError as exc:  # type: ignore[attr-defined]
+    except soundfile.LibsndfileError as exc:
         reason = str(exc).split(":", 1)[-1].strip() if ":" in str(exc) else str(exc)
         raise InputError(f"{p}: not a readable sound file ({reason})") from None
     except (OSError, RuntimeError) as exc:
@@ -269,7 +269,9 @@ def _unit_from_sidecar(p: Path, n_channels: int) -> Unit | None:
     name = unit_name(doc["unit"])
     if name is None:
         raise InputError(f"{side}: unit = {doc['unit']!r}: expected one of {', '.join(UNITS)}")
-    chans = doc.get("channels") if isinstance(doc.get("channels"), dict) else {}
+    chans = doc.get("channels")
+    if not isinstance(chans, dict):
+        chans = {}
     sens = _sensitivities([(chans.get(str(c)) or {}).get("volts_per_m_s2") for c in range(n_channels)], n_channels)
     return Unit(name, f"sidecar {side.name}", sens if any(s is not None for s in sens) else ())
 

@@ -17,7 +17,7 @@ A replay is a sequence of :class:`Frame` (one update: a volts block per point) f
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Generator, Iterator
 from dataclasses import dataclass, field
 from datetime import UTC
 from pathlib import Path
@@ -65,7 +65,8 @@ def _tach_pulses(renderer, t_s: float, window_s: float) -> np.ndarray:
     return np.asarray(renderer.speed.time_at_turns(k / n), dtype=float) - t_s
 
 
-def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None, workers: int = 1) -> Iterator[Frame]:
+def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None,
+                    workers: int = 1) -> Generator[Frame, None, None]:
     """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence.
 
     With ``workers`` > 1 the snapshots are drawn in that many worker processes, ahead of the analysis
@@ -190,7 +191,7 @@ def _channel_map(p: Path, machine: Machine, n_channels: int) -> tuple[dict[str, 
     return mapped, unmapped
 
 
-def recording_frames(rec: Recording, rpm: float | None = None) -> Iterator[Frame]:
+def recording_frames(rec: Recording, rpm: float | None = None) -> Generator[Frame, None, None]:
     step_s = rec.window_frames / rec.fs_hz
     for i, blocks in enumerate(rec.windows):
         yield Frame(i * step_s, blocks, rpm)

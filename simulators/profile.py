@@ -67,9 +67,10 @@ class Profile:
 
     def __init__(self, initial: float, ramps: list[Ramp] | tuple[Ramp, ...] = (), hold_after_s: float | None = None):
         ramps = sorted(ramps, key=lambda r: r.start_s)
-        for a, b in zip(ramps, ramps[1:]):
-            if b.start_s < a.end_s:
-                raise ValueError(f"ramps overlap: one ends at {a.end_s:g} s, the next starts at {b.start_s:g} s")
+        for earlier, later in zip(ramps, ramps[1:]):
+            if later.start_s < earlier.end_s:
+                raise ValueError(f"ramps overlap: one ends at {earlier.end_s:g} s, "
+                                 f"the next starts at {later.start_s:g} s")
         # pieces as (start, formula end, v_a, v_b, kind); a piece covers [start, next piece's start)
         raw: list[tuple[float, float, float, float, str]] = []
         t, v = -math.inf, float(initial)

@@ -113,10 +113,13 @@ class ScenarioRenderer:
                 continue
             for pid, gain in affected_points(c, m, structure.cross_transfer).items():
                 if c.component == "sensor":
+                    # Change's validator asks a sensor fault for both
+                    assert c.end_day is not None and c.fault is not None
                     end_s = c.end_day * DAY_S
                     end_s = math.inf if end_s >= hold else end_s  # active at the end: holds beyond it
                     faults[pid].append(FaultSpan(c.start_day * DAY_S, end_s, c.fault, c.fault_value))
                 elif c.component in BEARING_COMPONENTS:
+                    assert c.bearing is not None  # Change's validator asks a bearing component for it
                     defect_ramps.setdefault((pid, c.bearing, c.component), []).append(_ramp(c, gain))
                 else:
                     level_ramps.setdefault((pid, c.component), []).append(_ramp(c))
@@ -287,7 +290,7 @@ class ScenarioRenderer:
             acc = np.zeros(n)
             for i, (tone, level) in enumerate(tones):
                 gain = None
-                if gains is not None:
+                if gains is not None and counts is not None:
                     gain = (np.repeat(gains[i].real, counts), np.repeat(gains[i].imag, counts))
                 acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
             line = self._level(p.id, "twice_line", t, t_a, t_b)

@@ -7,8 +7,10 @@ behind. The fixtures in ``conftest.py`` wrap these classes; tests that need a pr
 example a broker they are going to stop) can build one directly.
 
 A missing program is a test failure, never a skip: :func:`find_binary` calls ``pytest.fail`` with the
-Debian package to install. The one allowed skip is for the recordings in ``../shared/datasets``
-(:func:`shared_datasets_dir`), present in CI and on developer machines but not in a user's clone.
+Debian package to install. The one allowed skip is for what lives in ``../shared`` (the recordings
+of :func:`shared_datasets_dir`, the check values of :func:`shared_references_path`), present in CI and
+on developer machines but not in a user's clone; with ``CI=true`` its absence fails the test instead
+(:func:`require_shared`).
 
 Audio without hardware (PulseAudio's pipe source, per the shared recipes):
 PulseAudio runs in user mode with ``module-pipe-source`` sources; PortAudio reaches them through
@@ -157,9 +159,29 @@ def shared_datasets_dir() -> Path:
     """Where the shared bearing-fault recordings sit: ``../shared/datasets/bearing-faults``.
 
     The repo is cloned next to ``shared/`` on developer machines and in CI; a user's clone has no such
-    folder, and tests reading it then skip (``conftest.shared_datasets`` does that).
+    folder, and tests reading it then skip, or fail in CI (``conftest.shared_datasets``, through
+    :func:`require_shared`).
     """
     return REPO_ROOT.parent / "shared" / "datasets" / "bearing-faults"
+
+
+def shared_references_path() -> Path:
+    """The shared list of check values with their sources and confidence: ``../shared/references.md``."""
+    return REPO_ROOT.parent / "shared" / "references.md"
+
+
+def require_shared(path: Path, what: str, ci: bool | None = None) -> Path:
+    """``path`` when it exists. Otherwise the test fails under CI (``CI=true``, where ``../shared`` must be
+    next to the checkout) and skips elsewhere (a user's clone has no ``../shared``), naming ``what``
+    and the path either way. ``ci`` overrides the environment (for the tests of this rule)."""
+    if path.exists():
+        return path
+    if ci is None:
+        ci = os.environ.get("CI", "").lower() == "true"
+    if ci:
+        pytest.fail(f"{what} missing at {path}: CI=true, and CI runs with ../shared next to the checkout",
+                    pytrace=False)
+    pytest.skip(f"{what} not present at {path} (a clone without ../shared); these tests run in CI")
 
 
 # --------------------------------------------------------------------------------------------------

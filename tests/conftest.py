@@ -2,7 +2,8 @@
 
 The machinery lives in ``tests/components.py``; this file only wires it into pytest scopes. A missing
 program fails the test with the package to install (``bash tests/run-suite`` as root installs them
-all). Nothing here looks at ``CI``: the behaviour is the same everywhere.
+all). Only the ``../shared`` fixtures look at ``CI``: absent, they skip in a user's clone and fail
+when ``CI=true`` (``components.require_shared``); everything else behaves the same everywhere.
 
 Fixtures
 --------
@@ -32,7 +33,10 @@ Fixtures
 ``audio_env`` (function)
     A full environment dict for a subprocess (``rotorwatch run``) that should see the pipe sources.
 ``shared_datasets`` (session)
-    Path of ``../shared/datasets/bearing-faults``; skips with the reason when absent (user's clone).
+    Path of ``../shared/datasets/bearing-faults``; when absent, skips with the reason (a user's clone)
+    or fails (``CI=true``).
+``shared_references`` (session)
+    Path of ``../shared/references.md`` (check values with sources); absent: as above.
 """
 
 from __future__ import annotations
@@ -218,7 +222,9 @@ def audio_env(pulse_audio):
 
 @pytest.fixture(scope="session")
 def shared_datasets() -> Path:
-    path = shared_datasets_dir()
-    if not path.is_dir():
-        pytest.skip(f"shared datasets not present at {path}: the real-recording tests run in CI")
-    return path
+    return components.require_shared(shared_datasets_dir(), "shared datasets")
+
+
+@pytest.fixture(scope="session")
+def shared_references() -> Path:
+    return components.require_shared(components.shared_references_path(), "shared check values")

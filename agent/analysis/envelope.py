@@ -291,8 +291,8 @@ class EnvelopeKernel:
                 f"no envelope band of at least {plan.min_bandwidth_hz:g} Hz fits between auto_min_hz = "
                 f"{plan.auto_min_hz:g} Hz and {plan.auto_max_hz:g} Hz"
             )
-        score, sk, k_lo, k_w = best
-        return BandChoice((k_lo * df, (k_lo + k_w - 1) * df), sk, score)  # its first and last line
+        best_score, sk, k_lo, k_w = best
+        return BandChoice((k_lo * df, (k_lo + k_w - 1) * df), sk, best_score)  # its first and last line
 
     def band_signal(self, bs: BlockSpectrum, band_hz: tuple[float, float]) -> tuple[np.ndarray, float, tuple[float, float]]:
         """Analytic signal of the band, shifted down by its low edge, at the reduced rate: (z, fs_c, band).

@@ -300,6 +300,8 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     ac_gain = _ac_power_gain(point.sensor.ac_coupling_corner_hz, freqs)
 
     ov = machine.overall
+    if ov.low_hz is None:  # a validated Machine has it, configured or chosen from the speed
+        raise ValueError("overall.low_hz is unset: plan from a validated Machine")
     if ov.high_hz >= nyquist:
         raise _too_fast("overall.high_hz", ov.high_hz, fs_hz)
     speed = _speed(machine)
@@ -331,7 +333,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
         velocity_weight=vel_w,
         velocity_cutoff_hz=float(cutoff),
         integration_cutoff_hz=float(integration_cutoff),
-        overall_band_hz=(float(ov.low_hz), float(ov.high_hz)),  # type: ignore[arg-type]
+        overall_band_hz=(float(ov.low_hz), float(ov.high_hz)),
         narrow_top_hz=float(min(narrow_top, nyquist)),
         iso_group=machine.iso_group,
         support=machine.support,

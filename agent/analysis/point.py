@@ -92,8 +92,10 @@ class PointAnalyzer:
         """Speed change over the window (% of the mean) from the speed estimated in each half, searched
         within +/- 8 % of the whole window's estimate; None when either half shows no clear speed."""
         sp = self.plan.speed
-        lo = max(rpm * (1 - HALF_SEARCH), sp.min_rpm)  # type: ignore[type-var]
-        hi = min(rpm * (1 + HALF_SEARCH), sp.max_rpm)  # type: ignore[type-var]
+        if sp.min_rpm is None or sp.max_rpm is None:  # only an estimated speed gets here, and it has both
+            return None
+        lo = max(rpm * (1 - HALF_SEARCH), sp.min_rpm)
+        hi = min(rpm * (1 + HALF_SEARCH), sp.max_rpm)
         half = x0.size // 2
         rpms = []
         for part in (x0[:half], x0[half: 2 * half]):

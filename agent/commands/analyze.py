@@ -154,7 +154,7 @@ def parse_bearing(spec: str, index: int) -> dict[str, Any]:
     if unknown:
         raise InputError(f"--bearing {spec!r}: unknown key {', '.join(unknown)} (known: {', '.join(sorted(known))})")
     out: dict[str, Any] = {"id": fields.get("name", f"b{index}")}
-    multiples = [k for k in ("bpfo", "bpfi", "bsf", "ftf") if k in fields]
+    multiples: list[str] = [k for k in ("bpfo", "bpfi", "bsf", "ftf") if k in fields]
     if multiples:
         for k in multiples:
             out[k] = _number(spec, k, fields[k])

@@ -183,7 +183,7 @@ def machine_warnings(m: Machine) -> list[str]:
     if lf is not None:
         df = 1.0 / m.analysis.window_s
         rpm = m.speed.nominal_rpm
-        in_bands = set()  # shaft orders that order or feature bands read
+        in_bands: set[int] = set()  # shaft orders that order or feature bands read
         for band in m.bands:
             if quantity(band.quantity).demodulated or not band.follows_speed:
                 continue

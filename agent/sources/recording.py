@@ -54,7 +54,7 @@ class RecordingSource(Source):
         self.pace = pace
         self.speedup = float(speedup)
         self.passes = 0  # completed passes through the file
-        self._file = None
+        self._file: Recording | None = None
         self._pacer: Pacer | None = None
         self._t_start = 0.0
         self._frames_out = 0
@@ -92,8 +92,8 @@ class RecordingSource(Source):
         return rec
 
     def _open(self) -> None:
-        self._file = self._open_file()
-        self._file.seek(0)
+        self._file = f = self._open_file()
+        f.seek(0)
         self._pacer = Pacer(self.fs_hz, rate=self.speedup) if self.pace else None
         self._t_start = time.time()
         self._frames_out = 0

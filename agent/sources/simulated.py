@@ -29,13 +29,16 @@ import logging
 import math
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from ..errors import ConfigError, InputError
 from .base import Chunk, Source, as_frames, resolve_path
 from .pacing import Pacer
+
+if TYPE_CHECKING:
+    from rotorwatch.simulators.render import ScenarioRenderer
 
 log = logging.getLogger(__name__)
 
@@ -60,7 +63,7 @@ class SimulatedSource(Source):
         # whole blocks per segment, at least one
         self.segment_blocks = max(1, math.ceil(seg * fs_hz / block_frames - 1e-9)) if seg > 0 else 1
         self.duration_s = float(getattr(scenario, "duration_s", math.inf) or math.inf)
-        self._renderer = None
+        self._renderer: ScenarioRenderer | None = None
         self._stream: Iterator | None = None
         self._pacer: Pacer | None = None
         self._t_next = self.start_s       # scenario time of the next frame
@@ -71,12 +74,14 @@ class SimulatedSource(Source):
     def segment_s(self) -> float:
         return self.segment_blocks * self.block_frames / self.fs_hz
 
-    def _make_renderer(self):
+    def _make_renderer(self) -> ScenarioRenderer:
         from rotorwatch.simulators.render import ScenarioRenderer
 
         return ScenarioRenderer(self.scenario)
 
     def _begin_stream(self, at_s: float) -> None:
+        if self._renderer is None:
+            self._renderer = self._make_renderer()
         self._stream = iter(self._renderer.stream(self.fs_hz, self.block_frames, start_s=at_s, channels=self.channels))
         self._t_next = at_s
         self._blocks_in_segment = 0
@@ -97,8 +102,6 @@ class SimulatedSource(Source):
 
     def _open(self) -> None:
         self.check()
-        if self._renderer is None:
-            self._renderer = self._make_renderer()
         self._begin_stream(self.start_s)
         self._pacer = Pacer(self.fs_hz) if self.pace else None
         self._gap_next = self.stats.restarts > 0
@@ -116,8 +119,11 @@ class SimulatedSource(Source):
                 return None
             self._begin_stream(0.0)
             self._gap_next = True
+        stream = self._stream
+        if stream is None:
+            return None
         try:
-            t0, frames = next(self._stream)
+            t0, frames = next(stream)
         except StopIteration:
             return None
         frames = as_frames(frames, self.channels, f"simulated scenario {self.name!r}")

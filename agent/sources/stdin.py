@@ -137,10 +137,9 @@ class RawStreamSource(Source):
         except (OSError, AttributeError):  # AttributeError: no F_SETPIPE_SZ outside Linux
             return DEFAULT_BUFFER_BYTES
 
-    def _fill(self, deadline: float) -> None:
-        """Read what is available until a whole block is buffered, EOF, or the deadline."""
+    def _fill(self, fd: int, deadline: float) -> None:
+        """Read what is available from ``fd`` until a whole block is buffered, EOF, or the deadline."""
         want = self.block_frames * self.frame_bytes
-        fd = self._fd
         while len(self._buffer) < want and not self._eof and self._running:
             wait = max(0.0, min(0.1, deadline - time.monotonic()))
             try:
@@ -172,11 +171,12 @@ class RawStreamSource(Source):
 
     def _read(self, timeout_s: float) -> Chunk | None:
         with self._fd_lock:
-            if self._fd is None:
+            fd = self._fd
+            if fd is None:
                 return None
             self._reading = True
         try:
-            self._fill(time.monotonic() + timeout_s)
+            self._fill(fd, time.monotonic() + timeout_s)
         finally:
             with self._fd_lock:
                 self._reading = False

@@ -23,6 +23,7 @@ is under ``quota_bytes``; the snapshot just saved is always kept.
 
 from __future__ import annotations
 
+import builtins
 import hashlib
 import json
 import logging
@@ -252,7 +253,9 @@ class SnapshotStore:
                         arrays[f"{q}_unit"] = np.array(spec.unit)
                 if arrays:
                     name = f"{pid}.spectra.npz"
-                    np.savez_compressed(folder / name, **arrays)
+                    # numpy's stubs type the keyword arrays against its own allow_pickle flag
+                    save_arrays: Callable[..., None] = np.savez_compressed
+                    save_arrays(folder / name, **arrays)
                     entry["spectra_file"] = name
             if machine is not None and shaft_hz:
                 entry["bands"] = bands_for(machine, pid, shaft_hz)
@@ -349,7 +352,7 @@ class SnapshotStore:
     def delete(self, snap_id: str) -> None:
         shutil.rmtree(self._folder(snap_id))
 
-    def prune(self, keep: str | None = None) -> list[str]:
+    def prune(self, keep: str | None = None) -> builtins.list[str]:
         """Delete the oldest snapshots until the total is within the quota; returns the ids deleted."""
         infos = self.list()
         total = sum(i.size_bytes for i in infos)

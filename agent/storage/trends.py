@@ -279,7 +279,8 @@ class TrendStore:
               since_s: float | None = None, until_s: float | None = None,
               limit: int | None = None) -> list[TrendRow]:
         """Rows matching every given filter, oldest first; ``limit`` keeps the newest ``limit`` rows."""
-        where, args = [], []
+        where: list[str] = []
+        args: list[str | float | int] = []
         for column, wanted in (("s.machine", machine), ("s.point", point), ("s.name", value)):
             if wanted is not None:
                 where.append(f"{column} = ?")

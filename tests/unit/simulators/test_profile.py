@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
 from scipy.integrate import quad
@@ -25,8 +23,12 @@ def test_values_of_each_shape():
     assert p.value(20.0) == pytest.approx(5.0)
     assert p.value(24.999) == pytest.approx(5.0)
     assert p.value(25.0) == 2.0  # a step takes effect at its start
-    x = 0.5
-    assert p.value(40.0) == pytest.approx(2.0 + 6.0 * math.expm1(EXP_GROWTH * x) / math.expm1(EXP_GROWTH))
+    # An exponential ramp is at 12 % of its change half-way and 36 % at three quarters (EXP_GROWTH's
+    # comment); to four places, worked by hand with k = 4: (e^2 - 1)/(e^4 - 1) = 1/(1 + e^2) = 0.1192
+    # and (e^3 - 1)/(e^4 - 1) = 19.0855/53.5982 = 0.3561. The ramp runs from 2.0 to 8.0 over 30..50 s.
+    assert EXP_GROWTH == 4.0
+    assert p.value(40.0) == pytest.approx(2.0 + 6.0 * 0.1192, abs=6.0 * 1e-4)
+    assert p.value(45.0) == pytest.approx(2.0 + 6.0 * 0.3561, abs=6.0 * 1e-4)
     assert p.value(50.0) == pytest.approx(8.0)
     assert p.value(1e9) == pytest.approx(8.0)
     assert np.allclose(p.value(np.array([5.0, 15.0, 60.0])), [1.0, 3.0, 8.0])

