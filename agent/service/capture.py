@@ -34,6 +34,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from ..errors import RotorwatchError
 from ..logs import RepeatLimiter, fields
@@ -107,7 +108,7 @@ class Capture:
         self.last_data_monotonic: float | None = None
         self._last_overflow_s: float | None = None  # mapped time of the newest overflowed chunk's first frame
         self.overflows = 0
-        self.source = None
+        self.source: Any = None
 
     # -- status ----------------------------------------------------------------------------------
     @property

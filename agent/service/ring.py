@@ -22,7 +22,7 @@ class Ring:
         if capacity < 1:
             raise ValueError(f"ring capacity must be at least 1 sample, got {capacity}")
         self.capacity = int(capacity)
-        self._buf = np.zeros(self.capacity, dtype=dtype)
+        self._buf: np.ndarray = np.zeros(self.capacity, dtype=dtype)
         self._head = 0  # index of the next sample to write
         self._filled = 0  # valid samples since the last reset (<= capacity)
         self.total = 0  # samples ever written

@@ -146,7 +146,7 @@ class Spool:
         self._in_flight: dict[int, int] = {}  # seq -> mid
         self._listeners: list[Callable[[int], None]] = []
         self._event_warned_s = float("-inf")
-        self._lock_fd = self._take_file_lock()
+        self._lock_fd: int | None = self._take_file_lock()
         try:
             self._db = self._open()
             self._load()

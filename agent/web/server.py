@@ -70,7 +70,7 @@ def read_token(path: str | Path) -> str:
     try:
         token = Path(path).read_text(encoding="utf-8").strip()
     except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError([f"status_page.token_file = {str(path)!r}: cannot read it: {exc.strerror or exc}"]) from exc
+        raise ConfigError([f"status_page.token_file = {str(path)!r}: cannot read it: {getattr(exc, 'strerror', None) or exc}"]) from exc
     if len(token) < 16:
         raise ConfigError([f"status_page.token_file = {str(path)!r}: the token must be at least 16 characters "
                            f"(got {len(token)}); e.g. python3 -c 'import secrets; print(secrets.token_urlsafe(32))'"])

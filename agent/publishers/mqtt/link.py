@@ -117,8 +117,8 @@ class MqttLink:
         s = self.settings
         protocol = mqtt.MQTTv5 if s.protocol == "5" else mqtt.MQTTv311
         client_id = s.client_id or f"rotorwatch-{self.agent_id}"
-        kwargs = {} if protocol == mqtt.MQTTv5 else {"clean_session": True}
-        c = _Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol, **kwargs)
+        clean_session = None if protocol == mqtt.MQTTv5 else True  # MQTT 5 has clean_start instead
+        c = _Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol, clean_session=clean_session)
         if s.tls:
             ca, cert, key = self._path(s.ca_file), self._path(s.client_cert_file), self._path(s.client_key_file)
             for label, path in (("ca_file", ca), ("client_cert_file", cert), ("client_key_file", key)):
@@ -145,8 +145,10 @@ class MqttLink:
         self._client = self.build_client()
         self.stats.mqtt_connected.set(0)  # exposed from the start, not only after a first connect
         s = self.settings
-        clean = {"clean_start": True} if s.protocol == "5" else {}
-        self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, **clean)
+        if s.protocol == "5":
+            self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s, clean_start=True)
+        else:
+            self._client.connect_async(s.host, s.port, keepalive=s.keepalive_s)
         self._client.loop_start()
         self.outbox.start()
         log.info("mqtt connecting in the background", extra=fields(
@@ -171,7 +173,7 @@ class MqttLink:
         if gone:
             c.unsubscribe(gone)
         if new:
-            c.subscribe([(t, self.settings.qos) for t in new])
+            c.subscribe([(t, int(self.settings.qos)) for t in new])
 
     def stop(self, flush_timeout_s: float = 3.0) -> None:
         """Publish retained ``offline``, wait (bounded) for outstanding messages, disconnect."""
