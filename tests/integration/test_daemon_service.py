@@ -79,7 +79,7 @@ def test_wrong_password_is_reported_once_and_the_daemon_keeps_running(mosquitto_
                                                   "reconnect_min_s": 0.5, "reconnect_max_s": 1.0})
     d = DaemonProcess(write_setup(tmp_path, cfg))
     daemons.append(d)
-    assert d.wait_log(r"ERROR service\.mqtt mqtt broker refused the connection: Not authorized", 20), d.describe()
+    assert d.wait_log(r"ERROR publishers\.mqtt\.link mqtt broker refused the connection: Not authorized", 20), d.describe()
     # retries go on with back-off, quietly: the count grows in the metrics, not in the log
     assert wait_until(lambda: counter(d.scrape(), "rotorwatch_mqtt_connect_failures_total") >= 3, 15), d.describe()
     refused = [ln for ln in d.log().splitlines() if "refused the connection" in ln]

@@ -127,7 +127,7 @@ def test_a_broker_certificate_from_another_ca_is_refused(mosquitto_tls_broker, t
             assert wait_until(lambda: (metric(d, "rotorwatch_updates_total") or 0) >= 1, 30), d.describe()
             assert metric(d, "rotorwatch_mqtt_connected") == 0 and d.alive()
             assert not listener.messages  # nothing reached the broker: the password was never sent to it
-        line = d.wait_log(r"^ERROR service\.mqtt mqtt TLS handshake with the broker failed: .*certificate verify failed", 5)
+        line = d.wait_log(r"^ERROR publishers\.mqtt\.link mqtt TLS handshake with the broker failed: .*certificate verify failed", 5)
         assert line, d.describe()
     finally:
         rc = d.stop()
