@@ -195,7 +195,7 @@ class Capture:
                     if self.status.state == "unavailable":
                         self._set_status("starting", "source opened, waiting for samples")
                 try:
-                    chunk = self.source.read(self.read_timeout_s)  # type: ignore[attr-defined]
+                    chunk = self.source.read(self.read_timeout_s)
                 except (RotorwatchError, OSError, ValueError) as e:
                     self._set_status("unavailable", f"read failed: {str(e).splitlines()[0] if str(e) else type(e).__name__}")
                     self._close_source()
