@@ -62,11 +62,11 @@ def test_deployment_lock_pins_every_runtime_dependency_within_its_range():
 def test_the_installed_versions_have_the_interfaces_the_floors_are_set_by():
     # Run at the floors (CI's lowest-versions pass), this shows each named interface exists there;
     # one version below, it does not (checked when the floors were set: scipy 1.14.0 has no
-    # signal.freqz_sos, paho-mqtt 2.1.0 no Client.drop_out_messages).
+    # signal.freqz_sos; paho-mqtt before 2.0 has no CallbackAPIVersion).
     import paho.mqtt.client
     import scipy.fft
     import scipy.signal
 
     assert callable(scipy.signal.freqz_sos)
     assert callable(scipy.fft.prev_fast_len)
-    assert callable(paho.mqtt.client.Client.drop_out_messages)
+    assert paho.mqtt.client.CallbackAPIVersion.VERSION2
