@@ -54,7 +54,7 @@ def test_soundcard_source_captures_the_fed_signal_at_real_time(audio_device):
     src.start()  # capture first: a pipe source drops what is written while nothing records
     feed = audio_device.feed(fed, "rw_pipe_2ch")
     try:
-        chunks = _read_frames(src, fed.shape[0], timeout_s=10.0)
+        chunks = _read_frames(src, fed.shape[0], timeout_s=30.0)  # a bound, not a pace: load only makes it later
     finally:
         feed.stop()  # the writer before the stream (recipes)
         src.close()
