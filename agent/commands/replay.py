@@ -24,6 +24,7 @@ from pathlib import Path
 
 from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
+from ..heap import hold_freed_memory
 from ..replay import (
     UNITS,
     ReplayLog,
@@ -126,6 +127,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
     if args.workers < 1:
         raise InputError(f"--workers = {args.workers}: must be at least 1")
+    hold_freed_memory()  # a batch run: reuse freed arrays instead of paging them in again (heap.py)
     scenario = renderer = None
     if args.scenario:
         scenario, renderer = _open_scenario(args)
