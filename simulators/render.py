@@ -280,7 +280,7 @@ class ScenarioRenderer:
             acc = np.zeros(n)
             for i, (tone, level) in enumerate(tones):
                 gain = None
-                if gains is not None:
+                if gains is not None and counts is not None:
                     gain = BlockGain(gains[i].real, gains[i].imag, counts, GAIN_BLOCK)
                 acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
             line = self._level(p.id, "twice_line", t, t_a, t_b)

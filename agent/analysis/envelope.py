@@ -313,7 +313,7 @@ class EnvelopeKernel:
         plan, df = self.plan, bs.df_hz
         k_min = int(math.ceil(plan.auto_min_hz / df))
         k_max = min(int(plan.auto_max_hz / df), bs.spec.size - 1)
-        best: tuple[float, float, int, int] | None = None  # (score, sk, k_lo, k_w)
+        best: tuple[float, int, int] | None = None  # (score, k_lo, k_w)
         width = min(0.25 * self.fs_hz, (k_max - k_min) * df)
         while width >= plan.min_bandwidth_hz * (1 - 1e-9):
             k_w = scipy.fft.prev_fast_len(max(int(width / df), 8))
@@ -330,9 +330,9 @@ class EnvelopeKernel:
                 f"no envelope band of at least {plan.min_bandwidth_hz:g} Hz fits between auto_min_hz = "
                 f"{plan.auto_min_hz:g} Hz and {plan.auto_max_hz:g} Hz"
             )
-        score, k_lo, k_w = best
+        best_score, k_lo, k_w = best
         sk = self._band_kurtosis(bs, k_lo, k_w)
-        return BandChoice((k_lo * df, (k_lo + k_w - 1) * df), sk, score)  # its first and last line
+        return BandChoice((k_lo * df, (k_lo + k_w - 1) * df), sk, best_score)  # its first and last line
 
     def _band_kurtosis(self, bs: BlockSpectrum, k_lo: int, k_w: int) -> float:
         """SK of one band's critically sampled signal, its taper applied in double precision: the figure

@@ -138,10 +138,10 @@ def local_maxima(x: np.ndarray) -> np.ndarray:
         return rises[x[rises] > x[rises + 1]]
     peaks = []
     n, i = x.size, 1
-    for i0 in rises:
+    for i0 in rises.tolist():
         if i0 < i:
             continue  # inside a flat stretch already walked
-        ahead = i0 + 1
+        ahead = int(i0) + 1
         while ahead < n - 1 and x[ahead] == x[i0]:
             ahead += 1
         if x[ahead] < x[i0]:

@@ -39,6 +39,7 @@ import sys
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -155,11 +156,10 @@ class FftRecorder:
         rng = np.random.default_rng(0)
         jobs = []
         for name, shape, dtype, kw in self.calls:
-            x = rng.standard_normal(shape).astype(np.float32 if dtype.kind == "f" else np.float64)
+            x: np.ndarray = rng.standard_normal(shape)
             if dtype.kind == "c":
-                x = (x + 1j * rng.standard_normal(shape)).astype(dtype)
-            else:
-                x = x.astype(dtype)
+                x = x + 1j * rng.standard_normal(shape)
+            x = x.astype(dtype)
             args = kw.pop("args")
             jobs.append((getattr(scipy.fft, name), x, args, kw))
 
@@ -171,11 +171,10 @@ class FftRecorder:
 
 def plain_scipy(fs_hz: float, plan, band_hz: tuple[float, float]) -> Callable[[np.ndarray], None]:
     """The pipeline a user would write per window (see the module docstring)."""
-    import scipy.fft  # noqa: PLC0415
-
     sos: list[np.ndarray] = []
 
     def run(x: np.ndarray) -> None:
+        import scipy.fft  # noqa: PLC0415
         import scipy.signal  # noqa: PLC0415 - on first use: the peak RSS of rotorwatch's methods is read before
 
         if not sos:
@@ -214,7 +213,7 @@ def _row_methods(fs_hz: float, channels: int, window_s: float, interval_s: float
     with FftRecorder() as rec:
         fix[0].analyze(wins[0][0])
     floor_one = rec.replayer()
-    plain = plain_scipy(fs_hz, fix[0].plan, fixed.analysis.envelope.band_hz)  # type: ignore[arg-type]
+    plain = plain_scipy(fs_hz, fix[0].plan, (2000.0, 7000.0))  # the bench machine's fixed band
 
     def each(call: Callable[[int, int], object]) -> Callable[[], None]:
         def run() -> None:
@@ -297,6 +296,13 @@ def _machine_line() -> str:
             f"numpy {np.__version__}, scipy {scipy.__version__}")
 
 
+def _analyzing(analyzer: Any, wins: list[np.ndarray]) -> Callable[[], None]:
+    def run() -> None:
+        for w in wins:
+            analyzer.analyze(w)
+    return run
+
+
 SCALING = ((51200.0, 1.0), (51200.0, 4.0), (51200.0, 16.0), (12800.0, 4.0), (25600.0, 4.0), (102400.0, 4.0))
 
 
@@ -304,7 +310,7 @@ def _scaling(out, repeat: int) -> None:
     """The fixed path's CPU time per window sample over window lengths and rates (settings scaled)."""
     from ..analysis.point import PointAnalyzer  # noqa: PLC0415
 
-    cases = []
+    cases: list[tuple[float, float, Any, list[np.ndarray], list[float]]] = []
     for fs, window_s in SCALING:
         m = bench_machine(True, window_s=window_s, fmax_hz=fs / 5.12, band_hz=(fs / 25.6, fs / 7.3))
         a = PointAnalyzer(m, m.points[0], fs)
@@ -315,7 +321,7 @@ def _scaling(out, repeat: int) -> None:
         cases.append((fs, window_s, a, wins, []))
     for _ in range(repeat):
         for _, _, a, wins, times in cases:
-            times.append(_time(lambda a=a, wins=wins: [a.analyze(w) for w in wins]) / sum(w.size for w in wins))
+            times.append(_time(_analyzing(a, wins)) / sum(w.size for w in wins))
     out.write("\nfixed path, CPU per window sample (ns), median (min-max); spectrum to rate / 5.12, envelope band "
               "rate / 25.6 .. rate / 7.3:\n")
     for fs, window_s, _, _, times in cases:
@@ -337,7 +343,7 @@ def run(args: argparse.Namespace) -> int:
             setups.append(_row_methods(fs, n_ch, args.window, args.update_interval, args.duration, signals))
     order = [m for m in METHODS if m != "scipy plain"]
     rss_ours = None
-    for rep in range(args.repeat):
+    for _ in range(args.repeat):
         for row, methods in setups:
             for m in order:
                 row.times.setdefault(m, []).append(_time(methods[m]))

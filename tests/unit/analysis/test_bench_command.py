@@ -12,7 +12,7 @@ def test_bench_prints_a_row_per_case(capsys):
     out = capsys.readouterr().out
     assert rc == 0
     cell = r"(\d+) \((\d+)-(\d+)\)"
-    rows = re.findall(rf"^\s+25\.6 kHz\s+(\d)\s+" + r"\s+".join([cell] * 5), out, re.M)
+    rows = re.findall(r"^\s+25\.6 kHz\s+(\d)\s+" + r"\s+".join([cell] * 5), out, re.M)
     assert [r[0] for r in rows] == ["1", "2"]
     for r in rows:
         figures = [int(v) for v in r[1:]]
