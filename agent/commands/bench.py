@@ -1,7 +1,7 @@
 """``rotorwatch bench``: how fast the point analysis runs against its own FFT floor and a plain scipy
 pipeline, and how much memory it takes.
 
-It analyses what the daemon analyses: a continuous synthetic signal per channel (noise, shaft tones, an
+It analyzes what the daemon analyzes: a continuous synthetic signal per channel (noise, shaft tones, an
 impact train ringing a 3 kHz resonance) cut into overlapping windows (``--window``, default 4 s) advanced by
 the update interval (``--update-interval``, default 1 s), 3200 lines to 10 kHz. Per row (sampling rate,
 channel count) it times, in one process, with the repeats interleaved (every method of every row once, then
