@@ -49,6 +49,10 @@ def _init_worker(scenario) -> None:
     global _worker_renderer
     from rotorwatch.simulators.render import ScenarioRenderer
 
+    from .heap import hold_freed_memory
+
+    hold_freed_memory()  # inherited through fork, not through spawn
+
     _worker_renderer = ScenarioRenderer(scenario)
 
 

@@ -68,19 +68,55 @@ class ShaftPhasor:
         return self._powers[k]
 
     def tone(self, order: float, velocity_mm_s, phase_rad: float, gain=None) -> np.ndarray:
-        """Like :func:`order_tone`, ``gain`` included."""
+        """Like :func:`order_tone`, ``gain`` included. ``gain`` may also be a :class:`BlockGain` (the
+        response held over blocks of samples): the products with it are then made once per block."""
         if order != int(order) or order < 1:
+            if isinstance(gain, BlockGain):
+                gain = gain.per_sample()
             return order_tone(self.frac_turns, self.shaft_hz, order, velocity_mm_s, phase_rad, gain)
         amp_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(self.shaft_hz)
         z = self._power(int(order))
         c = complex(math.cos(phase_rad), math.sin(phase_rad))
         if gain is None:
             return amp_m_s2 * (z.real * c.real - z.imag * c.imag)
+        if isinstance(gain, BlockGain):
+            # Re(z c g) with c g = (c.re g_re - c.im g_im) + i (c.re g_im + c.im g_re), per block; every
+            # sample's value is the same product as with per-sample gains, made in the same order
+            cg_re = gain.apply(c.real * gain.re - c.imag * gain.im)
+            cg_im = gain.apply(c.real * gain.im + c.imag * gain.re)
+            out = gain.multiply(z.real, cg_re)
+            out -= gain.multiply(z.imag, cg_im)
+            out *= amp_m_s2
+            return out
         g_re, g_im = gain if isinstance(gain, tuple) else (np.real(gain), np.imag(gain))
-        # Re(z c g) with c g = (c.re g_re - c.im g_im) + i (c.re g_im + c.im g_re)
         cg_re = c.real * g_re - c.imag * g_im
         cg_im = c.real * g_im + c.imag * g_re
         return amp_m_s2 * (z.real * cg_re - z.imag * cg_im)
+
+
+class BlockGain:
+    """A complex response held constant over runs of samples: ``re[i] + 1j im[i]`` for ``counts[i]``
+    samples each. Products with a per-sample array are made by broadcasting over whole blocks when the
+    runs are all ``block`` long, else after repeating the values per sample."""
+
+    def __init__(self, re: np.ndarray, im: np.ndarray, counts: np.ndarray, block: int):
+        self.re, self.im, self.counts = re, im, counts
+        self.n = int(counts.sum())
+        self.even = bool(np.all(counts == block))
+        self.block = block
+
+    def apply(self, per_block: np.ndarray) -> np.ndarray:
+        """Values per block, shaped for :meth:`multiply`."""
+        return per_block[:, None] if self.even else np.repeat(per_block, self.counts)
+
+    def multiply(self, x: np.ndarray, applied: np.ndarray) -> np.ndarray:
+        """``x * applied`` per sample (a fresh array of ``x``'s length)."""
+        if self.even:
+            return (x.reshape(-1, self.block) * applied).reshape(-1)
+        return x * applied
+
+    def per_sample(self) -> tuple[np.ndarray, np.ndarray]:
+        return np.repeat(self.re, self.counts), np.repeat(self.im, self.counts)
 
 
 class ImpactKernel:

@@ -38,7 +38,7 @@ from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Config, Machine
 
 from .chain import GAIN_BLOCK, ChainResponse, ChainSettings, ShapedNoise
-from .components import ImpactKernel, ShaftPhasor, ring
+from .components import BlockGain, ImpactKernel, ShaftPhasor, ring
 from .impacts import ImpactTrain
 from .profile import Profile, Ramp
 from .randomness import generator, stream_key, white_noise
@@ -258,9 +258,8 @@ class ScenarioRenderer:
     def _accel(self, n0: int, n: int, fs_hz: float, through_chain: bool = False) -> dict[str, np.ndarray]:
         t = (n0 + np.arange(n)) / fs_hz
         t_a, t_b = n0 / fs_hz, (n0 + n) / fs_hz
-        turns = self.speed.turns(t)
+        turns, shaft_hz = self.speed.turns_and_hz(t)
         frac = turns - np.floor(turns)
-        shaft_hz = self.speed.shaft_hz(t)
         f_max = float(np.max(shaft_hz)) if n else 0.0
         nyquist = 0.5 * fs_hz
         events = {
@@ -291,7 +290,7 @@ class ScenarioRenderer:
             for i, (tone, level) in enumerate(tones):
                 gain = None
                 if gains is not None and counts is not None:
-                    gain = (np.repeat(gains[i].real, counts), np.repeat(gains[i].imag, counts))
+                    gain = BlockGain(gains[i].real, gains[i].imag, counts, GAIN_BLOCK)
                 acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
             line = self._level(p.id, "twice_line", t, t_a, t_b)
             if self.line_frequency_hz and np.any(line > 0) and 2.0 * self.line_frequency_hz < nyquist:

@@ -67,6 +67,22 @@ class SpeedModel:
         drift_int = sum(a / w * (math.cos(p) - np.cos(w * t + p)) for a, w, p in zip(self._amp, self._omega, self._psi))
         return self.rpm_profile.integral(t) / 60.0 + self.nominal_hz * drift_int
 
+    def turns_and_hz(self, t_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`turns` and :meth:`shaft_hz` of one array of times, the drift's phases computed once
+        (the same values, bit for bit, as the two calls)."""
+        t = np.asarray(t_s, dtype=float)
+        if not self._amp.any():
+            return self.turns(t), self.shaft_hz(t)
+        drift = drift_int = 0
+        for a, w, p in zip(self._amp, self._omega, self._psi):
+            arg = w * t + p
+            drift = drift + a * np.sin(arg)
+            np.cos(arg, out=arg)
+            drift_int = drift_int + a / w * (math.cos(p) - arg)
+        hz = self.rpm_profile.value(t) / 60.0 + self.nominal_hz * drift
+        turns = self.rpm_profile.integral(t) / 60.0 + self.nominal_hz * drift_int
+        return turns, hz
+
     def time_at_turns(self, turns):
         """Times at which the shaft has made ``turns`` revolutions (Newton's method on :meth:`turns`).
 

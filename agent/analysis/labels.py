@@ -116,11 +116,51 @@ def name_line(hz: float, lines: list[Line], df_hz: float, tolerance: float = 0.0
 
 def strongest_peaks(freqs_hz: np.ndarray, amplitude: np.ndarray, count: int = 8, min_hz: float = 0.0,
                     min_spacing_hz: float = 1.5) -> list[tuple[float, float]]:
-    """The ``count`` highest local maxima above ``min_hz``, at least ``min_spacing_hz`` apart: (hz, amplitude)."""
-    from scipy.signal import find_peaks  # noqa: PLC0415 - reports only
+    """The ``count`` highest local maxima above ``min_hz``, at least ``min_spacing_hz`` apart: (hz, amplitude).
 
+    The peaks are those of ``scipy.signal.find_peaks(amplitude, distance=...)`` (the unit tests hold the
+    two equal), found here with numpy so that reports do not load ``scipy.signal`` (and ``scipy.stats``
+    with it: some 50 MB of resident memory)."""
     df = float(freqs_hz[1] - freqs_hz[0]) if freqs_hz.size > 1 else 1.0
-    idx, _ = find_peaks(amplitude, distance=max(int(min_spacing_hz / df), 1))
+    idx = _spaced_peaks(np.asarray(amplitude, dtype=float), max(int(min_spacing_hz / df), 1))
     idx = idx[freqs_hz[idx] >= min_hz]
     top = idx[np.argsort(amplitude[idx])[::-1][:count]]
     return [(float(freqs_hz[i]), float(amplitude[i])) for i in top]
+
+
+def local_maxima(x: np.ndarray) -> np.ndarray:
+    """Indices of the local maxima of ``x``: samples above their left neighbour and above the next
+    different sample on the right; a flat top gives its middle sample (its left one when even)."""
+    if x.size < 3:
+        return np.zeros(0, dtype=np.intp)
+    rises = np.flatnonzero(x[:-2] < x[1:-1]) + 1  # candidate left edges
+    if not np.any(x[1:-1] == x[2:]):  # no flat stretch: a plain comparison with both neighbours
+        return rises[x[rises] > x[rises + 1]]
+    peaks = []
+    n, i = x.size, 1
+    for i0 in rises.tolist():
+        if i0 < i:
+            continue  # inside a flat stretch already walked
+        ahead = int(i0) + 1
+        while ahead < n - 1 and x[ahead] == x[i0]:
+            ahead += 1
+        if x[ahead] < x[i0]:
+            peaks.append((i0 + ahead - 1) // 2)
+        i = ahead
+    return np.array(peaks, dtype=np.intp)
+
+
+def _spaced_peaks(x: np.ndarray, distance: int) -> np.ndarray:
+    """Local maxima at least ``distance`` samples apart, the higher kept first (find_peaks' rule)."""
+    peaks = local_maxima(x)
+    if distance <= 1 or peaks.size < 2:
+        return peaks
+    keep = np.ones(peaks.size, dtype=bool)
+    for j in np.argsort(x[peaks])[::-1]:
+        if not keep[j]:
+            continue
+        lo = int(np.searchsorted(peaks, peaks[j] - distance, side="right"))
+        hi = int(np.searchsorted(peaks, peaks[j] + distance, side="left"))
+        keep[lo:j] = False
+        keep[j + 1: hi] = False
+    return peaks[keep]

@@ -25,6 +25,7 @@ from typing import Any
 
 from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
+from ..heap import hold_freed_memory
 from ..replay import (
     UNITS,
     ReplayLog,
@@ -199,6 +200,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
     if args.workers < 1:
         raise InputError(f"--workers = {args.workers}: must be at least 1")
+    hold_freed_memory()  # a batch run: reuse freed arrays instead of paging them in again (heap.py)
     inp = _open_input(args)
     config, machine, fs_hz, frames, total = inp.config, inp.machine, inp.fs_hz, inp.frames, inp.total
     scenario = inp.scenario

@@ -1,7 +1,7 @@
-"""Benchmark of the point analysis: prints real-time factors, the speed-up over the scipy-only reference
+"""Benchmark of the point analysis: prints real-time factors against its FFT floor and a plain scipy pipeline
 and peak RSS (``rotorwatch bench``). Not collected by pytest; run it directly:
 
-    .venv/bin/python tests/bench/bench_analysis.py [--duration 60] [--reference-duration 16]
+    .venv/bin/python tests/bench/bench_analysis.py [--duration 60] [--repeat 7] [--scaling]
 """
 
 from __future__ import annotations

@@ -80,3 +80,45 @@ def test_analyze_names_the_envelope_peaks_alike_in_text_and_json(tmp_path, capsy
     assert main(args) == 0
     text = capsys.readouterr().out
     assert all(f"  {n}\n" in text for n in names if n), text
+
+
+def _cases():
+    rng = np.random.default_rng(11)
+    yield rng.standard_normal(2000)  # noise: maxima everywhere
+    spec = np.abs(rng.standard_normal(1600)) * 0.1
+    spec[[100, 103, 250, 251, 900]] = [3.0, 2.5, 4.0, 4.0, 1.0]  # close rivals, a two-sample flat top
+    yield spec
+    yield np.round(rng.standard_normal(3000), 1)  # many flat stretches, some rising again after them
+    yield np.array([0.0, 1.0, 1.0, 1.0, 0.5, 2.0, 2.0, 3.0, 3.0, 1.0, 1.0])
+
+
+@pytest.mark.parametrize("distance", [1, 2, 5, 17])
+def test_peaks_are_scipy_find_peaks(distance):
+    # reference: scipy.signal.find_peaks(x, distance=d), which reports used to call
+    from scipy.signal import find_peaks
+
+    from rotorwatch.analysis.labels import _spaced_peaks, local_maxima
+
+    for x in _cases():
+        assert np.array_equal(local_maxima(x), find_peaks(x)[0])
+        assert np.array_equal(_spaced_peaks(x, distance), find_peaks(x, distance=distance)[0])
+
+
+def test_analyze_does_not_load_scipy_signal_or_stats(tmp_path):
+    # the reports' peak picking is numpy's own: analyze stays off scipy.signal and scipy.stats (memory)
+    import subprocess
+    import sys
+
+    fs = 20000.0
+    x = impact_train(fs, 3.0, 87.0, amplitude=20.0, seed=3) / G_N
+    path = tmp_path / "rec.npz"
+    np.savez(path, signal=x.astype(np.float32), fs=fs)
+    code = (
+        "import sys, io, contextlib\n"
+        "from rotorwatch.cli import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()):\n"
+        f"    rc = main(['analyze', {str(path)!r}, '--rpm', '1500', '--bearing', 'n=9,d=8mm,D=40mm,angle=0'])\n"
+        "print(rc, sorted(m for m in ('scipy.signal', 'scipy.stats') if m in sys.modules))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.stdout.strip() == "0 []", out.stdout + out.stderr
