@@ -40,6 +40,7 @@ import numpy as np
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FeatureBand, Machine
 from ..settings.quantities import quantity
+from ..storage.recovery import fsync_dir
 from .levels import Baseline
 
 log = logging.getLogger(__name__)
@@ -323,6 +324,7 @@ class BaselineStore:
                 os.fsync(f.fileno())
             os.replace(tmp, self.path)
             tmp = None
+            fsync_dir(self.path.parent)  # the rename itself reaches the disk before we count it saved
             self._dirty = self._urgent = False
         except (OSError, ValueError) as e:
             log.error("cannot save baselines path=%s error=%s", self.path, e)
@@ -335,6 +337,11 @@ class BaselineStore:
 
     def _load(self) -> None:
         assert self.path is not None
+        for stale in self.path.parent.glob(f".{self.path.name}.*.tmp"):  # a save cut short by a crash
+            try:
+                stale.unlink()
+            except OSError:
+                pass
         if not self.path.exists():
             return
         try:

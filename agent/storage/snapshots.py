@@ -175,6 +175,23 @@ class SnapshotStore:
         if self.root.is_dir():
             for stale in self.root.glob(_TMP_PREFIX + "*"):  # left by a crash during a save
                 shutil.rmtree(stale, ignore_errors=True)
+            self._set_aside_damaged()
+
+    def _set_aside_damaged(self) -> None:
+        """Rename snapshot folders whose sidecar cannot be read to ``.damaged-<id>`` (one warning each):
+        they leave the list and the quota, and stay for a person to look at."""
+        for folder in self.root.iterdir():
+            if folder.name.startswith(".") or not folder.is_dir():
+                continue
+            try:
+                self._info(folder.name)
+            except StorageError as e:
+                aside = self.root / f".damaged-{folder.name}"
+                try:
+                    os.replace(folder, aside)
+                except OSError:
+                    continue
+                log.warning("damaged snapshot set aside: %s -> %s (%s)", folder, aside.name, e)
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> SnapshotStore:
