@@ -49,8 +49,8 @@ def evictions(infos: Sequence[_Sized], quota_bytes: int, reserved_bytes: int,
     ``keep``: the id of the snapshot just saved. Transition evidence is kept even when it alone is
     larger than the quota; an on-request or daily snapshot only when it alone fits the others' room.
     """
-    def oldest_first(i: Any) -> tuple[bool, float, str]:
-        return (i.id == keep, i.time_s, i.id)
+    def oldest_first(i: Any) -> tuple[bool, int, float, str]:  # saving order: a clock step does not reorder
+        return (i.id == keep, getattr(i, "seq", 0), i.time_s, i.id)
 
     trans = sorted((i for i in infos if i.reason == "transition"), key=oldest_first)
     others = sorted((i for i in infos if i.reason != "transition"), key=oldest_first)

@@ -46,6 +46,7 @@ from ..alarms.records import MachineUpdate
 from ..analysis.result import Spectrum
 from ..settings.quantities import SPECTRA
 from . import SNAPSHOTS_DIR, StorageError
+from . import wallclock
 from .snapshot_quota import RequestLimiter, evictions
 
 log = logging.getLogger(__name__)
@@ -67,6 +68,7 @@ class SnapshotInfo:
     detail: str
     points: tuple[str, ...]
     size_bytes: int
+    seq: int = 0  # order of saving in this store (0: a sidecar written before sequence numbers)
 
 
 def config_fingerprint(config: Any) -> str:
@@ -172,6 +174,7 @@ class SnapshotStore:
         self.reserved_bytes = int(transition_share * quota_bytes)
         self.limiter = RequestLimiter(on_request_burst, on_request_interval_s, clock=monotonic)
         self._clock = clock
+        self._seq: int | None = None
         if self.root.is_dir():
             for stale in self.root.glob(_TMP_PREFIX + "*"):  # left by a crash during a save
                 shutil.rmtree(stale, ignore_errors=True)
@@ -318,7 +321,8 @@ class SnapshotStore:
         return {
             "format": FORMAT, "id": snap_id, "machine": update.machine_id,
             "time_s": update.time_s, "time_utc": _time_utc(update.time_s),
-            "taken_s": self._clock(), "reason": reason, "detail": detail, "config_hash": config_hash,
+            "taken_s": self._clock(), "clock_synchronized": wallclock.synchronized(), "seq": self._next_seq(),
+            "reason": reason, "detail": detail, "config_hash": config_hash,
             "speed": {"rpm": rpm, "source": update.rpm_source, "shaft_hz": shaft_hz},
             "machine_state": update.state, "machine_reason": update.reason,
             "events": [asdict(e) for e in update.events],
@@ -349,10 +353,18 @@ class SnapshotStore:
         size = sum(f.stat().st_size for f in folder.iterdir() if f.is_file())
         return SnapshotInfo(id=snap_id, path=folder, machine_id=doc.get("machine", ""),
                             time_s=float(doc.get("time_s", 0.0)), reason=doc.get("reason", ""),
-                            detail=doc.get("detail", ""), points=tuple(doc.get("points", {})), size_bytes=size)
+                            detail=doc.get("detail", ""), points=tuple(doc.get("points", {})), size_bytes=size,
+                            seq=int(doc.get("seq") or 0))
+
+    def _next_seq(self) -> int:
+        if self._seq is None:
+            self._seq = max((i.seq for i in self.list()), default=0)
+        self._seq += 1
+        return self._seq
 
     def list(self, machine_id: str | None = None) -> list[SnapshotInfo]:
-        """Every readable snapshot, oldest first (unreadable folders are skipped with a warning)."""
+        """Every readable snapshot, by time (the quota evicts by saving order, ``seq``, instead: a
+        wall clock stepped back does not reorder that); unreadable folders are skipped with a warning."""
         if not self.root.is_dir():
             return []
         out = []
