@@ -30,21 +30,17 @@ import logging
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import Any
 
 log = logging.getLogger(__name__)
 
 
-class _Sized(Protocol):
-    id: str
-    reason: str
-    time_s: float
-    size_bytes: int
-
-
-def evictions(infos: Sequence[_Sized], quota_bytes: int, reserved_bytes: int,
+def evictions(infos: Sequence[Any], quota_bytes: int, reserved_bytes: int,
               keep: str | None = None) -> tuple[list[Any], list[Any]]:
     """(others to delete, transition snapshots to delete) so that ``infos`` keep the rule above.
+
+    ``infos``: objects with ``id``, ``reason``, ``time_s``, ``size_bytes`` and optionally ``seq``
+    (:class:`~rotorwatch.storage.snapshots.SnapshotInfo`).
 
     ``keep``: the id of the snapshot just saved. Transition evidence is kept even when it alone is
     larger than the quota; an on-request or daily snapshot only when it alone fits the others' room.

@@ -45,8 +45,7 @@ import numpy as np
 from ..alarms.records import MachineUpdate
 from ..analysis.result import Spectrum
 from ..settings.quantities import SPECTRA
-from . import SNAPSHOTS_DIR, StorageError
-from . import wallclock
+from . import SNAPSHOTS_DIR, StorageError, wallclock
 from .snapshot_quota import RequestLimiter, evictions
 
 log = logging.getLogger(__name__)
