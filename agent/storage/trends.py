@@ -15,7 +15,7 @@ A row is ``(time_s, machine, point, value name, value, unit, state)``. From each
 
 Non-finite values are stored as NULL. Retention: rows older than ``retention_days`` (by the store's
 clock, not the update time) are deleted every ``prune_interval_s``; the row count is held at
-``max_rows`` at once by deleting the oldest rows. The age cutoff never moves faster than the
+``max_rows`` at every commit by deleting the oldest rows in the same transaction. The age cutoff never moves faster than the
 monotonic clock: at open it starts at the newest stored row (or now, if earlier) minus the retention,
 then follows ``now - retention`` but advances at most by the monotonic time elapsed. So a wall clock
 that steps forwards by a year does not wipe the store (the data ages at the real pace), and one that
@@ -271,7 +271,7 @@ class TrendStore:
         if self._monotonic() - self._flushed_at >= self.flush_interval_s or len(self._pending) >= 20_000:
             self.flush()
         now = self._clock()
-        if self._rows > self.max_rows or now - self._last_prune_s >= self.prune_interval_s:
+        if now - self._last_prune_s >= self.prune_interval_s:
             self.prune(now)
         return len(batch)
 
@@ -309,11 +309,26 @@ class TrendStore:
             try:
                 self._db.execute("BEGIN IMMEDIATE")
                 self._db.executemany("INSERT INTO samples (time_s, series, value, state) VALUES (?, ?, ?, ?)", batch)
+                counted = self._delete_excess(self._rows + len(batch))  # the row bound holds at every commit
                 self._db.execute("COMMIT")
             except sqlite3.Error as e:
                 self._failed(e, "trend write")
-            self._rows += len(batch)
+            self._rows += len(batch) - counted
+            if counted:
+                self._pruned_count += counted
+                self._unlogged[1] += counted
+                self._last_stored.clear()
             return len(batch)
+
+    def _delete_excess(self, rows: int) -> int:
+        """Delete the oldest rows above ``max_rows`` of ``rows`` (inside the caller's transaction);
+        returns how many."""
+        excess = rows - self.max_rows
+        if excess <= 0:
+            return 0
+        return int(self._db.execute(
+            "DELETE FROM samples WHERE rowid IN (SELECT rowid FROM samples ORDER BY time_s LIMIT ?)",
+            (excess,)).rowcount)
 
     def prune(self, now_s: float | None = None) -> int:
         """Delete rows older than the retention and the oldest rows above ``max_rows``; returns how many."""
@@ -323,20 +338,11 @@ class TrendStore:
             try:
                 self._db.execute("BEGIN IMMEDIATE")
                 aged = self._db.execute("DELETE FROM samples WHERE time_s < ?", (self._age_cutoff(now),)).rowcount
-                self._rows -= aged
-                excess = self._rows - self.max_rows
-                counted = 0
-                if excess > 0:
-                    counted = self._db.execute(
-                        "DELETE FROM samples WHERE rowid IN (SELECT rowid FROM samples ORDER BY time_s LIMIT ?)",
-                        (excess,)).rowcount
-                    self._rows -= counted
+                counted = self._delete_excess(self._rows - aged)
                 self._db.execute("COMMIT")
             except sqlite3.Error as e:
-                if self._db.in_transaction:
-                    self._db.execute("ROLLBACK")
-                self._rows = self._db.execute("SELECT COUNT(*) FROM samples").fetchone()[0]
-                raise StorageError(f"{self.path}: trend pruning failed: {e}") from e
+                self._failed(e, "trend pruning")
+            self._rows -= aged + counted
             self._last_prune_s = now
             self._pruned_age += aged
             self._pruned_count += counted

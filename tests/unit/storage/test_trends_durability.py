@@ -87,3 +87,17 @@ def test_a_clock_step_back_neither_stalls_trending_nor_pruning(tmp_path):
         assert store.stats().rows == 2 * ahead
         times = [r.time_s for r in store.query(value="speed")]  # by time: the rows stamped ahead sort last
         assert times[:5] == [T0 + 60.0 * k for k in range(5)] and len(times) == 10
+
+
+def test_the_row_bound_holds_at_every_commit_of_a_batch(tmp_path):
+    wall, mono = Clock(T0), Clock(0.0)
+    path = tmp_path / "t.sqlite"
+    store = TrendStore(path, max_rows=1000, flush_interval_s=300, prune_interval_s=1e9, clock=wall, monotonic=mono)
+    per_update = store.record(update(T0))
+    for k in range(1, 200):  # 200 updates within one batch interval: far more rows than the bound
+        mono.t, wall.t = float(k), T0 + k
+        store.record(update(wall.t))
+    store.close()
+    assert 200 * per_update > 1000 and rows_on_disk(path) == 1000
+    with sqlite3.connect(path) as db:  # the newest rows were kept
+        assert db.execute("SELECT MAX(time_s) FROM samples").fetchone()[0] == T0 + 199
