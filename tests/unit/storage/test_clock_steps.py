@@ -12,7 +12,7 @@ from datetime import UTC, datetime
 
 import pytest
 
-from rotorwatch.storage.settings import SnapshotSettings
+from rotorwatch.settings.storage import SnapshotSettings
 from rotorwatch.storage.snapshot_policy import DailySchedule, SnapshotPolicy
 from rotorwatch.storage.snapshots import SnapshotStore
 

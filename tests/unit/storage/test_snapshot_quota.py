@@ -11,7 +11,7 @@ from types import SimpleNamespace
 
 import pytest
 
-from rotorwatch.storage.settings import SnapshotSettings
+from rotorwatch.settings.storage import SnapshotSettings
 from rotorwatch.storage.snapshot_quota import RequestLimiter, evictions
 from rotorwatch.storage.snapshots import SnapshotRefused, SnapshotStore
 
