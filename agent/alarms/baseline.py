@@ -15,6 +15,14 @@ the definition of its value (the band placement and quantity, the analysis setti
 bearing geometry or blade count it depends on, but not its alarm levels): a changed definition re-learns,
 a changed level does not. An unreadable file is moved aside (``.corrupt-<time>``), never deleted.
 
+Writes: a learned or reset baseline is saved at once; learning progress (the kept samples) at most
+every ``checkpoint_s`` of update time (default an hour: during learning the file can reach several
+hundred kB for a four-point machine, and an SD card should not get it every ten minutes; a power
+cut loses at most that much learning progress, never a learned baseline). Nothing is written once
+every value is learned. Clock steps: learning time is the sum of the forward steps between updates,
+so a clock stepped back neither stalls learning nor loses what was covered; a step forward counts as
+time covered (the ``min_learning_updates`` bound still holds; relearn if it came during learning).
+
 The same file keeps, per point whose demodulation band is searched, the band chosen on the first update
 of its learning (``envelope_bands``): the analysis then demodulates in that band on every update instead
 of searching again, so envelope values stay comparable from update to update, whatever order or
@@ -40,6 +48,7 @@ import numpy as np
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FeatureBand, Machine
 from ..settings.quantities import quantity
+from ..storage.recovery import fsync_dir
 from .levels import Baseline
 
 log = logging.getLogger(__name__)
@@ -62,6 +71,15 @@ class Entry:
     median: float | None = None
     mad: float | None = None
     learned_at_s: float | None = None
+    covered_s: float | None = None  # learning time seen: the sum of forward steps between updates
+
+    @property
+    def hours(self) -> float:
+        """Hours of learning covered. Steps back of the clock add nothing (and do not stall the
+        learning); files written before ``covered_s`` existed count from first to last update."""
+        if self.covered_s is not None:
+            return self.covered_s / 3600.0
+        return 0.0 if self.first_s is None or self.last_s is None else max(0.0, self.last_s - self.first_s) / 3600.0
 
     @property
     def baseline(self) -> Baseline | None:
@@ -142,7 +160,7 @@ class BaselineStore:
         policy: AlarmPolicy | None = None,
         *,
         max_samples: int = 1024,
-        checkpoint_s: float = 600.0,
+        checkpoint_s: float = 3600.0,
     ):
         if max_samples < 2:
             raise ValueError(f"max_samples = {max_samples}: must be at least 2")
@@ -229,8 +247,7 @@ class BaselineStore:
     def progress(self, point_id: str, value_name: str) -> tuple[int, float]:
         """(updates seen, hours covered) of a value's learning."""
         e = self._entry(point_id, value_name)
-        hours = 0.0 if e.first_s is None or e.last_s is None else (e.last_s - e.first_s) / 3600.0
-        return e.n_seen, hours
+        return e.n_seen, e.hours
 
     # --------------------------------------------------------------------------------------- learning
     def add(self, point_id: str, value_name: str, x: float, time_s: float) -> Baseline | None:
@@ -245,6 +262,10 @@ class BaselineStore:
             return None
         if e.first_s is None:
             e.first_s = time_s
+        if e.covered_s is None:
+            e.covered_s = e.hours * 3600.0
+        if e.last_s is not None:
+            e.covered_s += max(0.0, time_s - e.last_s)  # a clock stepped back adds nothing
         e.last_s = time_s
         if e.n_seen % e.stride == 0:
             e.samples.append(float(x))
@@ -253,7 +274,7 @@ class BaselineStore:
                 e.stride *= 2
         e.n_seen += 1
         self._dirty = True
-        hours = (e.last_s - e.first_s) / 3600.0
+        hours = e.hours
         if hours + 1e-9 >= self.policy.learning_hours and e.n_seen >= self.policy.min_learning_updates:
             e.median, e.mad = robust_stats(e.samples)
             e.status = "learned"
@@ -298,7 +319,8 @@ class BaselineStore:
         ``checkpoint_s`` of update time."""
         if not self._dirty:
             return
-        if self._urgent or self._saved_at_s is None or time_s - self._saved_at_s >= self.checkpoint_s:
+        # abs(): a clock stepped back by more than an interval saves too, rather than waiting to catch up
+        if self._urgent or self._saved_at_s is None or abs(time_s - self._saved_at_s) >= self.checkpoint_s:
             self.save()
             self._saved_at_s = time_s
 
@@ -323,6 +345,7 @@ class BaselineStore:
                 os.fsync(f.fileno())
             os.replace(tmp, self.path)
             tmp = None
+            fsync_dir(self.path.parent)  # the rename itself reaches the disk before we count it saved
             self._dirty = self._urgent = False
         except (OSError, ValueError) as e:
             log.error("cannot save baselines path=%s error=%s", self.path, e)
@@ -335,6 +358,11 @@ class BaselineStore:
 
     def _load(self) -> None:
         assert self.path is not None
+        for stale in self.path.parent.glob(f".{self.path.name}.*.tmp"):  # a save cut short by a crash
+            try:
+                stale.unlink()
+            except OSError:
+                pass
         if not self.path.exists():
             return
         try:

@@ -76,7 +76,7 @@ class MachineMonitor:
         policy: AlarmPolicy | None = None,
         *,
         off_delay_updates: int | None = None,
-        checkpoint_s: float = 600.0,
+        checkpoint_s: float = 3600.0,
     ):
         """``policy`` replaces the machine's baseline learning settings (learning period and updates);
         chatter counting and finding rules always come from ``machine.alarms``. ``off_delay_updates``

@@ -29,6 +29,7 @@ import numpy as np
 from ..errors import ConfigError, InputError, SourceUnavailable
 from ..settings.loading import load_config, validate
 from ..settings.models import G_N, Config
+from ..storage.recovery import fsync_dir
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -153,12 +154,17 @@ def write_sensitivity(path: Path, config: Config, machine_index: int, point_inde
         raise ConfigError([f"{path}: the edit would change more than the sensitivity; nothing written"])
     backup = path.with_name(path.name + ".bak")
     shutil.copy2(path, backup)
+    with open(backup, "rb+") as b:
+        os.fsync(b.fileno())
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as f:
             f.write(new_text)
+            f.flush()
+            os.fsync(f.fileno())  # the new text is on disk before the rename makes it the config
         shutil.copymode(path, tmp)
         os.replace(tmp, path)
+        fsync_dir(path.parent)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)

@@ -15,10 +15,14 @@ These models are meant to sit under ``[storage]`` in the configuration file, nex
     # retention_days = 90.0
     # max_rows = 4000000
     # min_interval_s = 60.0
+    # flush_interval_s = 300.0
     [storage.snapshots]
     # quota_bytes = 536870912
     # on_transition_to = ["warning", "alarm"]
     # daily_at_utc = "03:00"
+    # transition_share = 0.5
+    # on_request_burst = 3
+    # on_request_interval_s = 600.0
 
 Models are strict (unknown keys are errors) and frozen; validation does no I/O.
 """
@@ -80,7 +84,9 @@ class TrendSettings(_Model):
 
     ``min_interval_s`` stores at most one row per series (machine, point, value) in that interval
     (0: every update; MQTT carries the full rate). Pruning by age runs every ``prune_interval_s``; the
-    row bound holds at once. Sizing: rows per day = series x 86400 / min_interval_s, about 57 bytes
+    row bound holds at once. Rows wait in memory and are committed together every ``flush_interval_s``
+    (0: at every update): fewer, larger writes spare flash; a kill or power cut loses at most that
+    much of the trend (it was also published). Sizing: rows per day = series x 86400 / min_interval_s, about 57 bytes
     per row on disk (measured); the defaults keep 90 days of 30 series in 4 million rows (~230 MB).
     """
 
@@ -88,6 +94,7 @@ class TrendSettings(_Model):
     max_rows: int = Field(4_000_000, ge=1000)
     min_interval_s: float = Field(60.0, ge=0, allow_inf_nan=False)
     prune_interval_s: float = Field(3600.0, gt=0, allow_inf_nan=False)
+    flush_interval_s: float = Field(300.0, ge=0, le=3600, allow_inf_nan=False)
 
 
 class SnapshotSettings(_Model):
@@ -97,11 +104,19 @@ class SnapshotSettings(_Model):
     ``daily_at_utc`` (``HH:MM``, UTC; absent: never) and on request. Every transition is kept except a
     repeat: the same value (or point, or machine) entering the same state again within
     ``min_interval_s`` of its last snapshot (a flapping value). Times are the data's (sped-up simulated
-    or replayed input counts in its own time; see :mod:`rotorwatch.storage.snapshot_policy`). The oldest
-    snapshots are deleted when the total passes ``quota_bytes``.
+    or replayed input counts in its own time; see :mod:`rotorwatch.storage.snapshot_policy`).
+
+    ``quota_bytes`` bounds the folder. ``transition_share`` of it is reserved for transition evidence:
+    on-request and daily snapshots never use that share and never evict transition evidence (only newer
+    transition evidence does, oldest first, with a warning). On-request snapshots are limited per
+    machine to ``on_request_burst`` at once, then one per ``on_request_interval_s`` (monotonic clock);
+    requests over the limit are refused with a reply. See :mod:`rotorwatch.storage.snapshot_quota`.
     """
 
     quota_bytes: int = Field(512 * MIB, ge=MIB)
     on_transition_to: tuple[Literal["warning", "alarm", "sensor_fault"], ...] = ("warning", "alarm")
     min_interval_s: float = Field(600.0, ge=0, allow_inf_nan=False)
     daily_at_utc: str | None = Field("03:00", pattern=r"^([01][0-9]|2[0-3]):[0-5][0-9]$")
+    transition_share: float = Field(0.5, ge=0.1, le=0.9, allow_inf_nan=False)
+    on_request_burst: int = Field(3, ge=1, le=100)
+    on_request_interval_s: float = Field(600.0, ge=0, allow_inf_nan=False)

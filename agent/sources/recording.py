@@ -18,11 +18,16 @@ At the end of the file: with ``loop`` the file starts again and the first chunk 
 last chunk of a pass may be shorter than ``block_frames``, so a loop seam always falls on a chunk edge.
 
 Missing, unreadable, empty and truncated files raise :class:`InputError` with one line naming the file.
+A file deleted or replaced while it plays is noticed within ``CHECK_S`` (its path no longer names the
+file that was opened): ``read()`` raises :class:`InputError` naming it, so the input is reported
+unavailable (and reopened, with back-off, when a file is put back) rather than playing on from the
+deleted file's open handle.
 """
 
 from __future__ import annotations
 
 import logging
+import os
 import time
 from collections.abc import Sequence
 from pathlib import Path
@@ -37,6 +42,8 @@ from .base import Chunk, Source, resolve_path
 from .pacing import Pacer
 
 log = logging.getLogger(__name__)
+
+CHECK_S = 1.0  # how often (monotonic seconds) the path is checked to still name the opened file
 
 
 class RecordingSource(Source):
@@ -59,6 +66,8 @@ class RecordingSource(Source):
         self._t_start = 0.0
         self._frames_out = 0
         self._gap_next = False
+        self._identity: tuple[int, int] | None = None  # (st_dev, st_ino) of the file opened
+        self._checked_at = 0.0
 
     def check(self) -> None:
         """What ``start()`` would refuse, without starting: the file, its rate, channels and unit."""
@@ -91,7 +100,25 @@ class RecordingSource(Source):
             log.info("recording %s names no unit: its samples are taken as volts at the input", self.path)
         return rec
 
+    def _file_identity(self) -> tuple[int, int] | None:
+        try:
+            st = os.stat(self.path)
+        except OSError:
+            return None
+        return (st.st_dev, st.st_ino)
+
+    def _check_still_there(self) -> None:
+        now = time.monotonic()
+        if now - self._checked_at < CHECK_S:
+            return
+        self._checked_at = now
+        if self._file_identity() != self._identity:
+            raise InputError(f"{self.path}: the recording was deleted or replaced while it played; "
+                             "the input stops until a file is there again")
+
     def _open(self) -> None:
+        self._identity = self._file_identity()
+        self._checked_at = time.monotonic()
         self._file = f = self._open_file()
         f.seek(0)
         self._pacer = Pacer(self.fs_hz, rate=self.speedup) if self.pace else None
@@ -103,6 +130,7 @@ class RecordingSource(Source):
         f = self._file
         if f is None or self._ended:
             return None
+        self._check_still_there()
         remaining = f.remaining
         if remaining <= 0:
             if not self.loop:

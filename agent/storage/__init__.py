@@ -13,6 +13,9 @@ API overview (each module has one job; all of them take their paths and clocks f
   evidence (calibrated waveform WAV, spectra .npz, JSON sidecar) under a disk quota.
 - :mod:`rotorwatch.storage.snapshot_policy` -- when to take a snapshot (state transitions, a daily
   time); :mod:`rotorwatch.storage.snapshot_plot` -- the evidence plot (optional ``plot`` extra).
+- :mod:`rotorwatch.storage.snapshot_quota` -- the quota's transition share and the on-request limit;
+  :mod:`rotorwatch.storage.recovery` -- setting a damaged file aside; :mod:`rotorwatch.storage.wallclock`
+  -- whether the kernel calls the wall clock synchronised.
 - :mod:`rotorwatch.settings.storage` -- pydantic models of the knobs above (they live with the other
   settings, which depend on nothing else in the package).
 

@@ -15,6 +15,11 @@ alarm), a second value crossing its level or another point going wrong is always
 comes, while a value that flaps across a level stores one snapshot per interval (the disk quota bounds
 the rest).
 
+Clock steps: a repeat is judged on the distance between the two times (a clock stepped back by more
+than ``min_interval_s`` takes the transition again rather than staying silent until it catches up),
+and a daily snapshot whose time is later than now (the clock went back) does not hold the schedule.
+A clock stepped forward past the slot's grace skips that day's snapshot, as a box that was off would.
+
 Time is the update's own (``update.time_s``, the time of the data): the wall clock for live input, the
 scenario's or the recording's clock for simulated or replayed input. A simulation sped up 8640 times
 runs a month in five minutes; measured on the wall clock, ten minutes between snapshots would have
@@ -64,10 +69,12 @@ class DailySchedule:
         return slot if slot <= now_s else (day - timedelta(days=1)).timestamp() + self.offset_s
 
     def due(self, now_s: float, last_s: float | None) -> bool:
+        """A ``last_s`` later than ``now_s`` (the clock was stepped back) does not hold the schedule
+        until the clock catches up: the day's slot is taken as if there were no previous snapshot."""
         slot = self.slot_at_or_before(now_s)
         if now_s - slot > self.grace_s:
             return False
-        return last_s is None or last_s < slot
+        return last_s is None or last_s < slot or last_s > now_s
 
 
 class SnapshotPolicy:
@@ -118,7 +125,8 @@ class SnapshotPolicy:
         if entering:
             seen = self._entries_of(mid)
             new = [e for e in entering
-                   if now - seen.get((e.point_id, e.value_name, e.new_state), -math.inf) >= self.min_interval_s]
+                   # abs(): a clock stepped back does not silence a subject until the clock catches up
+                   if abs(now - seen.get((e.point_id, e.value_name, e.new_state), -math.inf)) >= self.min_interval_s]
             if new:
                 for e in entering:
                     seen[(e.point_id, e.value_name, e.new_state)] = now

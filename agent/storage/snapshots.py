@@ -16,9 +16,11 @@ Nothing secret goes in: the sidecar is built from the update, the machine's conf
 holds no credentials) and :func:`config_fingerprint`, a hash over the site, acquisition, machines and
 storage sections only (never the MQTT, metrics or status-page sections).
 
-A snapshot is written in a hidden temporary folder and renamed into place, so a crash never leaves
-a half snapshot in the list. After each save the oldest snapshots are deleted until the total size
-is under ``quota_bytes``; the snapshot just saved is always kept.
+A snapshot is written in a hidden temporary folder, its files and the folder synced, then renamed
+into place and the parent folder synced, so neither a crash nor a power cut leaves a half snapshot in
+the list. After each save the quota is enforced by :mod:`rotorwatch.storage.snapshot_quota`:
+transition evidence keeps a reserved share and is never evicted by on-request or daily snapshots;
+on-request snapshots are rate limited per machine.
 """
 
 from __future__ import annotations
@@ -43,7 +45,8 @@ import numpy as np
 from ..alarms.records import MachineUpdate
 from ..analysis.result import Spectrum
 from ..settings.quantities import SPECTRA
-from . import SNAPSHOTS_DIR, StorageError
+from . import SNAPSHOTS_DIR, StorageError, wallclock
+from .snapshot_quota import RequestLimiter, evictions
 
 log = logging.getLogger(__name__)
 
@@ -64,6 +67,7 @@ class SnapshotInfo:
     detail: str
     points: tuple[str, ...]
     size_bytes: int
+    seq: int = 0  # order of saving in this store (0: a sidecar written before sequence numbers)
 
 
 def config_fingerprint(config: Any) -> str:
@@ -141,6 +145,7 @@ def _time_utc(t_s: float) -> str:
 
 
 def _fsync_file(path: Path) -> None:
+    """fsync a file or a folder (a folder's entry list: a rename in it reaches the disk)."""
     fd = os.open(path, os.O_RDONLY)
     try:
         os.fsync(fd)
@@ -148,25 +153,54 @@ def _fsync_file(path: Path) -> None:
         os.close(fd)
 
 
+class SnapshotRefused(StorageError):
+    """An on-request snapshot was not taken: the machine's request limit is reached, or it did not fit
+    the room left to on-request and daily snapshots."""
+
+
 class SnapshotStore:
     """Snapshots under ``root`` with a disk quota (see the module docstring)."""
 
     def __init__(self, root: str | Path, quota_bytes: int = 512 * 1024 * 1024, *,
-                 clock: Callable[[], float] = time.time) -> None:
+                 transition_share: float = 0.5, on_request_burst: int = 3, on_request_interval_s: float = 600.0,
+                 clock: Callable[[], float] = time.time, monotonic: Callable[[], float] = time.monotonic) -> None:
         if quota_bytes < 1:
             raise ValueError(f"snapshot quota_bytes = {quota_bytes}: must be positive")
+        if not 0.0 <= transition_share <= 1.0:
+            raise ValueError(f"snapshot transition_share = {transition_share}: must be within 0..1")
         self.root = Path(root)
         self.quota_bytes = int(quota_bytes)
+        self.reserved_bytes = int(transition_share * quota_bytes)
+        self.limiter = RequestLimiter(on_request_burst, on_request_interval_s, clock=monotonic)
         self._clock = clock
+        self._seq: int | None = None
         if self.root.is_dir():
             for stale in self.root.glob(_TMP_PREFIX + "*"):  # left by a crash during a save
                 shutil.rmtree(stale, ignore_errors=True)
+            self._set_aside_damaged()
+
+    def _set_aside_damaged(self) -> None:
+        """Rename snapshot folders whose sidecar cannot be read to ``.damaged-<id>`` (one warning each):
+        they leave the list and the quota, and stay for a person to look at."""
+        for folder in self.root.iterdir():
+            if folder.name.startswith(".") or not folder.is_dir():
+                continue
+            try:
+                self._info(folder.name)
+            except StorageError as e:
+                aside = self.root / f".damaged-{folder.name}"
+                try:
+                    os.replace(folder, aside)
+                except OSError:
+                    continue
+                log.warning("damaged snapshot set aside: %s -> %s (%s)", folder, aside.name, e)
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> SnapshotStore:
         """``<state_dir>/snapshots`` with a :class:`~rotorwatch.settings.storage.SnapshotSettings`."""
         if settings is not None:
-            kwargs.setdefault("quota_bytes", settings.quota_bytes)
+            for key in ("quota_bytes", "transition_share", "on_request_burst", "on_request_interval_s"):
+                kwargs.setdefault(key, getattr(settings, key))
         return cls(Path(state_dir) / SNAPSHOTS_DIR, **kwargs)
 
     # -- saving -------------------------------------------------------------------------------------
@@ -177,10 +211,13 @@ class SnapshotStore:
         ``waveforms_m_s2``: point id -> the calibrated samples of that update (1-D, m/s^2); the sample
         rate is the point result's ``fs_hz``. ``machine``: the machine's configuration, for band
         edges and markers (without it the sidecar has none). Spectra are taken from the point
-        results when they were kept. Raises ValueError for a bad reason, StorageError on disk failures.
+        results when they were kept. Raises ValueError for a bad reason, StorageError on disk failures,
+        :class:`SnapshotRefused` when an on-request snapshot is over its machine's limit or finds no room.
         """
         if reason not in REASONS:
             raise ValueError(f"snapshot reason {reason!r}: must be one of {', '.join(REASONS)}")
+        if reason == "command":
+            self._admit(update.machine_id)
         time_s = float(update.time_s)
         base = f"{datetime.fromtimestamp(time_s, tz=UTC):%Y%m%dT%H%M%SZ}-{update.machine_id}-{reason}"
         try:
@@ -196,7 +233,9 @@ class SnapshotStore:
                 (tmp / SIDECAR).write_text(json.dumps(_clean(sidecar), indent=1, allow_nan=False) + "\n")
                 for f in tmp.iterdir():
                     _fsync_file(f)
+                _fsync_file(tmp)
                 os.replace(tmp, self.root / snap_id)
+                _fsync_file(self.root)
             except BaseException:
                 shutil.rmtree(tmp, ignore_errors=True)
                 raise
@@ -204,8 +243,26 @@ class SnapshotStore:
             raise StorageError(f"{self.root}: cannot save snapshot {base}: {e.strerror or e}") from e
         info = self._info(snap_id)
         log.info("snapshot saved id=%s reason=%s size_bytes=%d", snap_id, reason, info.size_bytes)
-        self.prune(keep=snap_id)
+        removed = self.prune(keep=snap_id)
+        if snap_id in removed:
+            raise SnapshotRefused(
+                f"{reason} snapshot of machine {update.machine_id!r} ({info.size_bytes} bytes) does not fit the "
+                f"room left to on-request and daily snapshots (quota {self.quota_bytes} bytes, "
+                f"{self.reserved_bytes} reserved for transition evidence): not kept")
         return info
+
+    def _admit(self, machine_id: str) -> None:
+        ok, refused = self.limiter.allow(machine_id)
+        if ok:
+            if refused:
+                log.warning("on-request snapshots of machine %s: %d request(s) refused by the limit before this one",
+                            machine_id, refused)
+            return
+        lim = self.limiter
+        raise SnapshotRefused(
+            f"on-request snapshot of machine {machine_id!r} refused: at most {lim.burst} at once and one per "
+            f"{lim.interval_s:g} s (storage.snapshots.on_request_burst / on_request_interval_s); "
+            f"next in {lim.wait_s(machine_id):.0f} s, {refused} refused since the last one")
 
     def _write_files(self, folder: Path, snap_id: str, update: MachineUpdate, waveforms: Mapping[str, np.ndarray],
                      reason: str, machine: Any, config_hash: str, detail: str) -> dict[str, Any]:
@@ -263,7 +320,8 @@ class SnapshotStore:
         return {
             "format": FORMAT, "id": snap_id, "machine": update.machine_id,
             "time_s": update.time_s, "time_utc": _time_utc(update.time_s),
-            "taken_s": self._clock(), "reason": reason, "detail": detail, "config_hash": config_hash,
+            "taken_s": self._clock(), "clock_synchronized": wallclock.synchronized(), "seq": self._next_seq(),
+            "reason": reason, "detail": detail, "config_hash": config_hash,
             "speed": {"rpm": rpm, "source": update.rpm_source, "shaft_hz": shaft_hz},
             "machine_state": update.state, "machine_reason": update.reason,
             "events": [asdict(e) for e in update.events],
@@ -294,10 +352,18 @@ class SnapshotStore:
         size = sum(f.stat().st_size for f in folder.iterdir() if f.is_file())
         return SnapshotInfo(id=snap_id, path=folder, machine_id=doc.get("machine", ""),
                             time_s=float(doc.get("time_s", 0.0)), reason=doc.get("reason", ""),
-                            detail=doc.get("detail", ""), points=tuple(doc.get("points", {})), size_bytes=size)
+                            detail=doc.get("detail", ""), points=tuple(doc.get("points", {})), size_bytes=size,
+                            seq=int(doc.get("seq") or 0))
+
+    def _next_seq(self) -> int:
+        if self._seq is None:
+            self._seq = max((i.seq for i in self.list()), default=0)
+        self._seq += 1
+        return self._seq
 
     def list(self, machine_id: str | None = None) -> list[SnapshotInfo]:
-        """Every readable snapshot, oldest first (unreadable folders are skipped with a warning)."""
+        """Every readable snapshot, by time (the quota evicts by saving order, ``seq``, instead: a
+        wall clock stepped back does not reorder that); unreadable folders are skipped with a warning."""
         if not self.root.is_dir():
             return []
         out = []
@@ -353,21 +419,22 @@ class SnapshotStore:
         shutil.rmtree(self._folder(snap_id))
 
     def prune(self, keep: str | None = None) -> builtins.list[str]:
-        """Delete the oldest snapshots until the total is within the quota; returns the ids deleted."""
+        """Enforce the quota rule of :mod:`rotorwatch.storage.snapshot_quota`; returns the ids deleted.
+
+        ``keep``: the snapshot just saved (a transition snapshot is kept even when it alone is larger
+        than the quota; an on-request or daily one only when it fits the room left to them)."""
         infos = self.list()
-        total = sum(i.size_bytes for i in infos)
-        removed = []
-        for info in infos:
-            if total <= self.quota_bytes:
-                break
-            if info.id == keep:
-                continue
+        others, trans = evictions(infos, self.quota_bytes, self.reserved_bytes, keep)
+        for info in trans:
+            log.warning("transition evidence %s (%d bytes) deleted to make room for newer transition evidence "
+                        "(quota %d bytes; raise storage.snapshots.quota_bytes to keep more)",
+                        info.id, info.size_bytes, self.quota_bytes)
+        for info in others + trans:
             shutil.rmtree(info.path, ignore_errors=True)
-            total -= info.size_bytes
-            removed.append(info.id)
-        if removed:
+        total = sum(i.size_bytes for i in infos) - sum(i.size_bytes for i in others + trans)
+        if others:
             log.info("snapshots pruned to the quota removed=%d total_bytes=%d quota_bytes=%d",
-                     len(removed), total, self.quota_bytes)
+                     len(others), total, self.quota_bytes)
         if total > self.quota_bytes:
             log.warning("snapshot %s alone is larger than the quota (%d > %d bytes): kept", keep, total, self.quota_bytes)
-        return removed
+        return [i.id for i in others + trans]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import time
 
 import numpy as np
@@ -211,3 +212,27 @@ def test_check_reports_what_start_would_refuse(tmp_path):
         RecordingSource(tmp_path / "mono.wav", FS, 2, 1024).check()
     with pytest.raises(InputError, match="no such file"):
         RecordingSource(tmp_path / "missing.wav", FS, 2, 1024).check()
+
+
+def test_a_recording_deleted_while_it_plays_is_noticed(tmp_path, monkeypatch):
+    import rotorwatch.sources.recording as recording
+
+    monkeypatch.setattr(recording, "CHECK_S", 0.0)  # check the path on every read
+    path = tmp_path / "plays.wav"
+    sf.write(path, _signal(FS * 2), FS, subtype="FLOAT")
+    src = RecordingSource(path, FS, 2, 4096, pace=False)
+    src.start()
+    assert src.read(1.0) is not None
+    path.unlink()  # the open handle could go on playing the deleted file
+    with pytest.raises(InputError, match=r"plays\.wav: the recording was deleted or replaced while it played"):
+        src.read(1.0)
+    src.close()
+    sf.write(path, _signal(FS, seed=2), FS, subtype="FLOAT")  # a new file under the same name
+    src.start()
+    assert src.read(1.0) is not None
+    other = tmp_path / "other.wav"
+    sf.write(other, _signal(FS, seed=3), FS, subtype="FLOAT")
+    os.replace(other, path)  # replaced while it plays
+    with pytest.raises(InputError, match="deleted or replaced"):
+        src.read(1.0)
+    src.close()

@@ -64,7 +64,9 @@ def test_chatter_and_findings_are_trended(tmp_path):
 
 def test_retention_by_age(tmp_path):
     clock = Clock(T0)
-    with TrendStore(tmp_path / "t.sqlite", retention_days=2, prune_interval_s=3600, clock=clock) as store:
+    # days pass on both clocks (the wall clock and the monotonic one)
+    with TrendStore(tmp_path / "t.sqlite", retention_days=2, prune_interval_s=3600, clock=clock,
+                    monotonic=clock) as store:
         for day in range(5):
             clock.t = T0 + day * DAY_S
             store.record(update(clock.t))
