@@ -105,3 +105,6 @@ class SnapshotSettings(_Model):
     on_transition_to: tuple[Literal["warning", "alarm", "sensor_fault"], ...] = ("warning", "alarm")
     min_interval_s: float = Field(600.0, ge=0, allow_inf_nan=False)
     daily_at_utc: str | None = Field("03:00", pattern=r"^([01][0-9]|2[0-3]):[0-5][0-9]$")
+    # every update's evidence (reason "schedule", detail "every update"): a short diagnostic run, or a
+    # record to replay later with `rotorwatch replay --history <state_dir>`; mind the quota
+    every_update: bool = False
