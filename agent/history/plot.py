@@ -69,8 +69,9 @@ def _firsts(ax: Any, log: LevelLog, margin: Margin) -> None:
             continue
         d = _dates(log, [t])[0]
         ax.axvline(d, color=colour, lw=1, alpha=0.8, zorder=1)
-        ax.annotate(f"first {level}\n{d:%Y-%m-%d %H:%M}", (d, 1.0), xycoords=("data", "axes fraction"),
-                    xytext=(4, -4 - 28 * k), textcoords="offset points", fontsize=7, color=colour, va="top")
+        ax.annotate(f"first {level}\n{d:%Y-%m-%d %H:%M}", (d, 0.1), xycoords=("data", "axes fraction"),
+                    xytext=(5, 26 * (len(marks) - 1 - k)), textcoords="offset points", fontsize=7, color=colour,
+                    va="bottom", bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": colour, "lw": 0.6, "alpha": 0.9})
 
 
 def _panel(ax: Any, log: LevelLog, key: tuple[str, str], margin: Margin | None, healthy_until_s: float) -> None:
@@ -98,7 +99,12 @@ def _panel(ax: Any, log: LevelLog, key: tuple[str, str], margin: Margin | None, 
     _state_bands(ax, log, readings)
     values = [r.value for r in readings if r.value > 0]
     if values and max(values) / min(values) > 20:
+        from matplotlib.ticker import FuncFormatter
+
         ax.set_yscale("log")
+        plain = FuncFormatter(lambda v, _: f"{v:g}")
+        ax.yaxis.set_major_formatter(plain)
+        ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _: f"{v:g}" if f"{v:.0e}"[0] in "235" else ""))
     if margin is not None:
         _firsts(ax, log, margin)
     ax.set_ylabel(f"{key[1]} ({log.units.get(key, '')})", fontsize=8)

@@ -25,9 +25,13 @@ import numpy as np
 import pytest
 from scipy.signal import decimate
 
-from components import shared_datasets_dir
-from rotorwatch.cli import main
-from rotorwatch.recordings import write_wav
+if __name__ == "__main__":  # run as a script: tests/ on the path for components
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from components import shared_datasets_dir  # noqa: E402
+from rotorwatch.cli import main  # noqa: E402
+from rotorwatch.recordings import write_wav  # noqa: E402
 
 pytestmark = pytest.mark.realdata
 
@@ -189,3 +193,14 @@ def test_growth_raises_the_inner_race_value_at_each_step(tmp_path, capsys, healt
     # with 2 h of lead (the last update 20:30, the 0.021 in record from 18:00) levels up to its values do too
     assert max(healthy[6:]) <= lo < min(small)
     assert hi >= min(large[:2])
+
+
+if __name__ == "__main__":
+    # python tests/realdata/test_history.py OUT.npz [outer|inner]: the history these tests build, as one
+    # .npz of snapshots (the README's example)
+    out, fault = Path(sys.argv[1]), (sys.argv[2] if len(sys.argv) > 2 else "outer")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    path, _ = write_history(out.parent / (out.stem + ".d"), "stack", _healthy() + _windows(_load(FAULTS[fault][0]), 8))
+    path.replace(out)
+    (out.parent / (out.stem + ".d")).rmdir()
+    print(f"{out}: {HEALTHY} healthy windows then 8 {fault}-race windows, 30 min apart from {T0:%Y-%m-%d %H:%M} UTC")
