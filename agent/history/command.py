@@ -39,7 +39,7 @@ def add_arguments(p: argparse.ArgumentParser, sources: Any) -> None:
     h.add_argument("--sample-rate", type=float, metavar="HZ", help="text files: the sample rate")
     h.add_argument("--columns", metavar="MAP", help="column or channel of each point, e.g. 'de-h=0,nde-h=2' (from 0)")
     h.add_argument("--data-rate", action="store_true",
-                   help="analyse at the data's rate when it differs from acquisition.sample_rate_hz (default: refuse)")
+                   help="analyze at the data's rate when it differs from acquisition.sample_rate_hz (default: refuse)")
     h.add_argument("--healthy-until", metavar="DATE",
                    help="margins: the end of the healthy part (default: the update before the first raise)")
     h.add_argument("--lead", default="24 h", metavar="DURATION",
@@ -125,3 +125,39 @@ def check_options(args: argparse.Namespace) -> None:
              if getattr(args, k, None) is not None]
     if given:
         raise InputError(f"{given[0]}: applies to --history only")
+
+
+# ------------------------------------------------------------------------------ analyze one element
+def add_element_arguments(p: argparse.ArgumentParser) -> None:
+    """``rotorwatch analyze HISTORY --at DATE``: the same reader, one element."""
+    h = p.add_argument_group("one element of a history (FILE is then a history, as for replay --history)")
+    h.add_argument("--at", metavar="DATE", help="analyze the history's element at (or nearest to) this date (needs --config)")
+    h.add_argument("--time-pattern", metavar="PATTERN", help="the time in each file's name, strftime style")
+    h.add_argument("--start", metavar="DATE", help="with --cadence: the first element's time")
+    h.add_argument("--cadence", metavar="DURATION", help="with --start: element k at start + k x cadence")
+    h.add_argument("--delimiter", metavar="TEXT", help="text files: the column separator (default: white space)")
+    h.add_argument("--header-lines", type=int, metavar="N", help="text files: lines to skip at the top")
+    h.add_argument("--sample-rate", type=float, metavar="HZ", help="text files: the sample rate")
+    h.add_argument("--columns", metavar="MAP", help="column or channel of each point, e.g. 'de-h=0,nde-h=2'")
+
+
+def element_samples(args: argparse.Namespace, machine: Any, point: Any) -> tuple[Any, float, str]:
+    """The element of ``args.file`` (a history) nearest ``args.at``: (m/s^2 samples of ``point``, rate, name)."""
+    import numpy as np
+
+    ns = argparse.Namespace(**vars(args))
+    ns.history, ns.start_given = args.file, args.start is not None
+    spec = spec_from_args(ns)
+    spec.data_rate = True  # analyze takes the element at its own rate
+    history = open_history(spec, machine, None)
+    try:
+        at = parse_date(args.at, "--at")
+        i = min(range(len(history.elements)), key=lambda k: abs(history.elements[k].time_s - at))
+        element = history.elements[i]
+        decoded = history.decode(i)
+    finally:
+        history.close()
+    block = decoded.blocks_v.get(point.id)
+    if block is None or decoded.fs_hz is None:
+        raise InputError(f"{element.name}: holds no samples for point {point.id!r}")
+    return np.asarray(block, dtype=float) / point.sensor.volts_per_m_s2, decoded.fs_hz, element.name

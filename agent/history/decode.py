@@ -4,7 +4,7 @@ Each function returns a :class:`Decoded`: per point the raw sensor output in vol
 takes, as from a live input), the rate, and for the checks made across elements the number of columns
 (text files) and an outside speed (the daemon's snapshots of a tach- or MQTT-fed machine). Sound files and
 per-snapshot ``.npz`` go through the one recording reader (:func:`rotorwatch.replay.open_recording`, with
-its unit rules); only the first ``analysis.window_s`` seconds of an element are analysed.
+its unit rules); only the first ``analysis.window_s`` seconds of an element are analyzed.
 """
 
 from __future__ import annotations
@@ -31,7 +31,10 @@ class Decoded:
     rpm: float | None = None
 
 
-def window_frames(where: str, fs_hz: float, n_frames: int, window_s: float) -> int:
+def window_frames(where: str, fs_hz: float, n_frames: int, window_s: float | None) -> int:
+    """Frames of one analysis window (``window_s`` None: the whole element, as ``analyze`` takes it)."""
+    if window_s is None:
+        return n_frames
     n = int(round(window_s * fs_hz))
     if n < 1 or n_frames < n:
         raise InputError(f"{where}: {n_frames} samples ({n_frames / fs_hz:.3g} s at {fs_hz:g} Hz) is shorter than one "
@@ -61,7 +64,7 @@ def column_map(where: str, machine: Machine, columns: dict[str, int], n_columns:
 
 
 def to_blocks(where: str, data: np.ndarray, fs_hz: float, unit: str, machine: Machine, columns: dict[str, int],
-              window_s: float) -> Decoded:
+              window_s: float | None) -> Decoded:
     """Frames x columns in ``unit`` -> the first window of each mapped point, in volts."""
     n_win = window_frames(where, fs_hz, data.shape[0], window_s)
     mapped = column_map(where, machine, columns, data.shape[1])
@@ -78,9 +81,14 @@ def need_unit(where: str, unit: str | None) -> str:
     return name
 
 
-def decode_sound_or_npz(path: Path, machine: Machine, unit: str | None, window_s: float) -> Decoded:
+def decode_sound_or_npz(path: Path, machine: Machine, unit: str | None, window_s: float | None) -> Decoded:
     """One WAV (or other sound file) or per-snapshot ``.npz``, through the one recording reader."""
+    from ..recordings import open_recording as open_file
     from ..replay import open_recording
+
+    if window_s is None:  # the whole element
+        with open_file(path) as whole:
+            window_s = whole.n_frames / whole.fs_hz
 
     rec = open_recording(path, machine, unit, window_s)
     try:
@@ -112,7 +120,7 @@ def read_text(path: Path, delimiter: str | None, header_lines: int) -> np.ndarra
     return data
 
 
-def decode_text(path: Path, spec: Any, machine: Machine, window_s: float) -> Decoded:
+def decode_text(path: Path, spec: Any, machine: Machine, window_s: float | None) -> Decoded:
     if spec.sample_rate_hz is None:
         raise InputError(f"{path}: a text file carries no sample rate: give --sample-rate HZ "
                          f"(or sample_rate_hz in the history description)")

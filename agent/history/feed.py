@@ -6,7 +6,7 @@ flight). The analysis and the alarm logic run in this process, in time order, ex
 runs them: baselines, the kept envelope band and the delays depend on the updates before.
 
 The rate of every element is checked here: all elements at one rate (mixed rates are an error), and that
-rate equal to ``acquisition.sample_rate_hz`` unless the history allows analysing at the data's rate.
+rate equal to ``acquisition.sample_rate_hz`` unless the history allows analyzing at the data's rate.
 """
 
 from __future__ import annotations
@@ -58,7 +58,7 @@ class RateCheck:
                 raise InputError(
                     f"{name}: sampled at {d.fs_hz:g} Hz, the configuration's acquisition.sample_rate_hz is "
                     f"{self.config_rate_hz:g} Hz: resample the history, correct the configuration, or give "
-                    f"--data-rate to analyse at the data's rate")
+                    f"--data-rate to analyze at the data's rate")
             self.fs_hz, self.first = d.fs_hz, name
         elif abs(d.fs_hz - self.fs_hz) > 1e-9 * self.fs_hz:
             raise InputError(f"{name}: sampled at {d.fs_hz:g} Hz where {self.first} is at {self.fs_hz:g} Hz: "

@@ -57,7 +57,7 @@ class History:
 
     spec: HistorySpec
     machine: Machine
-    window_s: float
+    window_s: float | None  # None: each element whole (analyze)
     kind: str  # files | stack | snapshots
     elements: list[Element]
     source: str  # one line for the replay's header
@@ -99,7 +99,7 @@ def _snapshot_root(p: Path) -> Path | None:
     return None
 
 
-def open_history(spec: HistorySpec, machine: Machine, window_s: float) -> History:
+def open_history(spec: HistorySpec, machine: Machine, window_s: float | None) -> History:
     """List the elements of ``spec.path`` (one-line :class:`InputError` on any problem)."""
     p = spec.path
     if not p.exists():
@@ -128,7 +128,7 @@ def open_history(spec: HistorySpec, machine: Machine, window_s: float) -> Histor
     return _open_folder(spec, machine, window_s, str(p))
 
 
-def _open_folder(spec: HistorySpec, machine: Machine, window_s: float, shown: str) -> History:
+def _open_folder(spec: HistorySpec, machine: Machine, window_s: float | None, shown: str) -> History:
     root = _snapshot_root(spec.path)
     if root is not None:
         return _open_snapshots(spec, machine, window_s, root)
@@ -166,7 +166,7 @@ def _no_repeats(elements: list[Element]) -> None:
             raise InputError(f"{b.name}: has the same time as {a.name}: each element is one update at its own time")
 
 
-def _open_snapshots(spec: HistorySpec, machine: Machine, window_s: float, root: Path) -> History:
+def _open_snapshots(spec: HistorySpec, machine: Machine, window_s: float | None, root: Path) -> History:
     from ..storage.snapshots import SnapshotStore
 
     store = SnapshotStore(root)
@@ -189,7 +189,7 @@ def _stack_entries(p: Path) -> dict[str, np.ndarray]:
         raise InputError(f"{p}: cannot read as .npz: {e}") from None
 
 
-def _open_stack(spec: HistorySpec, machine: Machine, window_s: float) -> History:
+def _open_stack(spec: HistorySpec, machine: Machine, window_s: float | None) -> History:
     """One ``.npz`` holding every element (``snapshots``, ``timestamps``, ``fs``, ``unit``)."""
     p = spec.path
     z = _stack_entries(p)

@@ -12,7 +12,7 @@ A description file (``--history FILE.toml``) holds one ``[history]`` table::
     sample_rate_hz = 20000              # text files carry no rate
     unit = "g"                          # g, m/s2 or volts, when the files do not say
     columns = { de-h = 0, nde-h = 1 }   # point id -> column (default: the point's sensor.channel)
-    data_rate = false                   # true: analyse at the data's rate when it differs from the config's
+    data_rate = false                   # true: analyze at the data's rate when it differs from the config's
 
 Options given on the command line win over the description's.
 """

@@ -220,3 +220,17 @@ def test_history_options_without_history_are_refused(capsys):
     rc = main(["replay", "--config", str(CONFIG), "--input", "x.npz", "--time-pattern", "%Y"])
     assert rc == 2
     assert "--time-pattern: applies to --history only" in capsys.readouterr().err
+
+
+def test_analyze_reads_one_element_with_the_same_reader(tmp_path, capsys):
+    root = text_folder(tmp_path / "h", 3, columns=2)
+    rc = main(["analyze", str(root), "--config", str(CONFIG), "--at", "2004-02-12T11:10",
+               *TEXT, "--columns", "de=1", "--format", "json"])
+    out = capsys.readouterr()
+    assert rc == 0, out.err
+    doc = json.loads(out.out)
+    assert doc["unit_from"].endswith("2004.02.12.11.00.00")  # the nearest element: 11:00
+    # column 1 of element 1 holds _signal(11): the 0.05 g line at 29.95 Hz, 1.84 mm/s as above
+    assert doc["overall_velocity_mm_s"] == pytest.approx(1.84, rel=0.05)
+    rc = main(["analyze", str(root), "--at", "2004-02-12", "--rpm", "1797", *TEXT])
+    assert rc == 2 and "--at needs --config" in capsys.readouterr().err
