@@ -8,8 +8,11 @@ A small grammar of our own, one expectation per string::
     subject     := "machine" | "point" POINT | "zone on" POINT | VALUE "on" POINT
     verb        := "reaches" | "is" | "stays below" | "never" | "ends"
     window      := "before" TIME | "after" TIME | "between" TIME "and" TIME
+                 | "at least" NUMBER ("h" | "d") "before the end"
     TIME        := ("day" | "hour") NUMBER      (days or hours from the start of the replay; the
                                                  second TIME of "between" may omit the unit)
+                 | DATE [HH:MM[:SS]]            (a date and time, UTC: 2004-02-19 06:00 or 2004-02-19T06:00Z;
+                                                 needs the replay's start, which parse() is given)
 
 ``VALUE`` is a band name, ``overall``, or ``finding:NAME`` for a finding named in the machine's
 ``alarms.findings`` (the state it raises on the point); states are the point states (``alarm``, ``warning``,
@@ -34,13 +37,18 @@ the day numbers. Examples::
     point de-h is sensor_fault between day 12.0 and day 12.1
     machine never alarm
     de-outer-race on de-h reaches warning before zone on de-h reaches C
+    outer-race on de reaches alarm before 2004-02-19 06:00
+    outer-race on de reaches warning at least 48 h before the end
+    machine never warning before 2004-02-16
 """
 
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime
 from typing import NoReturn
 
 from .alarms.records import STATES
@@ -56,6 +64,7 @@ VERBS = ("reaches", "is", "stays below", "never", "ends")
 GRAMMAR_HINT = (
     "expected '<subject> reaches|is|stays below|never|ends <state> [before|after day N | between day N and day M]', "
     "'no <state> [window]' or '<subject> reaches <state> before <subject> reaches <state>'; "
+    "a window may also be 'before|after DATE [HH:MM]' or 'at least N h before the end'; "
     "subject: machine | point P | zone on P | VALUE on P"
 )
 
@@ -82,6 +91,13 @@ class Window:
     start_s: float | None = None  # inclusive
     end_s: float | None = None  # inclusive for "between", exclusive for "before"
     end_inclusive: bool = True
+    before_end_s: float | None = None  # "at least N h before the end": resolved against the last update
+
+    def resolve(self, last_s: float) -> Window:
+        """The window with an end relative to the replay's last update made absolute."""
+        if self.before_end_s is None:
+            return self
+        return replace(self, end_s=last_s - self.before_end_s, end_inclusive=True, before_end_s=None)
 
     def contains(self, t_s: float) -> bool:
         if self.start_s is not None and t_s < self.start_s - 1e-9:
@@ -150,9 +166,53 @@ class _Tokens:
         return self.i >= len(self.words)
 
 
-def _number(tok: _Tokens, unit_s: float | None) -> tuple[float, float]:
-    """Parse '[day|hour] NUMBER' -> (seconds, unit seconds)."""
+_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}(?:[T ]\d{1,2}:\d{2}(?::\d{2})?)?Z?$", re.IGNORECASE)
+_CLOCK = re.compile(r"^\d{1,2}:\d{2}(?::\d{2})?Z?$", re.IGNORECASE)
+_SPAN = re.compile(r"^([0-9]*\.?[0-9]+)\s*(h|hours?|d|days?)?$", re.IGNORECASE)
+
+
+def _is_time(word: str | None) -> bool:
+    return word is not None and (word in ("day", "days", "hour", "hours") or bool(_DATE.match(word)))
+
+
+def _date(tok: _Tokens, start_unix_s: float | None) -> float:
+    """Parse 'DATE [HH:MM[:SS]]' (UTC) -> seconds from the replay's start."""
+    text = tok.take("a date")
+    if tok.peek() is not None and _CLOCK.match(tok.peek() or "") and "T" not in text.upper():
+        text += "T" + tok.take("a time of day")
+    try:
+        dt = datetime.fromisoformat(text.upper().replace("Z", "+00:00"))
+    except ValueError:
+        tok.fail(f"{text!r} is not a date and time (e.g. 2004-02-19 06:00)")
+    if dt.tzinfo is None:
+        dt = dt.replace(tzinfo=UTC)
+    if start_unix_s is None:
+        tok.fail("a date needs the replay's start date, which this check does not know")
+    return dt.timestamp() - start_unix_s
+
+
+def _before_end(tok: _Tokens) -> Window:
+    """'at least N h|d before the end' (N and its unit may be written together: 48h)."""
+    tok.take("at")
+    tok.expect("least")
+    raw = tok.take("a duration, e.g. 48 h")
+    m = _SPAN.match(raw)
+    unit = m.group(2) if m else None
+    if m and unit is None and tok.low() in ("h", "hour", "hours", "d", "day", "days"):
+        unit = tok.take("a unit")
+    if m is None or unit is None:
+        tok.fail(f"{raw!r}: expected a duration in hours or days, e.g. 48 h or 2 d")
+    span_s = float(m.group(1)) * (DAY_S if unit.lower().startswith("d") else HOUR_S)
+    for word in ("before", "the", "end"):
+        tok.expect(word)
+    return Window(None, None, before_end_s=span_s)
+
+
+def _number(tok: _Tokens, unit_s: float | None, start_unix_s: float | None = None) -> tuple[float, float]:
+    """Parse '[day|hour] NUMBER' or 'DATE [HH:MM]' -> (seconds from the start, unit seconds)."""
     word = tok.low()
+    if word is not None and _DATE.match(word):
+        return _date(tok, start_unix_s), unit_s or DAY_S
     if word in ("day", "days"):
         unit_s = DAY_S
         tok.take("day")
@@ -171,23 +231,25 @@ def _number(tok: _Tokens, unit_s: float | None) -> tuple[float, float]:
     return x * unit_s, unit_s
 
 
-def _window(tok: _Tokens) -> Window:
+def _window(tok: _Tokens, start_unix_s: float | None = None) -> Window:
     if tok.done():
         return Window()
     word = tok.low()
+    if word == "at" and tok.low(1) == "least":
+        return _before_end(tok)
     if word == "before":
         tok.take("before")
-        end, _ = _number(tok, None)
+        end, _ = _number(tok, None, start_unix_s)
         return Window(None, end, end_inclusive=False)
     if word == "after":
         tok.take("after")
-        start, _ = _number(tok, None)
+        start, _ = _number(tok, None, start_unix_s)
         return Window(start, None)
     if word == "between":
         tok.take("between")
-        start, unit = _number(tok, None)
+        start, unit = _number(tok, None, start_unix_s)
         tok.expect("and")
-        end, _ = _number(tok, unit)
+        end, _ = _number(tok, unit, start_unix_s)
         if end < start:
             tok.fail("the window ends before it starts")
         return Window(start, end)
@@ -264,8 +326,10 @@ def _check_names(subject: Subject, machine: Machine | None, fail) -> None:
             fail(f"unknown value {subject.value!r} on point {subject.point!r} (known: {', '.join(values)})")
 
 
-def parse(text: str, machine: Machine | None = None, where: str = "expectation") -> Expectation:
-    """Parse one expectation; names are checked against ``machine`` when given.
+def parse(text: str, machine: Machine | None = None, where: str = "expectation",
+          start_unix_s: float | None = None) -> Expectation:
+    """Parse one expectation; names are checked against ``machine`` when given; dates are read as
+    seconds from ``start_unix_s`` (the replay's first update), which a date needs.
 
     Raises :class:`ConfigError` with one line ``where = 'text': problem`` on any mistake.
     """
@@ -280,7 +344,7 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
         tok.take("no")
         subject = Subject("machine")
         state = _state(tok, subject)
-        window = _window(tok)
+        window = _window(tok, start_unix_s)
         verb = "never"
         other = None
     else:
@@ -289,7 +353,7 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
         verb = _verb(tok)
         state = _state(tok, subject)
         other = None
-        if verb == "reaches" and tok.low() == "before" and tok.low(1) not in ("day", "days", "hour", "hours"):
+        if verb == "reaches" and tok.low() == "before" and not _is_time(tok.low(1)):
             tok.take("before")
             second = _subject(tok)
             _check_names(second, machine, fail)
@@ -297,7 +361,7 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
             other = (second, _state(tok, second))
             window = Window()
         else:
-            window = _window(tok)
+            window = _window(tok, start_unix_s)
     if not tok.done():
         fail(f"unexpected {' '.join(tok.words[tok.i:])!r} at the end")
     if verb in ("stays below",) and state not in ORDERED and subject.kind != "zone":
@@ -398,7 +462,8 @@ def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
         detail = f"{exp.subject} reached {exp.state} at {_at(a, exp.subject)}, {other} reached {other_state} at {_at(b, other)}"
         return Verdict(exp, a.elapsed_s < b.elapsed_s, f"{detail} ({lead:+.2f} days)")
 
-    inside = [s for s in samples if exp.window.contains(s.elapsed_s)]
+    window = exp.window.resolve(samples[-1].elapsed_s if samples else 0.0)
+    inside = [s for s in samples if window.contains(s.elapsed_s)]
     if not inside:
         span = f"{day(samples[0].elapsed_s)} to {day(samples[-1].elapsed_s)}" if samples else "no updates at all"
         return Verdict(exp, False, f"no updates inside the window (the replay covers {span})")
@@ -406,7 +471,7 @@ def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
     hits = [s for s in inside if matches(_state_of(s, subj), want, subj)]
     if exp.verb == "reaches":
         entries = entering(samples, subj, want)
-        inside_entries = [s for s in entries if exp.window.contains(s.elapsed_s)]
+        inside_entries = [s for s in entries if window.contains(s.elapsed_s)]
         if inside_entries:
             return Verdict(exp, True, f"entered {want} at {_at(inside_entries[0], subj)}")
         if entries:

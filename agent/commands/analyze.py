@@ -66,6 +66,9 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", choices=("text", "json"), default="text", help="output format (default text)")
     p.add_argument("--max-seconds", type=float, default=MAX_SECONDS,
                    help=f"analyze at most this many seconds from the start (default {MAX_SECONDS:g})")
+    from ..history.command import add_element_arguments
+
+    add_element_arguments(p)
 
 
 # ------------------------------------------------------------------------------------------- reading
@@ -409,8 +412,16 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--rpm {args.rpm:g}: must be a speed above 0")
     if not (math.isfinite(args.max_seconds) and args.max_seconds > 0):
         raise InputError(f"--max-seconds {args.max_seconds:g}: must be a positive number of seconds")
-    rec = read_recording(args.file, args.unit, args.channel, point if args.config is not None else None,
-                         args.max_seconds)
+    if args.at is not None:  # one element of a history, through the history reader
+        from ..history.command import element_samples
+
+        if args.config is None:
+            raise InputError("--at needs --config (the machine the history belongs to)")
+        x_el, fs_el, name = element_samples(args, machine, point)
+        rec = Samples(x_el, fs_el, x_el.size, point.sensor.channel, "m/s2", f"history element {name}")
+    else:
+        rec = read_recording(args.file, args.unit, args.channel, point if args.config is not None else None,
+                             args.max_seconds)
     x, fs, n_file = rec.x_m_s2, rec.fs_hz, rec.n_file
     # the recording is one update: its length is the window (envelope lines are sized to fit it)
     machine = machine.model_copy(update={"analysis": machine.analysis.model_copy(update={"window_s": x.size / fs})})

@@ -26,10 +26,12 @@ from typing import Any
 from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
 from ..heap import hold_freed_memory
+from ..history import command as history_cmd
 from ..replay import (
     UNITS,
     ReplayLog,
     event_record,
+    iso_date,
     open_recording,
     recording_frames,
     scenario_frames,
@@ -46,6 +48,8 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     src.add_argument("--scenario", metavar="FILE", help="scenario TOML file (config/scenarios/...)")
     src.add_argument("--input", metavar="FILE", help="recording to replay: .wav or .npz (needs --config)")
     p.add_argument("--config", metavar="FILE", help="machine configuration (default with --scenario: the scenario's)")
+    p.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a value of --config as 'run --set' does, e.g. to try other levels (repeatable)")
     p.add_argument("--machine", metavar="ID", help="machine id, when the configuration has several")
     p.add_argument("--unit", choices=UNITS, default=None,
                    help="what the recording's samples are, when the file does not say (integer WAV: volts, "
@@ -62,6 +66,7 @@ def add_parser(p: argparse.ArgumentParser) -> None:
                    help="scenario: processes drawing the snapshots ahead of the analysis (default: CPUs, at most 4; 1: none)")
     p.add_argument("--learning-updates", type=int, metavar="N",
                    help="learn baselines from the first N updates instead of the configured learning period")
+    history_cmd.add_arguments(p, src)
 
 
 def _start_unix_s(text: str) -> float:
@@ -93,7 +98,7 @@ def _open_scenario(args):
 
     scenario = load_scenario(args.scenario)
     if args.config:
-        config = load_config(args.config)
+        config = load_config(args.config, args.overrides)
         machine = _pick_machine(config, args.machine or scenario.machine.id, args.config)
         problems = cross_check(scenario.spec, machine, config, str(scenario.path))
         if problems:
@@ -104,13 +109,13 @@ def _open_scenario(args):
     return scenario, ScenarioRenderer(scenario)
 
 
-def _expectations(args, machine, scenario) -> list:
+def _expectations(args, machine, scenario, start_unix_s: float) -> list:
     out = []
     if scenario is not None:
         for i, text in enumerate(scenario.spec.scenario.expect):
-            out.append(parse(text, machine, where=f"{scenario.path}: scenario.expect[{i}]"))
+            out.append(parse(text, machine, where=f"{scenario.path}: scenario.expect[{i}]", start_unix_s=start_unix_s))
     for i, text in enumerate(args.expect):
-        out.append(parse(text, machine, where=f"--expect[{i}]"))
+        out.append(parse(text, machine, where=f"--expect[{i}]", start_unix_s=start_unix_s))
     return out
 
 
@@ -131,11 +136,30 @@ class _Input:
     source: str
     cadence: str
     scenario: Any = None
+    history: Any = None  # a history_cmd.HistoryInput for --history
+    start_unix_s: float | None = None  # the history's first time
+
+
+def _open_history(args: argparse.Namespace) -> _Input:
+    from ..settings.loading import load_config
+
+    if not args.config:
+        raise InputError("--history needs --config (the machine configuration the history belongs to)")
+    config = load_config(args.config, args.overrides)
+    machine = _pick_machine(config, args.machine, args.config)
+    hist = history_cmd.open_input(args, config, machine, start_given=args.start != DEFAULT_START)
+    return _Input(config, machine, hist.fs_hz, machine.analysis.window_s, hist.frames, hist.total,
+                  f"{hist.source}, config {args.config}", hist.cadence, None, hist, hist.start_unix_s)
 
 
 def _open_input(args: argparse.Namespace) -> _Input:
     from ..settings.loading import load_config
 
+    history_cmd.check_options(args)
+    if args.overrides and not args.config:
+        raise InputError("--set needs --config (the configuration it overrides)")
+    if args.history:
+        return _open_history(args)
     scenario = renderer = None
     if args.scenario:
         scenario, renderer = _open_scenario(args)
@@ -149,7 +173,7 @@ def _open_input(args: argparse.Namespace) -> _Input:
     else:
         if not args.config:
             raise InputError("--input needs --config (the machine configuration the recording belongs to)")
-        config = load_config(args.config)
+        config = load_config(args.config, args.overrides)
         machine = _pick_machine(config, args.machine, args.config)
         window_s = machine.analysis.window_s
         rec = open_recording(args.input, machine, args.unit, window_s)
@@ -175,7 +199,7 @@ def _write_text(out: Any, args: argparse.Namespace, inp: _Input, log: ReplayLog,
     out.write(f"rotorwatch replay: {inp.source}\n")
     out.write(
         f"machine {machine.id} ({machine.name or 'unnamed'}), points {', '.join(p.id for p in machine.points)}; "
-        f"{n} updates {inp.cadence} over {last / 86400:.2f} days from {args.start}; "
+        f"{n} updates {inp.cadence} over {last / 86400:.2f} days from {iso_date(log.start_unix_s)}; "
         f"{inp.window_s:g} s windows at {inp.fs_hz:g} Hz\n"
     )
     out.write(f"replay took {wall_s:.1f} s ({1000 * wall_s / n:.0f} ms per update)\n\n")
@@ -184,6 +208,8 @@ def _write_text(out: Any, args: argparse.Namespace, inp: _Input, log: ReplayLog,
     except ValueError:
         limits = None
     out.write(timeline(log, limits) + "\n")
+    if inp.history is not None:
+        history_cmd.report(args, log, out, _emit)
     if verdicts:
         out.write("\nExpectations\n")
         for v in verdicts:
@@ -204,7 +230,8 @@ def run(args: argparse.Namespace) -> int:
     inp = _open_input(args)
     config, machine, fs_hz, frames, total = inp.config, inp.machine, inp.fs_hz, inp.frames, inp.total
     scenario = inp.scenario
-    expectations = _expectations(args, machine, scenario)
+    start = inp.start_unix_s if inp.start_unix_s is not None else start
+    expectations = _expectations(args, machine, scenario, start)
     policy = AlarmPolicy(learning_hours=0.0, min_learning_updates=args.learning_updates) if args.learning_updates else None
 
     tmp = None
@@ -215,7 +242,7 @@ def run(args: argparse.Namespace) -> int:
         state_dir = Path(tmp.name)
     try:
         pipeline = MachinePipeline(config, machine, state_dir=state_dir, policy=policy)
-        log = ReplayLog(machine, start)
+        log = history_cmd.new_log(machine, start) if inp.history else ReplayLog(machine, start)
         progress = sys.stderr.isatty() and args.format == "text"
         t_wall = time.perf_counter()
         for i, frame in enumerate(frames):
@@ -233,18 +260,22 @@ def run(args: argparse.Namespace) -> int:
             print("\r" + " " * 40 + "\r", end="", file=sys.stderr, flush=True)
         pipeline.close()
     finally:
-        frames.close()  # stops render workers early on an error
+        frames.close()  # stops render (or decoding) workers early on an error
+        if inp.history is not None:
+            inp.history.history.close()
         if tmp is not None:
             tmp.cleanup()
     n = len(log.samples)
     if n == 0:
-        raise InputError(f"{args.scenario or args.input}: nothing to replay (no update)")
+        raise InputError(f"{args.scenario or args.input or args.history}: nothing to replay (no update)")
 
     verdicts = [evaluate(x, log.samples) for x in expectations]
     failed = [v for v in verdicts if not v.passed]
     if args.format == "jsonl":
         for v in verdicts:
             _emit({"type": "expectation", "text": v.expectation.text, "passed": v.passed, "detail": v.detail}, out)
+        if inp.history is not None:
+            history_cmd.report(args, log, out, _emit)
         _emit({
             "type": "summary", "machine": machine.id, "updates": n, "points": len(machine.points),
             "wall_s": round(wall_s, 3), "final_state": log.last.state if log.last else None,

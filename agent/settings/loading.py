@@ -105,7 +105,9 @@ def apply_overrides(data: dict[str, Any], overrides: list[str] | tuple[str, ...]
     """Apply ``section.key=value`` overrides (``--set`` on the command line) to parsed TOML data.
 
     The value is read as a TOML value (``port=1884``, ``bind="0.0.0.0"``, ``loop=true``); anything that
-    does not parse as one is taken as a plain string. Tables on the path are created when missing.
+    does not parse as one is taken as a plain string. Tables on the path are created when missing. In
+    an array of tables an element is named by its ``id`` or ``name``:
+    ``machines.rig.bands.outer-race.levels.relative_warning=4``.
     """
     problems = []
     for item in overrides:
@@ -118,15 +120,28 @@ def apply_overrides(data: dict[str, Any], overrides: list[str] | tuple[str, ...]
             value = tomllib.loads(f"v = {raw}")["v"]
         except tomllib.TOMLDecodeError:
             value = raw
-        node = data
+        node: Any = data
         for part in parts[:-1]:
+            if isinstance(node, list):  # an array of tables: the element whose id or name is part
+                found = [t for t in node if isinstance(t, dict) and part in (t.get("id"), t.get("name"))]
+                if not found:
+                    problems.append(f"--set {item!r}: no element with id or name {part!r} in {source}")
+                    break
+                node = found[0]
+                continue
             child = node.setdefault(part, {})
+            if isinstance(child, list) and child and all(isinstance(t, dict) for t in child):
+                node = child
+                continue
             if not isinstance(child, dict):
                 problems.append(f"--set {item!r}: {part} is not a table in {source}")
                 break
             node = child
         else:
-            node[parts[-1]] = value
+            if isinstance(node, list):
+                problems.append(f"--set {item!r}: {parts[-2]} is an array of tables: name an element and its key")
+            else:
+                node[parts[-1]] = value
     if problems:
         raise ConfigError(problems)
     return data

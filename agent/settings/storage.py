@@ -120,3 +120,6 @@ class SnapshotSettings(_Model):
     transition_share: float = Field(0.5, ge=0.1, le=0.9, allow_inf_nan=False)
     on_request_burst: int = Field(3, ge=1, le=100)
     on_request_interval_s: float = Field(600.0, ge=0, allow_inf_nan=False)
+    # every update's evidence (reason "schedule", detail "every update"): a short diagnostic run, or a
+    # record to replay later with `rotorwatch replay --history <state_dir>`; mind the quota
+    every_update: bool = False

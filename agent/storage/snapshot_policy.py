@@ -86,6 +86,7 @@ class SnapshotPolicy:
         self.states = tuple(settings.on_transition_to)
         self.min_interval_s = float(settings.min_interval_s)
         self.schedule = DailySchedule(settings.daily_at_utc) if settings.daily_at_utc else None
+        self.every_update = bool(getattr(settings, "every_update", False))
         self._store = store
         self._last: dict[tuple[str, str], float | None] = {}
         self._entries: dict[str, dict[tuple[str | None, str, str], float]] = {}  # machine -> entry -> time
@@ -134,6 +135,9 @@ class SnapshotPolicy:
                 detail = "; ".join(
                     f"{e.point_id or 'machine'}/{e.value_name} {e.old_state}->{e.new_state}" for e in entering)
                 return "transition", detail
+        if self.every_update:
+            self._last[(mid, "schedule")] = now
+            return "schedule", "every update"
         if self.schedule is not None and self.schedule.due(now, self._last_time(mid, "schedule")):
             self._last[(mid, "schedule")] = now
             return "schedule", f"daily at {self.schedule.at_utc} UTC"

@@ -1,0 +1,111 @@
+"""Replay speed of a history: N snapshots of 1 s at 20 kHz on 4 channels (default N = 1000).
+
+Prints figures; asserts nothing. The history is a folder of float32 WAV files in volts (unit and
+sensitivities in their metadata, the time in each name), rendered by the simulator from the bench
+scenario (tests/bench/bench-scenario.toml: the invented demo spall on the four-sensor machine): 40
+distinct snapshots spread over its 30 days, repeated in turn to N files 6 min apart. The machine is
+bench-4ch.toml with the rate and window set from the command line (--set), as a user would:
+20 kHz, 1 s windows, fmax 8 kHz (and the 2-10 kHz band to 8 kHz), learning on the first 20 updates.
+
+    .venv/bin/python tests/bench/bench_history.py [--snapshots 1000] [--workers 1,2]
+
+For each worker count: the whole ``rotorwatch replay --history`` command (wall clock, in-process), and
+what part of it the decoding alone takes (the elements decoded without analysis).
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import os
+import shutil
+import tempfile
+import time
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+CONFIG = HERE / "bench-4ch.toml"
+SCENARIO = HERE / "bench-scenario.toml"
+FS_HZ = 20000.0
+SETS = ["acquisition.sample_rate_hz=20000", "machines.ef3.analysis.window_s=1.0", "machines.ef3.analysis.fmax_hz=8000",
+        "machines.ef3.bands.bearing-hf.high_hz=8000"]
+
+
+def write_history(folder: Path, n: int) -> None:
+    from rotorwatch.recordings import write_wav
+    from rotorwatch.settings.loading import load_config
+    from rotorwatch.simulators.render import ScenarioRenderer
+    from rotorwatch.simulators.scenario import load_scenario
+
+    renderer = ScenarioRenderer(load_scenario(SCENARIO))
+    machine = load_config(CONFIG, SETS).machines[0]
+    ids = [p.id for p in sorted(machine.points, key=lambda p: p.sensor.channel)]
+    sens = [p.sensor.volts_per_m_s2 for p in sorted(machine.points, key=lambda p: p.sensor.channel)]
+    import numpy as np
+
+    distinct = []
+    for k in range(40):
+        blocks = renderer.snapshot(k * 30 * 86400.0 / 40, 1.0, FS_HZ)
+        distinct.append(np.stack([blocks[i] for i in ids], axis=1).astype(np.float32))
+    t0 = datetime(2026, 3, 1, tzinfo=UTC)
+    for k in range(n):
+        name = (t0 + timedelta(minutes=6 * k)).strftime("ef3-%Y%m%dT%H%M%S.wav")
+        write_wav(folder / name, distinct[k % len(distinct)], FS_HZ, "volts", sens)
+
+
+def run_replay(folder: Path, workers: int) -> tuple[float, str]:
+    from rotorwatch.cli import main
+
+    argv = ["replay", "--config", str(CONFIG), *[a for s in SETS for a in ("--set", s)], "--history", str(folder),
+            "--time-pattern", "%Y%m%dT%H%M%S", "--learning-updates", "20", "--workers", str(workers)]
+    out = io.StringIO()
+    t = time.perf_counter()
+    with contextlib.redirect_stdout(out):
+        rc = main(argv)
+    wall = time.perf_counter() - t
+    assert rc == 0, out.getvalue()[-2000:]
+    return wall, out.getvalue()
+
+
+def decode_only(folder: Path, workers: int) -> float:
+    from rotorwatch.history.feed import decoded
+    from rotorwatch.history.readers import open_history
+    from rotorwatch.history.spec import HistorySpec
+    from rotorwatch.settings.loading import load_config
+
+    machine = load_config(CONFIG, SETS).machines[0]
+    h = open_history(HistorySpec(folder, time_pattern="%Y%m%dT%H%M%S"), machine, 1.0)
+    t = time.perf_counter()
+    for _ in decoded(h, workers):
+        pass
+    return time.perf_counter() - t
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--snapshots", type=int, default=1000)
+    ap.add_argument("--workers", default="1,2", help="worker counts to try, comma-separated")
+    args = ap.parse_args()
+    folder = Path(tempfile.mkdtemp(prefix="rotorwatch-bench-history-"))
+    try:
+        t = time.perf_counter()
+        write_history(folder, args.snapshots)
+        size = sum(f.stat().st_size for f in folder.iterdir())
+        print(f"history: {args.snapshots} WAV files, 4 channels x 1 s at {FS_HZ:g} Hz, {size / 1e6:.0f} MB, "
+              f"written in {time.perf_counter() - t:.1f} s")
+        print(f"box: {os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.1f} at the start")
+        for w in (int(x) for x in args.workers.split(",")):
+            dec = decode_only(folder, w)
+            wall, text = run_replay(folder, w)
+            line = next((x for x in text.splitlines() if x.startswith("replay took")), "")
+            print(f"workers {w}: replay command {wall:.1f} s for {args.snapshots} updates "
+                  f"({1000 * wall / args.snapshots:.1f} ms per update); {line}; decoding alone {dec:.1f} s")
+        print(f"load average {os.getloadavg()[0]:.1f} at the end (2 cores shared: figures vary with the load)")
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
