@@ -242,8 +242,12 @@ class Analysis(Model):
     envelope: Envelope = Envelope()
 
 
-#: Names of the findings the analysis reports (``Finding.name``) that ``alarms.findings`` may key.
-FINDING_NAMES = ("BPFO", "BPFI", "BSF", "FTF")
+#: Names of the findings the analysis reports (``Finding.name``) that ``alarms.findings`` may key: the
+#: bearing defects, then the shaft, drive, flow, electrical and gear findings (rotorwatch.analysis.diagnosis).
+BEARING_FINDING_NAMES = ("BPFO", "BPFI", "BSF", "FTF")
+DIAGNOSIS_FINDING_NAMES = ("unbalance", "misalignment", "looseness", "belt", "blade_pass", "flow", "2xLF",
+                           "pole_pass", "gear_mesh")
+FINDING_NAMES = BEARING_FINDING_NAMES + DIAGNOSIS_FINDING_NAMES
 
 
 class FindingRule(Model):
@@ -299,6 +303,54 @@ class AlarmPolicy(Model):
         return self
 
 
+class Drive(Model):
+    """A belt or gear stage between the driver (the motor) and the driven shaft (``[machines.drive]``).
+
+    ``speed_of`` says which shaft the machine's ``speed`` measures. Belt: the sheaves' pitch diameters
+    (``driver_sheave_mm``, ``driven_sheave_mm``) give the driven speed, and the belt pass frequency comes
+    from the belt's pitch length (``belt_length_mm``) or is given directly as a multiple of the driver's
+    speed (``belt_pass_order``). Gear: the tooth counts (``driver_teeth``, ``driven_teeth``) give the
+    driven speed and the gear mesh frequency (driver teeth x driver speed).
+    """
+
+    kind: Literal["belt", "gear"]
+    speed_of: Literal["driver", "driven"] = "driver"
+    driver_sheave_mm: PositiveFloat | None = None
+    driven_sheave_mm: PositiveFloat | None = None
+    belt_length_mm: PositiveFloat | None = None
+    belt_pass_order: PositiveFloat | None = None
+    driver_teeth: int | None = Field(None, ge=5, le=1000)
+    driven_teeth: int | None = Field(None, ge=5, le=1000)
+
+    @model_validator(mode="after")
+    def _keys_of_kind(self) -> Drive:
+        belt = (self.driver_sheave_mm, self.driven_sheave_mm, self.belt_length_mm, self.belt_pass_order)
+        gear = (self.driver_teeth, self.driven_teeth)
+        if self.kind == "belt":
+            if any(v is not None for v in gear):
+                raise ValueError("a belt drive takes no driver_teeth / driven_teeth")
+            if self.driver_sheave_mm is None or self.driven_sheave_mm is None:
+                raise ValueError("a belt drive needs driver_sheave_mm and driven_sheave_mm")
+            if (self.belt_length_mm is None) == (self.belt_pass_order is None):
+                raise ValueError("a belt drive needs one of belt_length_mm or belt_pass_order")
+            if self.belt_length_mm is not None and self.belt_length_mm <= math.pi * self.driver_sheave_mm:
+                raise ValueError(f"belt_length_mm ({self.belt_length_mm:g}) must exceed the driver sheave's "
+                                 f"circumference ({math.pi * self.driver_sheave_mm:.0f} mm)")
+        else:
+            if any(v is not None for v in belt):
+                raise ValueError("a gear drive takes no sheave or belt keys")
+            if self.driver_teeth is None or self.driven_teeth is None:
+                raise ValueError("a gear drive needs driver_teeth and driven_teeth")
+        return self
+
+    @property
+    def ratio(self) -> float:
+        """Driven speed / driver speed."""
+        if self.kind == "belt":
+            return self.driver_sheave_mm / self.driven_sheave_mm  # type: ignore[operator]
+        return self.driver_teeth / self.driven_teeth  # type: ignore[operator]
+
+
 class Machine(Model):
     id: Ident
     name: str = ""
@@ -312,6 +364,10 @@ class Machine(Model):
     # on the mains; for a drive-fed motor leave it out, or give the drive's output frequency when it is
     # fixed. Twice this frequency (2xLF) and its harmonics are electrical lines, not mechanical ones.
     line_frequency_hz: float | None = Field(None, ge=10, le=400, allow_inf_nan=False)
+    # The motor's pole count (2, 4, 6, ...): with the line frequency it gives the synchronous speed, the
+    # slip and the pole-pass frequency (rotor-bar sidebands around the motor's 1x).
+    motor_poles: int | None = Field(None, ge=2, le=48)
+    drive: Drive | None = None
     points: list[Point] = Field(min_length=1)
     bands: list[Band] = []
     overall: Overall = Overall()
@@ -335,6 +391,10 @@ class Machine(Model):
             for pid in b.points or []:
                 if pid not in point_ids:
                     problems.append(f"band {b.name!r} names point {pid!r}, known: {point_ids}")
+        if self.motor_poles is not None and self.motor_poles % 2:
+            problems.append(f"motor_poles = {self.motor_poles}: a motor has an even number of poles")
+        if self.drive is not None and self.drive.kind == "gear" and self.kind != "gearbox":
+            problems.append(f"drive.kind = 'gear' needs kind = 'gearbox' (kind is {self.kind!r})")
         if problems:
             raise ValueError("; ".join(problems))
         if self.overall.low_hz is None:
