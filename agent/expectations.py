@@ -5,6 +5,8 @@ A small grammar of our own, one expectation per string::
     expectation := subject verb state [window]
                  | "no" state [window]                       (the machine never reaches the state)
                  | subject "reaches" state "before" subject "reaches" state
+                 | "finding" NAME ["on" POINT] ("appears" | "never appears" | "is present") [window]
+                 | "no finding" NAME ["on" POINT] [window]
     subject     := "machine" | "point" POINT | "zone on" POINT | VALUE "on" POINT
     verb        := "reaches" | "is" | "stays below" | "never" | "ends"
     window      := "before" TIME | "after" TIME | "between" TIME "and" TIME
@@ -15,6 +17,10 @@ A small grammar of our own, one expectation per string::
 ``alarms.findings`` (the state it raises on the point); states are the point states (``alarm``, ``warning``,
 ``sensor_fault``, ``no_data``, ``learning``, ``normal``, ``stopped``), ``suppressed`` for values, and
 the ISO 20816 zone letters ``A`` to ``D`` (optionally written ``zone C``) for ``zone on POINT``.
+
+``finding NAME`` is a finding the analysis reports on the point (or on any point without ``on POINT``),
+whether or not it raises a state: ``appears`` is ``reaches present``, ``no finding`` is ``never present``.
+NAME is one of the finding names (``BPFO`` ... ``unbalance``, ``looseness``, ``2xLF``, ``gear_mesh``).
 
 Meaning, over the updates inside the window:
 
@@ -34,6 +40,8 @@ the day numbers. Examples::
     point de-h is sensor_fault between day 12.0 and day 12.1
     machine never alarm
     de-outer-race on de-h reaches warning before zone on de-h reaches C
+    finding looseness on de-h appears before day 28
+    no finding unbalance
 """
 
 from __future__ import annotations
@@ -45,7 +53,7 @@ from typing import NoReturn
 
 from .alarms.records import STATES
 from .errors import ConfigError
-from .settings.models import Machine
+from .settings.models import FINDING_NAMES, Machine
 
 DAY_S = 86400.0
 HOUR_S = 3600.0
@@ -63,11 +71,13 @@ GRAMMAR_HINT = (
 # ---------------------------------------------------------------------------------------------- model
 @dataclass(frozen=True)
 class Subject:
-    kind: str  # machine | point | value | zone
+    kind: str  # machine | point | value | zone | finding (point None: any point)
     point: str | None = None
     value: str | None = None
 
     def __str__(self) -> str:
+        if self.kind == "finding":
+            return f"finding {self.value}" + (f" on {self.point}" if self.point else "")
         if self.kind == "machine":
             return "machine"
         if self.kind == "point":
@@ -110,6 +120,7 @@ class Sample:
     points: dict[str, str]
     values: dict[tuple[str, str], tuple[str, float, str]]  # (point, value) -> (state, value, unit)
     zones: dict[str, str | None] = field(default_factory=dict)
+    findings: dict[str, frozenset[str]] = field(default_factory=dict)  # point -> names the analysis reported
 
 
 @dataclass(frozen=True)
@@ -276,6 +287,8 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
     tok = _Tokens(text, fail)
     if tok.done():
         fail("empty expectation")
+    if tok.low() == "finding" or (tok.low() == "no" and tok.low(1) == "finding"):
+        return _finding_expectation(text, tok, machine, fail)
     if tok.low() == "no":
         tok.take("no")
         subject = Subject("machine")
@@ -305,8 +318,47 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation")
     return Expectation(" ".join(text.split()), subject, verb, state, window, other)
 
 
+def _finding_expectation(text: str, tok: _Tokens, machine: Machine | None, fail) -> Expectation:
+    negated = tok.low() == "no"
+    if negated:
+        tok.take("no")
+    tok.take("finding")
+    name = tok.take("a finding name")
+    if name not in FINDING_NAMES:
+        fail(f"unknown finding {name!r} (known: {', '.join(FINDING_NAMES)})")
+    point = None
+    if tok.low() == "on":
+        tok.take("on")
+        point = tok.take("a point id")
+    subject = Subject("finding", point=point, value=name)
+    _check_names(subject, machine, fail)
+    if negated:
+        verb = "never"
+    elif tok.low() == "appears":
+        tok.take("appears")
+        verb = "reaches"
+    elif tok.low() == "never" and tok.low(1) == "appears":
+        tok.take("never")
+        tok.take("appears")
+        verb = "never"
+    elif tok.low() == "is" and tok.low(1) == "present":
+        tok.take("is")
+        tok.take("present")
+        verb = "is"
+    else:
+        fail(f"expected 'appears', 'never appears' or 'is present' after {subject} but found {tok.peek()!r}")
+    window = _window(tok)
+    if not tok.done():
+        fail(f"unexpected {' '.join(tok.words[tok.i:])!r} at the end")
+    return Expectation(" ".join(text.split()), subject, verb, "present", window)
+
+
 # ----------------------------------------------------------------------------------------- evaluation
 def _state_of(sample: Sample, subject: Subject) -> str | None:
+    if subject.kind == "finding":
+        names = ([sample.findings.get(subject.point, frozenset())] if subject.point is not None
+                 else list(sample.findings.values()))
+        return "present" if any(subject.value in n for n in names) else "absent"
     if subject.kind == "machine":
         return sample.machine
     if subject.kind == "point":

@@ -69,6 +69,22 @@ class Context:
         return [Shaft("driver", speeds[0]), Shaft("driven", speeds[1])]
 
 
+def explained(ctx: Context, hz: float, guard_lines: float = 2.0) -> bool:
+    """True when ``hz`` lies within ``guard_lines`` lines of a whole order of either shaft or of a belt pass
+    harmonic: such a line belongs to that source and is no evidence for another."""
+    guard = guard_lines * ctx.lines.df
+    for s in ctx.shafts():
+        if s.hz > 0 and hz >= 0.5 * s.hz and abs(hz - s.hz * round(hz / s.hz)) <= guard:
+            return True
+    d = ctx.machine.drive
+    if d is not None and d.kind == "belt":
+        from .drive import belt_pass_hz  # noqa: PLC0415 (drive imports this module)
+
+        fb = belt_pass_hz(d, ctx.shafts()[0].hz)
+        return any(abs(hz - h * fb) <= guard for h in range(1, 5))
+    return False
+
+
 def confidence(signs: int, of: int) -> str:
     """``high`` when every corroborating sign was seen, ``medium`` for at least half, else ``low``."""
     if of <= 0 or signs >= of:

@@ -10,7 +10,7 @@ sidebands at 1x +/- f_p (same sources; from memory). The motor is the driver sha
 from __future__ import annotations
 
 from ..result import Finding
-from .base import Context, confidence, finding, mm_s
+from .base import Context, confidence, explained, finding, mm_s
 
 LINE_TOLERANCE = 0.002  # the mains' wander, +/- 0.2 % (as in narrowband.py, from memory)
 ORDER_GUARD_LINES = 3  # a 2xLF line within 3 lines of a shaft order cannot be told from it
@@ -48,7 +48,8 @@ def twice_line(ctx: Context) -> Finding | None:
 def pole_pass(ctx: Context) -> Finding | None:
     """Pole-pass sidebands (see the module doc): with ``line_frequency_hz`` and ``motor_poles``, a motor
     running below its synchronous speed, and f_p at least 5 lines (1.25 Hz in a 4 s window): 1x of the motor stands out and at least
-    one sideband at 1x +/- f_p stands out and reaches 10 % of 1x. Confidence: high with both sidebands and a
+    one sideband at 1x +/- f_p stands out, reaches 10 % of 1x and is not a line of another source (an order of
+    either shaft, a belt pass harmonic). Confidence: high with both sidebands and a
     measured speed (with a fixed speed the slip is the configured one), medium with one of the two."""
     m = ctx.machine
     if m.line_frequency_hz is None or m.motor_poles is None:
@@ -66,7 +67,8 @@ def pole_pass(ctx: Context) -> Finding | None:
     tol = max(2 * v.df, 0.1 * f_p)
     sides = [v.line(f"1x {sign} pole pass", motor.hz + (1 if sign == "+" else -1) * f_p, tol_hz=min(tol, 0.45 * f_p))
              for sign in ("-", "+")]
-    counted = [x for x in sides if x.stands_out and x.rms_mm_s >= SIDEBAND_SHARE * one.rms_mm_s]
+    counted = [x for x in sides if x.stands_out and x.rms_mm_s >= SIDEBAND_SHARE * one.rms_mm_s
+               and not explained(ctx, x.found_hz)]
     if not counted:
         return None
     signs = int(len(counted) == 2) + int(ctx.measured_speed)
