@@ -270,7 +270,7 @@ def _check_names(subject: Subject, machine: Machine | None, fail) -> None:
         fail(f"unknown point {subject.point!r} (machine {machine.id!r} has {', '.join(points)})")
     if subject.kind == "value":
         values = ["overall"] + [b.name for b in machine.bands_for(subject.point)]
-        values += [f"finding:{name}" for name in machine.alarms.findings]
+        values += [f"finding:{name}" for name in machine.alarms.finding_rules]
         if subject.value not in values:
             fail(f"unknown value {subject.value!r} on point {subject.point!r} (known: {', '.join(values)})")
 
