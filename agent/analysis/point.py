@@ -28,7 +28,7 @@ from ..errors import InputError
 from ..settings.models import Machine, Point
 from ..settings.quantities import SPECTRA, SPECTRUM_UNITS
 from . import bands as band_mod
-from . import diagnosis, ordertrack, running_speed, severity
+from . import diagnosis, ordertrack, running_speed, severity, tachphase
 from .envelope import BlockSpectrum, EnvelopeKernel, EnvelopeOutput
 from .findings import assess
 from .indicators import waveform
@@ -161,6 +161,7 @@ class PointAnalyzer:
         used = running_speed.resolve(p.speed, SpeedReading(rpm, rpm_source, tach_pulses_s), x.size / p.fs_hz,
                                      lambda lo, hi: self._estimate(bs, lo, hi), p.point.id)
         rpm_used, source, angle, from_tach = used.rpm, used.source, used.angle, used.from_tach
+        tach_angle = angle if from_tach else None  # 1x and 2x phase locked to the pulses (tachphase.py)
         shaft_hz = rpm_used / 60.0
         change = angle.change_pct if angle is not None else None
         if source == "estimated":
@@ -214,5 +215,6 @@ class PointAnalyzer:
             # a speed ramp estimated from the spectrum is tracked too, but stays less certain than a tach's
             speed_unsteady=bool(change is not None and not from_tach and abs(change) > p.speed.max_change_pct),
             shaft_orders_mm_s=shaft_orders,
+            order_phase=tachphase.order_phasors(x0, p.fs_hz, tach_angle) if tach_angle is not None else {},
             **spectra,
         )

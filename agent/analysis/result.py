@@ -173,3 +173,5 @@ class PointResult:
     # velocity RMS (mm/s) of 1x, 2x and 3x of each shaft ("1x", or "driver 1x" / "driven 1x" ... with a drive),
     # read by the shaft findings (rotorwatch.analysis.diagnosis)
     shaft_orders_mm_s: dict[str, float] = field(default_factory=dict)
+    # with a tach: 1x and 2x as (velocity RMS mm/s, phase in degrees at the pulse), rotorwatch.analysis.tachphase
+    order_phase: dict[str, tuple[float, float]] = field(default_factory=dict)
