@@ -474,6 +474,8 @@ def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
             f"{_state_of(first, subj)} at {_at(first, subj)} ({len(misses)} of {len(inside)} updates not {want})",
         )
     if exp.verb in ("stays below", "never"):
+        if not hits and subj.kind == "finding":
+            return Verdict(exp, True, f"not reported in any of {len(inside)} updates")
         if not hits:
             return Verdict(exp, True, f"worst: {_worst_seen(inside, subj)} over {len(inside)} updates")
         return Verdict(exp, False, f"{_state_of(hits[0], subj)} at {_at(hits[0], subj)}")
