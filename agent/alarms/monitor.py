@@ -46,7 +46,7 @@ from ..analysis import severity
 from ..analysis.result import Finding, PointResult
 from ..analysis.running_speed import machine_speed
 from ..errors import ConfigError
-from ..settings.models import AlarmPolicy, Machine
+from ..settings.models import AlarmPolicy, FindingRule, Machine
 from ..settings.quantities import OVERALL_QUANTITY, quantity
 from .baseline import OVERALL, BaselineStore
 from .levels import LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
