@@ -5,6 +5,8 @@ A small grammar of our own, one expectation per string::
     expectation := subject verb state [window]
                  | "no" state [window]                       (the machine never reaches the state)
                  | subject "reaches" state "before" subject "reaches" state
+                 | "finding" NAME ["on" POINT] ("appears" | "never appears" | "is present") [window]
+                 | "no finding" NAME ["on" POINT] [window]
     subject     := "machine" | "point" POINT | "zone on" POINT | VALUE "on" POINT
     verb        := "reaches" | "is" | "stays below" | "never" | "ends"
     window      := "before" TIME | "after" TIME | "between" TIME "and" TIME
@@ -18,6 +20,10 @@ A small grammar of our own, one expectation per string::
 ``alarms.findings`` (the state it raises on the point); states are the point states (``alarm``, ``warning``,
 ``sensor_fault``, ``no_data``, ``learning``, ``normal``, ``stopped``), ``suppressed`` for values, and
 the ISO 20816 zone letters ``A`` to ``D`` (optionally written ``zone C``) for ``zone on POINT``.
+
+``finding NAME`` is a finding the analysis reports on the point (or on any point without ``on POINT``),
+whether or not it raises a state: ``appears`` is ``reaches present``, ``no finding`` is ``never present``.
+NAME is one of the finding names (``BPFO`` ... ``unbalance``, ``looseness``, ``2xLF``, ``gear_mesh``).
 
 Meaning, over the updates inside the window:
 
@@ -40,6 +46,8 @@ the day numbers. Examples::
     outer-race on de reaches alarm before 2004-02-19 06:00
     outer-race on de reaches warning at least 48 h before the end
     machine never warning before 2004-02-16
+    finding looseness on de-h appears before day 28
+    no finding unbalance
 """
 
 from __future__ import annotations
@@ -53,7 +61,7 @@ from typing import NoReturn
 
 from .alarms.records import STATES
 from .errors import ConfigError
-from .settings.models import Machine
+from .settings.models import FINDING_NAMES, Machine
 
 DAY_S = 86400.0
 HOUR_S = 3600.0
@@ -72,11 +80,13 @@ GRAMMAR_HINT = (
 # ---------------------------------------------------------------------------------------------- model
 @dataclass(frozen=True)
 class Subject:
-    kind: str  # machine | point | value | zone
+    kind: str  # machine | point | value | zone | finding (point None: any point)
     point: str | None = None
     value: str | None = None
 
     def __str__(self) -> str:
+        if self.kind == "finding":
+            return f"finding {self.value}" + (f" on {self.point}" if self.point else "")
         if self.kind == "machine":
             return "machine"
         if self.kind == "point":
@@ -126,6 +136,7 @@ class Sample:
     points: dict[str, str]
     values: dict[tuple[str, str], tuple[str, float, str]]  # (point, value) -> (state, value, unit)
     zones: dict[str, str | None] = field(default_factory=dict)
+    findings: dict[str, frozenset[str]] = field(default_factory=dict)  # point -> names the analysis reported
 
 
 @dataclass(frozen=True)
@@ -321,7 +332,7 @@ def _check_names(subject: Subject, machine: Machine | None, fail) -> None:
         fail(f"unknown point {subject.point!r} (machine {machine.id!r} has {', '.join(points)})")
     if subject.kind == "value":
         values = ["overall"] + [b.name for b in machine.bands_for(subject.point)]
-        values += [f"finding:{name}" for name in machine.alarms.findings]
+        values += [f"finding:{name}" for name in machine.alarms.finding_rules]
         if subject.value not in values:
             fail(f"unknown value {subject.value!r} on point {subject.point!r} (known: {', '.join(values)})")
 
@@ -340,6 +351,8 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation",
     tok = _Tokens(text, fail)
     if tok.done():
         fail("empty expectation")
+    if tok.low() == "finding" or (tok.low() == "no" and tok.low(1) == "finding"):
+        return _finding_expectation(text, tok, machine, fail)
     if tok.low() == "no":
         tok.take("no")
         subject = Subject("machine")
@@ -369,8 +382,47 @@ def parse(text: str, machine: Machine | None = None, where: str = "expectation",
     return Expectation(" ".join(text.split()), subject, verb, state, window, other)
 
 
+def _finding_expectation(text: str, tok: _Tokens, machine: Machine | None, fail) -> Expectation:
+    negated = tok.low() == "no"
+    if negated:
+        tok.take("no")
+    tok.take("finding")
+    name = tok.take("a finding name")
+    if name not in FINDING_NAMES:
+        fail(f"unknown finding {name!r} (known: {', '.join(FINDING_NAMES)})")
+    point = None
+    if tok.low() == "on":
+        tok.take("on")
+        point = tok.take("a point id")
+    subject = Subject("finding", point=point, value=name)
+    _check_names(subject, machine, fail)
+    if negated:
+        verb = "never"
+    elif tok.low() == "appears":
+        tok.take("appears")
+        verb = "reaches"
+    elif tok.low() == "never" and tok.low(1) == "appears":
+        tok.take("never")
+        tok.take("appears")
+        verb = "never"
+    elif tok.low() == "is" and tok.low(1) == "present":
+        tok.take("is")
+        tok.take("present")
+        verb = "is"
+    else:
+        fail(f"expected 'appears', 'never appears' or 'is present' after {subject} but found {tok.peek()!r}")
+    window = _window(tok)
+    if not tok.done():
+        fail(f"unexpected {' '.join(tok.words[tok.i:])!r} at the end")
+    return Expectation(" ".join(text.split()), subject, verb, "present", window)
+
+
 # ----------------------------------------------------------------------------------------- evaluation
 def _state_of(sample: Sample, subject: Subject) -> str | None:
+    if subject.kind == "finding":
+        names = ([sample.findings.get(subject.point, frozenset())] if subject.point is not None
+                 else list(sample.findings.values()))
+        return "present" if any(subject.value in n for n in names) else "absent"
     if subject.kind == "machine":
         return sample.machine
     if subject.kind == "point":
@@ -487,6 +539,8 @@ def evaluate(exp: Expectation, samples: list[Sample]) -> Verdict:
             f"{_state_of(first, subj)} at {_at(first, subj)} ({len(misses)} of {len(inside)} updates not {want})",
         )
     if exp.verb in ("stays below", "never"):
+        if not hits and subj.kind == "finding":
+            return Verdict(exp, True, f"not reported in any of {len(inside)} updates")
         if not hits:
             return Verdict(exp, True, f"worst: {_worst_seen(inside, subj)} over {len(inside)} updates")
         return Verdict(exp, False, f"{_state_of(hits[0], subj)} at {_at(hits[0], subj)}")

@@ -26,6 +26,7 @@ import numpy as np
 from .alarms.monitor import MachineMonitor
 from .alarms.records import MachineUpdate, SensorHealth
 from .alarms.sensor_checks import DEFAULT_LIMITS, SensorLimits, check_block
+from .analysis import diagnosis
 from .analysis.point import PointAnalyzer
 from .analysis.result import PointResult
 from .errors import InputError
@@ -111,6 +112,7 @@ class MachinePipeline:
                 notes[p.id] = f"cannot analyze this block: {e}"
                 continue
             self._envelope_band(p.id, results[p.id], h, analyzer, time_s)  # type: ignore[arg-type]
+        results = diagnosis.across_points(self.machine, results)  # misalignment against the axial points
         return self.monitor.update(time_s, results, health, rpm=rpm, rpm_source=rpm_source or "", notes=notes)
 
     # --------------------------------------------------------------------------- envelope band

@@ -202,6 +202,10 @@ def recording_frames(rec: Recording, rpm: float | None = None) -> Generator[Fram
 
 
 # ------------------------------------------------------------------------------------------ recording
+#: Point states whose analysis findings count for the expectations (``finding X appears``, ``no finding X``).
+TRUSTED_STATES = ("learning", "normal", "warning", "alarm")
+
+
 @dataclass
 class ReplayLog:
     """What a replay keeps of each update: states for the expectations, events for the timeline."""
@@ -234,7 +238,9 @@ class ReplayLog:
                 zone = pu.result.iso_zone
                 self.overall.setdefault(pid, []).append((elapsed_s, pu.result.overall_velocity_mm_s, zone))
             zones[pid] = zone
-        self.samples.append(Sample(elapsed_s, update.state, points, values, zones))
+        reported = {pid: frozenset(f.name for f in pu.result.findings)  # not trusted from a faulty sensor
+                    for pid, pu in update.points.items() if pu.result is not None and pu.state in TRUSTED_STATES}
+        self.samples.append(Sample(elapsed_s, update.state, points, values, zones, reported))
         self.events.extend((elapsed_s, e) for e in update.events)
         self.last = update
 
@@ -290,6 +296,8 @@ def update_record(update: MachineUpdate, elapsed_s: float) -> dict:
                        "strength": f.strength, "bearing": f.bearing, "raises": f.raises, "chatter": f.chatter}
                 for name, f in pu.findings.items()
             },
+            # every finding the analysis reported this update (names, strongest first)
+            "reported": [f.name for f in pu.result.findings] if pu.result is not None else [],
         }
     return _clean({
         "type": "update", "time_s": update.time_s, "date": iso_date(update.time_s), "elapsed_s": elapsed_s,

@@ -38,7 +38,8 @@ from rotorwatch.errors import InputError
 from rotorwatch.settings.models import Config, Machine
 
 from .chain import GAIN_BLOCK, ChainResponse, ChainSettings, ShapedNoise
-from .components import BlockGain, ImpactKernel, ShaftPhasor, ring
+from .components import BlockGain, ImpactKernel, ShaftPhasor, order_tone, ring
+from .faults import FAULT_COMPONENTS, fault_tones, rotor_order
 from .impacts import ImpactTrain
 from .profile import Profile, Ramp
 from .randomness import generator, stream_key, white_noise
@@ -78,7 +79,11 @@ def _point_tones(machine: Machine, seed: int) -> dict[str, list[_Tone]]:
         tones = [_Tone(1, "unbalance", 1.0, 0.0), _Tone(2, "misalignment", 1.0, 0.0)]
         tones += [_Tone(k, "looseness", w, 0.0) for k, w in zip(LOOSENESS_ORDERS, LOOSENESS_WEIGHTS)]
         if machine.blades:
-            tones += [_Tone(machine.blades * (h + 1), "blade_pass", w, 0.0) for h, w in enumerate(BLADE_HARMONIC_WEIGHTS)]
+            rotor = rotor_order(machine)  # the bladed shaft: the driven one of a drive
+            tones += [_Tone(machine.blades * (h + 1) * rotor, "blade_pass", w, 0.0)
+                      for h, w in enumerate(BLADE_HARMONIC_WEIGHTS)]
+        # the shaft, drive, flow and electrical faults' tones (faults.py)
+        tones += [_Tone(o, c, w, 0.0) for c, pairs in fault_tones(machine, seed, p.id).items() for o, w in pairs]
         out[p.id] = [
             _Tone(t.order, t.component, t.weight, float(ph)) for t, ph in zip(tones, rng.uniform(0, 2 * math.pi, len(tones)))
         ]
@@ -291,7 +296,11 @@ class ScenarioRenderer:
                 gain = None
                 if gains is not None and counts is not None:
                     gain = BlockGain(gains[i].real, gains[i].imag, counts, GAIN_BLOCK)
-                acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
+                if tone.component in FAULT_COMPONENTS or tone.order != int(tone.order):  # not whole: the full shaft angle
+                    acc += order_tone(turns, shaft_hz, tone.order, tone.weight * level, tone.phase_rad,
+                                      gain.per_sample() if gain is not None else None)
+                else:
+                    acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
             line = self._level(p.id, "twice_line", t, t_a, t_b)
             if self.line_frequency_hz and np.any(line > 0) and 2.0 * self.line_frequency_hz < nyquist:
                 acc += self._twice_line(p.id, line, n0, n, fs_hz, resp)

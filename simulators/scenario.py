@@ -59,7 +59,9 @@
     # value = ...                   (clipping: gain, dropouts: fraction of time lost, bias_step: volts)
 
 Units of ``to``: ``outer_race``/``inner_race``/``ball`` peak impact acceleration in m/s^2;
-``unbalance``/``misalignment``/``looseness``/``blade_pass`` velocity RMS in mm/s; ``noise`` acceleration
+``unbalance``/``misalignment``/``looseness``/``blade_pass`` velocity RMS in mm/s; ``half_orders``,
+``belt``, ``flow``, ``gear_mesh``, ``gear_sidebands``, ``pole_pass`` (:mod:`rotorwatch.simulators.faults`)
+velocity RMS in mm/s of all their lines together; ``noise`` acceleration
 RMS in m/s^2; ``twice_line`` velocity RMS in mm/s at twice the line frequency; ``speed_rpm`` in r/min.
 
 The measurement chain (``[chain]``) and the noise colour are described in
@@ -86,7 +88,9 @@ from rotorwatch.settings.loading import load_config, read_toml, validate
 from rotorwatch.settings.models import Config, Machine
 
 BEARING_COMPONENTS = ("outer_race", "inner_race", "ball")
-LEVEL_COMPONENTS = ("unbalance", "misalignment", "looseness", "blade_pass", "noise", "twice_line")
+# the shaft, drive, flow and electrical faults of simulators/faults.py come after the first six
+LEVEL_COMPONENTS = ("unbalance", "misalignment", "looseness", "blade_pass", "noise", "twice_line",
+                    "half_orders", "belt", "flow", "gear_mesh", "gear_sidebands", "pole_pass")
 COMPONENTS = (*BEARING_COMPONENTS, *LEVEL_COMPONENTS, "speed_rpm", "sensor")
 SENSOR_FAULTS = ("disconnected", "clipping", "dropouts", "bias_step")
 # default ``value`` of each sensor fault
@@ -120,6 +124,12 @@ class Healthy(_Model):
     blade_pass_mm_s: NonNeg = 0.4
     noise_m_s2: NonNeg = 0.3
     twice_line_mm_s: NonNeg = 0.0
+    half_orders_mm_s: NonNeg = 0.0
+    belt_mm_s: NonNeg = 0.0
+    flow_mm_s: NonNeg = 0.0
+    gear_mesh_mm_s: NonNeg = 0.0
+    gear_sidebands_mm_s: NonNeg = 0.0
+    pole_pass_mm_s: NonNeg = 0.0
     speed_drift_pct: Annotated[float, Field(ge=0, le=5, allow_inf_nan=False)] = 0.2
     speed_rpm: Positive | None = None
 
@@ -292,6 +302,12 @@ def cross_check(spec: ScenarioFile, machine: Machine, config: Config, source: st
         if bad:
             problems.append(f"{where}.points = {bad}: unknown point, known: {', '.join(point_ids)}")
             continue
+        need = {"belt": (machine.drive is not None and machine.drive.kind == "belt", "a belt drive ([machines.drive] kind = 'belt')"),
+                "gear_mesh": (machine.drive is not None and machine.drive.kind == "gear", "a gear drive ([machines.drive] kind = 'gear')"),
+                "pole_pass": (bool(machine.line_frequency_hz and machine.motor_poles), "line_frequency_hz and motor_poles")}
+        need["gear_sidebands"] = need["gear_mesh"]
+        if ch.component in need and not need[ch.component][0]:
+            problems.append(f"{where}.component = {ch.component!r}: machine {machine.id!r} needs {need[ch.component][1]}")
         if ch.component == "blade_pass" and not machine.blades:
             problems.append(f"{where}.component = 'blade_pass': machine {machine.id!r} has no blades")
         if ch.start_day >= duration:

@@ -16,10 +16,12 @@ A point's state, the first that applies:
   levels already apply while learning).
 
 A value is followed upwards (rise levels) and, when drop levels are set, downwards too; its state is
-the worse of the two. A finding named in ``AlarmPolicy.findings`` (keyed by the finding's name, e.g.
-``BPFO``) raises the point once it has been reported in ``present_updates`` of the last
-``window_updates`` updates, with the finding as the reason, and clears after ``absent_updates``
-updates in a row without it. Findings not named there are reported by the analysis and raise nothing.
+the worse of the two. A finding with a rule in force (``AlarmPolicy.finding_rules``: the rules on by
+default for the shaft, drive and electrical findings, and those named in ``AlarmPolicy.findings``, keyed by
+the finding's name, e.g. ``BPFO``) raises the point once it has been reported in ``present_updates`` of
+the last ``window_updates`` updates (with a ``min_zone``, only at that severity), with the finding as the
+reason (its sentence), and clears after ``absent_updates`` updates in a row without it. Findings without a
+rule are reported by the analysis and raise nothing.
 
 Chatter, per value and per finding: every raise (to warning, or to alarm) is counted, and a raise that
 comes within ``AlarmPolicy.chatter_window_updates`` updates of the last lowering counts one chatter.
@@ -44,7 +46,7 @@ from ..analysis import severity
 from ..analysis.result import Finding, PointResult
 from ..analysis.running_speed import machine_speed
 from ..errors import ConfigError
-from ..settings.models import AlarmPolicy, Machine
+from ..settings.models import AlarmPolicy, FindingRule, Machine
 from ..settings.quantities import OVERALL_QUANTITY, quantity
 from .baseline import OVERALL, BaselineStore
 from .levels import LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
@@ -109,7 +111,7 @@ class MachineMonitor:
             }
             self.finding_slots[p.id] = {
                 name: FindingSlot(name, rule, deque(maxlen=rule.window))
-                for name, rule in machine.alarms.findings.items()
+                for name, rule in machine.alarms.finding_rules.items()
             }
         self.point_states = {p.id: "no_data" for p in machine.points}
         self.point_reasons = {p.id: "no update yet" for p in machine.points}
@@ -303,8 +305,18 @@ class MachineMonitor:
         return f"{head}: normal ({', '.join(parts)})"
 
     # --------------------------------------------------------------------------------------- findings
+    def _severe_enough(self, f: Finding, rule: FindingRule) -> bool:
+        """A rule with ``min_zone`` counts a finding only when its severity reaches that zone."""
+        if rule.min_zone is None:
+            return True
+        b = severity.boundaries(self.machine.iso_group, self.machine.support)
+        return bool(f.severity_mm_s >= b["BCD".index(rule.min_zone)])
+
     @staticmethod
     def _finding_text(f: Finding) -> str:
+        if f.kind != "bearing":
+            return (f"{f.sentence} (severity {f.severity_mm_s:.2f} mm/s, confidence {f.confidence or '-'}, "
+                    f"{f.prominence_db:.1f} dB over the local floor)")
         series = f" ({f.series})" if f.series and f.series != f.name else ""
         return (
             f"{f.name}{series} of bearing {f.bearing} at {f.measured_hz:.1f} Hz (expected {f.expected_hz:.1f} Hz), "
@@ -323,7 +335,7 @@ class MachineMonitor:
 
     def _evaluate_finding(self, pid: str, fs: FindingSlot, result: PointResult,
                           time_s: float) -> tuple[FindingStatus, AlarmEvent | None]:
-        same = [f for f in result.findings if f.name == fs.name]
+        same = [f for f in result.findings if f.name == fs.name and self._severe_enough(f, fs.rule)]
         f = max(same, key=lambda x: x.strength) if same else None
         fs.last = f
         if f is not None:

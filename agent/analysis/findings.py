@@ -59,12 +59,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .plan import DefectPlan
-from .result import Finding
+from .result import EvidenceLine, Finding
 
 FUNDAMENTAL_RATIO = 4.0  # 12 dB
 SUPPORT_ONE_RATIO = 5.0  # 14 dB: one harmonic or sideband this high confirms a fundamental
@@ -329,6 +329,26 @@ def _severity(c: Candidate, envelope_psd: np.ndarray | None, df_hz: float) -> fl
     return math.sqrt(power)
 
 
+def _described(f: Finding, c: Candidate) -> Finding:
+    """The finding with its evidence lines (peak / floor ratios in the squared-envelope spectrum), the rule
+    and a sentence: the same evidence model as the shaft, drive, flow and electrical findings."""
+    label = c.series if c.series != "2xBSF" else "2x BSF"
+    lines = [EvidenceLine(label, c.expected_hz, c.fundamental.found_hz, c.fundamental.ratio, "ratio",
+                          c.fundamental.ratio)]
+    for h, x in enumerate(c.harmonics, start=2):
+        lines.append(EvidenceLine(f"{h}x {label}", h * c.fundamental.found_hz, x.found_hz, x.ratio, "ratio", x.ratio))
+    for x in c.sidebands:
+        lines.append(EvidenceLine(f"{label} sideband", x.found_hz, x.found_hz, x.ratio, "ratio", x.ratio))
+    words = {"BPFO": "outer race", "BPFI": "inner race", "BSF": "rolling element", "FTF": "cage"}[f.name]
+    sentence = (f"Bearing {f.bearing}: {words} defect likely ({f.name}): its line at {f.measured_hz:.2f} Hz "
+                f"(expected {f.expected_hz:.2f} Hz) stands {f.prominence_db:.0f} dB over the envelope floor, with "
+                f"{f.harmonics_found - 1} harmonics and {f.sidebands_found} sidebands confirming it.")
+    return replace(f, evidence=tuple(lines), sentence=sentence,
+                   confidence="high" if f.harmonics_found >= 2 and f.sidebands_found >= 1 else "medium",
+                   rule="envelope line 12 dB over its floor, confirmed by its harmonics or sidebands "
+                        "(thresholds from measured null distributions; rotorwatch.analysis.findings)")
+
+
 def decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[DefectPlan, ...], *,
            evidence: Evidence | None = None, envelope_psd: np.ndarray | None = None) -> list[Finding]:
     """Apply the rule: strongest passing candidate first, re-reading the rest after each acceptance.
@@ -359,7 +379,7 @@ def _decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[Defec
         rivals = [v for v in passing if abs(v.candidate.fundamental.found_hz - f_best) <= evidence.guard_hz]
         best = min(rivals, key=lambda v: abs(v.candidate.fundamental.found_hz / v.candidate.expected_hz - 1.0))
         c = best.candidate
-        findings.append(Finding(
+        findings.append(_described(Finding(
             name=c.name,
             bearing=c.bearing,
             expected_hz=float(c.expected_hz),
@@ -369,7 +389,7 @@ def _decide(ses: np.ndarray, df_hz: float, shaft_hz: float, defects: tuple[Defec
             series=c.series,
             sidebands_found=best.sidebands_found,
             severity_m_s2=_severity(c, envelope_psd, df_hz),
-        ))
+        ), c))
         settled.add(c.key)  # the other series of the same defect (BSF / 2xBSF) is settled too
         evidence.claim(c, defects, top_hz)
 

@@ -30,6 +30,7 @@ from .. import kinematics
 from ..errors import InputError
 from ..settings.models import Analysis, Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
 from ..settings.quantities import quantity
+from .diagnosis import top_hz as diagnosis_top_hz
 from .spectrum import hann
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
@@ -307,6 +308,7 @@ def build_plan(machine: Machine, point: Point, fs_hz: float) -> AnalysisPlan:
     speed = _speed(machine)
     fast_hz = highest_rpm(speed) / 60.0
     bands, cutoff, narrow_top = _band_plans(machine, point, speed, fs_hz)
+    narrow_top = max(narrow_top, diagnosis_top_hz(machine, fast_hz))  # shaft, drive, flow, electrical findings
     integration_cutoff = cutoff
     cutoff = max(cutoff, 2.0 * df)
     with np.errstate(divide="ignore"):

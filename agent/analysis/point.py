@@ -28,11 +28,11 @@ from ..errors import InputError
 from ..settings.models import Machine, Point
 from ..settings.quantities import SPECTRA, SPECTRUM_UNITS
 from . import bands as band_mod
-from . import ordertrack, running_speed, severity
+from . import diagnosis, ordertrack, running_speed, severity, tachphase
 from .envelope import BlockSpectrum, EnvelopeKernel, EnvelopeOutput
 from .findings import assess
 from .indicators import waveform
-from .narrowband import NarrowbandKernel, electrical_mask
+from .narrowband import NarrowbandKernel, NarrowSpectrum, electrical_mask
 from .plan import AnalysisPlan, build_plan
 from .result import PointResult, Spectrum
 from .running_speed import SpeedReading
@@ -126,6 +126,20 @@ class PointAnalyzer:
                  "envelope": (env.freqs_hz, env.envelope_rms)}
         return {name: Spectrum(*lines[name], SPECTRUM_UNITS[name]) for name in SPECTRA}
 
+    def _diagnose(self, x0: np.ndarray, narrow, shaft_hz: float, source: str, overall_mm_s: float):
+        """Shaft, drive, flow and electrical findings of the window (:mod:`.diagnosis`)."""
+        def lines(n: NarrowSpectrum) -> diagnosis.VelocityLines:
+            return diagnosis.VelocityLines(n.accel_ms, n.df_hz, n.electrical)
+
+        def halves():
+            half = x0.size // 2
+            return tuple(lines(self._narrow.spectrum(self._envelope.block_spectrum(part - part.mean())))
+                         for part in (x0[:half], x0[half: 2 * half]))
+
+        ctx = diagnosis.Context(self.plan.machine, self.plan.point, lines(narrow), shaft_hz, source, overall_mm_s,
+                                halves)
+        return diagnosis.diagnose(ctx)
+
     def analyze(self, block_m_s2: np.ndarray, *, time_s: float = 0.0, rpm: float | None = None,
                 keep_spectra: bool = False, rpm_source: str | None = None,
                 envelope_band_hz: tuple[float, float] | None = None, review_band: bool = False,
@@ -147,6 +161,7 @@ class PointAnalyzer:
         used = running_speed.resolve(p.speed, SpeedReading(rpm, rpm_source, tach_pulses_s), x.size / p.fs_hz,
                                      lambda lo, hi: self._estimate(bs, lo, hi), p.point.id)
         rpm_used, source, angle, from_tach = used.rpm, used.source, used.angle, used.from_tach
+        tach_angle = angle if from_tach else None  # 1x and 2x phase locked to the pulses (tachphase.py)
         shaft_hz = rpm_used / 60.0
         change = angle.change_pct if angle is not None else None
         if source == "estimated":
@@ -171,6 +186,10 @@ class PointAnalyzer:
         findings, prominence = (assess(env.squared_rms, env.df_hz, shaft_hz, p.defects, envelope_psd=env.envelope_psd,
                                        line_frequency_hz=p.machine.line_frequency_hz)
                                 if running else ([], {}))
+        shaft_orders: dict[str, float] = {}
+        if running:
+            diagnosed, shaft_orders = self._diagnose(x0, narrow_orders, shaft_hz, source, overall)
+            findings = findings + diagnosed
 
         spectra = self._display_spectra(x0, env) if keep_spectra else dict.fromkeys(SPECTRA)
         return PointResult(
@@ -195,5 +214,7 @@ class PointAnalyzer:
             order_tracked=tracked,
             # a speed ramp estimated from the spectrum is tracked too, but stays less certain than a tach's
             speed_unsteady=bool(change is not None and not from_tach and abs(change) > p.speed.max_change_pct),
+            shaft_orders_mm_s=shaft_orders,
+            order_phase=tachphase.order_phasors(x0, p.fs_hz, tach_angle) if tach_angle is not None else {},
             **spectra,
         )

@@ -28,10 +28,28 @@ class Spectrum:
 
 
 @dataclass(frozen=True)
-class Finding:
-    """A bearing defect the envelope spectrum points to (the rule: :mod:`rotorwatch.analysis.findings`)."""
+class EvidenceLine:
+    """One spectral line a finding rests on: what was expected where, and what was measured there."""
 
-    name: str  # BPFO, BPFI, BSF or FTF
+    label: str  # as an analyst writes it: "1x", "2x", "0.5x", "BPFO", "belt pass", "2xLF", "mesh - 1x in"
+    expected_hz: float
+    measured_hz: float  # where the line was found (NaN when nothing stood out there)
+    amplitude: float  # RMS of the line in ``unit``
+    unit: str  # "mm/s" (velocity), "m/s^2" (acceleration or envelope), "ratio" (peak / floor)
+    ratio: float = float("nan")  # how far it stands over its local floor (amplitude ratio)
+
+    def as_json(self, number: Callable[[float], float | None]) -> dict[str, Any]:
+        return {"label": self.label, "expected_hz": number(self.expected_hz), "measured_hz": number(self.measured_hz),
+                "amplitude": number(self.amplitude), "unit": self.unit, "ratio": number(self.ratio)}
+
+
+@dataclass(frozen=True)
+class Finding:
+    """A fault the spectrum points to, with its evidence: bearing defects from the envelope spectrum
+    (:mod:`rotorwatch.analysis.findings`), shaft, drive, flow and electrical faults from the velocity and
+    acceleration spectrum (:mod:`rotorwatch.analysis.diagnosis`). One record, one way to be shown."""
+
+    name: str  # BPFO, BPFI, BSF, FTF; unbalance, misalignment, looseness, belt, blade_pass, flow, 2xLF, ...
     bearing: str
     expected_hz: float  # kinematic frequency at the speed used (for BSF found as 2xBSF: 2 x BSF)
     measured_hz: float  # where the line was found within the slip tolerance
@@ -42,6 +60,14 @@ class Finding:
     # RMS of the defect's lines in the envelope spectrum above the local floor, m/s^2 (of the envelope):
     # grows with the defect; comparable between updates of one point and one demodulation band
     severity_m_s2: float = float("nan")
+    # the fault's family: bearing | shaft | drive | flow | electrical | gear
+    kind: str = "bearing"
+    # velocity RMS (mm/s) of the lines the finding rests on (shaft, drive, flow, electrical and gear findings)
+    severity_mm_s: float = float("nan")
+    evidence: tuple[EvidenceLine, ...] = ()
+    confidence: str = ""  # low | medium | high: how many of the rule's corroborating signs were seen
+    rule: str = ""  # the rule that fired, in a few words, with where it comes from
+    sentence: str = ""  # plain language for the page, MQTT and the log
 
     def as_json(self, number: Callable[[float], float | None] | None = None) -> dict[str, Any]:
         """The finding as every JSON output writes it (the CLI, MQTT, the status page, snapshots);
@@ -57,6 +83,12 @@ class Finding:
             "severity_m_s2": num(self.severity_m_s2),
             "harmonics_found": int(self.harmonics_found),
             "sidebands_found": int(self.sidebands_found),
+            "kind": self.kind,
+            "severity_mm_s": num(self.severity_mm_s),
+            "confidence": self.confidence,
+            "rule": self.rule,
+            "sentence": self.sentence,
+            "evidence": [e.as_json(num) for e in self.evidence],
         }
 
     # Names of the first release, kept for readers of this record (not in any published JSON).
@@ -138,3 +170,8 @@ class PointResult:
     # bearing findings rest on an estimated ramp (tracked along it when the halves showed it) or are
     # smeared; less certain than usual
     speed_unsteady: bool = False
+    # velocity RMS (mm/s) of 1x, 2x and 3x of each shaft ("1x", or "driver 1x" / "driven 1x" ... with a drive),
+    # read by the shaft findings (rotorwatch.analysis.diagnosis)
+    shaft_orders_mm_s: dict[str, float] = field(default_factory=dict)
+    # with a tach: 1x and 2x as (velocity RMS mm/s, phase in degrees at the pulse), rotorwatch.analysis.tachphase
+    order_phase: dict[str, tuple[float, float]] = field(default_factory=dict)

@@ -375,6 +375,10 @@ def format_text(r: dict[str, Any]) -> str:
     if r["findings"]:
         lines.append("  findings (strongest first)")
         for f in r["findings"]:
+            if f.get("kind", "bearing") != "bearing":  # shaft, drive, flow, electrical, gear: its sentence
+                sev_mm_s = f"{f['severity_mm_s']:.2f} mm/s" if f["severity_mm_s"] is not None else "-"
+                lines.append(f"    {f['name']:<5} {f['sentence']} (severity {sev_mm_s}, confidence {f['confidence']})")
+                continue
             series = f" as {f['series']}" if f["series"] and f["series"] != f["name"] else ""
             sev = f"{f['severity_m_s2']:.3g} m/s^2" if f["severity_m_s2"] is not None else "-"
             h, s = f["harmonics_found"], f["sidebands_found"]

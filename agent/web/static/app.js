@@ -662,7 +662,13 @@
       el("td", { class: "num levels", text: fmt(r.warning) + " / " + fmt(r.alarm) + (r.latched ? " · held" : "") }),
     ]));
     $("#values tbody").replaceChildren(...rows);
-    const fnd = (pd.findings || []).map((f) => el("div", { class: "finding" }, [
+    const fnd = (pd.findings || []).map((f) => f.kind && f.kind !== "bearing"
+      // shaft, drive, flow, electrical and gear findings: their sentence, severity in mm/s and confidence
+      ? el("div", { class: "finding" }, [
+        el("b", { text: f.name + ": " }),
+        document.createTextNode(f.sentence + " Severity " + fmt(f.severity_mm_s) + " mm/s, confidence " + f.confidence + "."),
+      ])
+      : el("div", { class: "finding" }, [
       el("b", { text: f.name + " on " + f.bearing + ": " }),
       document.createTextNode("severity " + fmt(f.severity_m_s2) + " " + unitText("m/s^2") + " (envelope), line at " +
         fmt(f.measured_hz, 4) + " Hz (expected " + fmt(f.expected_hz, 4) + " Hz), " + f.harmonics_found +

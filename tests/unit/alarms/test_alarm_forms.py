@@ -15,6 +15,8 @@ Sources beside each check:
 
 from __future__ import annotations
 
+import dataclasses
+
 import pytest
 
 from rotorwatch.alarms.baseline import OVERALL
@@ -22,7 +24,7 @@ from rotorwatch.alarms.levels import Baseline, effective_drop_levels, effective_
 from rotorwatch.alarms.monitor import MachineMonitor
 from rotorwatch.alarms.records import SensorHealth
 from rotorwatch.analysis.result import Finding
-from rotorwatch.settings.models import Levels
+from rotorwatch.settings.models import DEFAULT_FINDING_RULES, Levels
 
 from .helpers import machine, result
 
@@ -195,7 +197,37 @@ def test_findings_not_configured_raise_nothing(tmp_path):
     mon = _finding_machine(tmp_path, {"present_updates": 2})
     ups = run(mon, [1.0] * 5, start_s=10 * 900.0, findings=[["BPFI"]] * 5)
     assert {u.points["p1"].state for u in ups} == {"normal"}
-    assert set(ups[-1].points["p1"].findings) == {"BPFO"}
+    # BPFO as configured, and the rules on by default (shaft, drive, electrical findings at zone C)
+    assert set(ups[-1].points["p1"].findings) == {"BPFO"} | set(DEFAULT_FINDING_RULES)
+
+
+def _shaft_findings(r, severity_mm_s):
+    f = Finding("unbalance", "", 25.0, 25.0, 30.0, 1, "unbalance", kind="shaft", severity_mm_s=severity_mm_s,
+                sentence="Unbalance of the shaft likely: 1x ...", confidence="high")
+    return dataclasses.replace(r, findings=[f])
+
+
+@pytest.mark.parametrize("severity_mm_s, raised", [(2.0, False), (3.0, True)])
+def test_unbalance_raises_by_default_from_zone_c(tmp_path, severity_mm_s, raised):
+    """On by default: 6 of the last 8 updates, severity at the machine's B/C boundary or above (ISO 20816-3
+    group 2 rigid: 2.8 mm/s, from memory); the reason is the finding's sentence."""
+    mon = learned(tmp_path, {"warning": 9.0})
+    ups = []
+    for i in range(8):
+        t = 10 * 900.0 + i * 900.0
+        ups.append(mon.update(t, {"p1": _shaft_findings(result("p1", t), severity_mm_s), "p2": result("p2", t)}, OK))
+    states = [u.points["p1"].state for u in ups]
+    assert states == (["normal"] * 5 + ["warning"] * 3 if raised else ["normal"] * 8)
+    if raised:
+        assert "Unbalance of the shaft likely" in ups[-1].points["p1"].reason
+
+
+def test_a_default_finding_rule_can_be_turned_off(tmp_path):
+    mon = learned(tmp_path, {"warning": 9.0}, alarms={"learning_hours": 1.0, "min_learning_updates": 5,
+                                                      "findings": {"unbalance": {"enabled": False}}})
+    t = 10 * 900.0
+    up = mon.update(t, {"p1": _shaft_findings(result("p1", t), 5.0), "p2": result("p2", t)}, OK)
+    assert "unbalance" not in up.points["p1"].findings and "looseness" in up.points["p1"].findings
 
 
 def test_findings_are_forgotten_across_a_sensor_fault(tmp_path):

@@ -114,3 +114,39 @@ def test_verdicts_rank_states_by_meaning():
     assert v.detail.startswith("worst: no judgement (learning: 2)"), v.detail
     v = evaluate(parse("zone on p1 stays below C", M), HISTORY[:5])
     assert "worst: zone B" in v.detail
+
+
+def _finding_history() -> list[Sample]:
+    """looseness reported on p1 from day 10, unbalance on p2 at day 5 only."""
+    out = []
+    for d, p1, p2 in ((0, set(), set()), (5, set(), {"unbalance"}), (10, {"looseness"}, set()), (15, {"looseness"}, set())):
+        out.append(Sample(d * DAY_S, "normal", {"p1": "normal", "p2": "normal"}, {}, {},
+                          {"p1": frozenset(p1), "p2": frozenset(p2)}))
+    return out
+
+
+@pytest.mark.parametrize("text, ok", [
+    ("finding looseness on p1 appears between day 8 and day 12", True),
+    ("finding looseness on p1 appears before day 10", False),
+    ("finding looseness appears after day 9", True),  # any point
+    ("no finding looseness before day 10", True),
+    ("no finding looseness", False),
+    ("no finding unbalance on p1", True),
+    ("no finding unbalance", False),  # p2 at day 5
+    ("finding unbalance on p2 never appears after day 6", True),
+    ("finding looseness on p1 is present after day 10", True),
+    ("finding looseness on p1 is present after day 5", False),
+])
+def test_finding_expectations(text, ok):
+    assert evaluate(parse(text, M), _finding_history()).passed is ok
+
+
+@pytest.mark.parametrize("text, words", [
+    ("finding wobble on p1 appears", "unknown finding 'wobble'"),
+    ("finding looseness on p9 appears", "unknown point 'p9'"),
+    ("finding looseness on p1 grows", "expected 'appears', 'never appears' or 'is present'"),
+])
+def test_bad_finding_expectation_is_one_line(text, words):
+    with pytest.raises(ConfigError) as e:
+        parse(text, M)
+    assert len(e.value.problems) == 1 and words in e.value.problems[0]

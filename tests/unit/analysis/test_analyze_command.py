@@ -45,7 +45,9 @@ def test_float_wav_in_g_finds_the_outer_race(tmp_path, capsys):
     assert first["measured_hz"] == pytest.approx(rate, abs=0.2)
     assert first["expected_hz"] == pytest.approx(BPFO_ORDER * float(f"{rpm:.3f}") / 60, rel=1e-9)
     assert set(first) == {"name", "bearing", "series", "expected_hz", "measured_hz", "prominence_db", "severity_m_s2",
-                          "harmonics_found", "sidebands_found"}
+                          "harmonics_found", "sidebands_found", "kind", "severity_mm_s", "confidence", "rule",
+                          "sentence", "evidence"}
+    assert first["kind"] == "bearing" and "BPFO" in first["sentence"] and first["evidence"][0]["label"] == "BPFO"
     assert first["prominence_db"] > 12.0 and first["severity_m_s2"] > 0
     assert doc["envelope_peaks"][0]["matches"] == "BPFO" and doc["envelope_peaks"][0]["bearing"] == "b1"
 
