@@ -4,6 +4,7 @@ worked example of a publisher, run as written there."""
 
 from __future__ import annotations
 
+import ast
 import logging
 import re
 import sys
@@ -13,6 +14,7 @@ from pathlib import Path
 import pytest
 
 from rotorwatch.errors import RotorwatchError
+from rotorwatch.publishers import load_entry
 from rotorwatch.publishers.base import Publisher, SinkContext
 from rotorwatch.selfstats import SelfStats
 from rotorwatch.service.reload import Reloader, changed_sections
@@ -171,13 +173,24 @@ def developers_example() -> str:
     return re.findall(r"```python\n(.*?)```", section, re.S)[0]
 
 
+def developers_registration_line() -> str:
+    """The one registry line the recipe adds (its second code block), as a string literal's value."""
+    text = (REPO / "DEVELOPERS.md").read_text(encoding="utf-8")
+    section = text[text.index("## Adding a publisher"):text.index("## Tests")]
+    block = re.findall(r"```python\n(.*?)```", section, re.S)[1]
+    lines = [ln for ln in block.splitlines() if ln.strip()]
+    assert len(lines) == 1, block  # one line, nothing else to edit
+    return ast.literal_eval(lines[0].split("#")[0].strip().rstrip(","))
+
+
 def test_the_worked_example_in_developers_md_runs_as_written(tmp_path, caplog):
     module = types.ModuleType("rotorwatch.publishers.state_journal")
     module.__package__ = "rotorwatch.publishers"
     sys.modules[module.__name__] = module
     try:
         exec(compile(developers_example(), "DEVELOPERS.md", "exec"), module.__dict__)
-        journal = module.StateJournal
+        journal = load_entry(developers_registration_line())  # the registry line finds the class
+        assert journal is module.StateJournal
         sinks = SinkSet([journal], context(tmp_path))
         sinks.start(CONFIG)
         with caplog.at_level(logging.INFO, logger=module.__name__):
@@ -204,3 +217,11 @@ def test_a_publisher_that_cannot_start_stops_the_start(tmp_path):
         sinks.start(CONFIG)
     sinks.close()  # what the daemon does in its finally
     assert Diary.journal == ["start before", "close refuses", "close before"]
+
+
+def test_a_registry_line_must_name_a_publisher_class():
+    assert load_entry("evidence:Evidence").name == "evidence"
+    with pytest.raises(TypeError, match="not a Publisher class"):
+        load_entry("base:SinkContext")  # a class, but not a publisher
+    with pytest.raises(TypeError, match="not a Publisher class"):
+        load_entry("evidence:NoSuchClass")
