@@ -45,10 +45,10 @@ from typing import Any
 
 import numpy as np
 
+from ..durable import fsync_dir
 from ..errors import ConfigError
 from ..settings.models import AlarmPolicy, FeatureBand, Machine
 from ..settings.quantities import quantity
-from ..storage.recovery import fsync_dir
 from .levels import Baseline
 
 log = logging.getLogger(__name__)

@@ -26,10 +26,10 @@ from pathlib import Path
 
 import numpy as np
 
+from ..durable import fsync_dir
 from ..errors import ConfigError, InputError, SourceUnavailable
 from ..settings.loading import load_config, validate
 from ..settings.models import G_N, Config
-from ..storage.recovery import fsync_dir
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:

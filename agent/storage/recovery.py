@@ -14,6 +14,8 @@ import sqlite3
 import time
 from pathlib import Path
 
+from ..durable import fsync_dir
+
 log = logging.getLogger(__name__)
 
 SQLITE_COMPANIONS = ("-wal", "-shm", "-journal")
@@ -25,20 +27,6 @@ def is_corruption(e: BaseException) -> bool:
         return True
     text = str(e).lower()
     return isinstance(e, sqlite3.DatabaseError) and ("malformed" in text or "not a database" in text)
-
-
-def fsync_dir(folder: Path) -> None:
-    """Make renames and new entries in ``folder`` durable (best effort: some filesystems refuse)."""
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
 
 
 def set_aside(path: Path, error: object, companions: tuple[str, ...] = ()) -> Path:
