@@ -41,6 +41,7 @@ Fixtures
 
 from __future__ import annotations
 
+import logging
 import secrets
 import sys
 from pathlib import Path
@@ -66,6 +67,19 @@ DEFAULT_PIPE_SOURCES = (("rw_pipe_2ch", 48000, 2), ("rw_pipe_4ch", 51200, 4))
 
 
 # ---------------------------------------------------------------------------------------- MQTT
+
+
+@pytest.fixture(autouse=True)
+def _rotorwatch_logging_restored():
+    """A test that runs the CLI in-process (cli.main) sets up the ``rotorwatch`` logger as the command
+    does (its own handler, no propagation); put it back afterwards, so that later tests' caplog, which
+    listens at the root logger, still sees the package's records whatever the test order."""
+    log = logging.getLogger("rotorwatch")
+    saved = (list(log.handlers), log.level, log.propagate)
+    yield
+    log.handlers[:] = saved[0]
+    log.setLevel(saved[1])
+    log.propagate = saved[2]
 
 
 @pytest.fixture(scope="session")
