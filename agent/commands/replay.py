@@ -19,7 +19,6 @@ import os
 import sys
 import tempfile
 import time
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -27,6 +26,7 @@ from ..errors import ConfigError, ExpectationFailed, InputError
 from ..expectations import evaluate, parse
 from ..heap import hold_freed_memory
 from ..history import command as history_cmd
+from ..history.timestamps import parse_date
 from ..replay import (
     UNITS,
     ReplayLog,
@@ -67,16 +67,6 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--learning-updates", type=int, metavar="N",
                    help="learn baselines from the first N updates instead of the configured learning period")
     history_cmd.add_arguments(p, src)
-
-
-def _start_unix_s(text: str) -> float:
-    try:
-        dt = datetime.fromisoformat(text.replace("Z", "+00:00"))
-    except ValueError:
-        raise InputError(f"--start = {text!r}: not an ISO 8601 date, e.g. 2025-01-01 or 2025-01-01T06:00:00Z") from None
-    if dt.tzinfo is None:
-        dt = dt.replace(tzinfo=UTC)
-    return dt.timestamp()
 
 
 def _pick_machine(config, machine_id: str | None, source: str):
@@ -221,7 +211,7 @@ def run(args: argparse.Namespace) -> int:
     from ..pipeline import MachinePipeline
 
     out = sys.stdout
-    start = _start_unix_s(args.start)
+    start = parse_date(args.start, "--start")
     if args.learning_updates is not None and args.learning_updates < 1:
         raise InputError(f"--learning-updates = {args.learning_updates}: must be at least 1")
     if args.workers < 1:

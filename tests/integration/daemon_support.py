@@ -200,3 +200,18 @@ def json_pred(**want) -> Callable[[Any], bool]:
         return isinstance(body, dict) and all(body.get(k) == v for k, v in want.items())
 
     return pred
+
+
+def run_daemon_in_thread(d, timeout_s: float = 60.0) -> int | None:
+    """Run an in-process Daemon to its end in a thread, bounded: asked to stop after ``timeout_s``
+    (then given 10 s more). Returns its exit status (None when it never returned)."""
+    import threading
+
+    result: dict = {}
+    t = threading.Thread(target=lambda: result.setdefault("rc", d.run()))
+    t.start()
+    t.join(timeout_s)
+    if t.is_alive():
+        d.request_stop("test timeout")
+        t.join(10)
+    return result.get("rc")

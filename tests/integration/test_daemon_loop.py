@@ -7,12 +7,11 @@ the daemon runs in a thread (so it installs no signal handlers in the test proce
 
 from __future__ import annotations
 
-import threading
 import time
 
 from rotorwatch.service.daemon import Daemon, RunOptions, default_pipeline_factory
 
-from .daemon_support import daemon_config, write_setup
+from .daemon_support import daemon_config, run_daemon_in_thread, write_setup
 
 
 class SlowPipeline:
@@ -41,14 +40,7 @@ def test_slow_analysis_does_not_stall_capture(tmp_path):
         return p
 
     d = Daemon(path, RunOptions(state_dir=str(tmp_path / "state"), max_updates=4), pipeline_factory=factory)
-    result = {}
-    t = threading.Thread(target=lambda: result.setdefault("rc", d.run()))
-    t.start()
-    t.join(60)
-    if t.is_alive():
-        d.request_stop("test timeout")
-        t.join(10)
-    assert result.get("rc") == 0
+    assert run_daemon_in_thread(d) == 0
     assert pipelines[0].steps == 4
     assert d.stats.counter("updates", machine="ef3") == 4
     # analysis took 0.6 s per update at a 0.2 s interval: updates were skipped, and counted

@@ -12,12 +12,11 @@ simulator's, untouched. Every wait is bounded.
 
 from __future__ import annotations
 
-import threading
 from dataclasses import replace
 
 from rotorwatch.service.daemon import Daemon, RunOptions, default_source_factory
 
-from .daemon_support import daemon_config, write_setup
+from .daemon_support import daemon_config, run_daemon_in_thread, write_setup
 
 OVERFLOW_AT_CHUNK = 40  # 40 x 4096 frames at 51.2 kHz: 3.2 s in, after the first good updates
 
@@ -65,14 +64,7 @@ def test_overflow_reads_sensor_fault_then_clears(tmp_path):
 
     d = RecordingDaemon(path, RunOptions(state_dir=str(tmp_path / "state"), max_updates=16),
                         source_factory=sources)
-    result = {}
-    t = threading.Thread(target=lambda: result.setdefault("rc", d.run()))
-    t.start()
-    t.join(60)
-    if t.is_alive():
-        d.request_stop("test timeout")
-        t.join(10)
-    assert result.get("rc") == 0
+    assert run_daemon_in_thread(d) == 0
     lost = d.lost_at_s
     assert lost is not None, "the overflowed chunk never arrived"
     points = ("de-h", "nde-h")

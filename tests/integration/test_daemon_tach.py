@@ -9,8 +9,6 @@ analysis reports must be the simulated one.
 
 from __future__ import annotations
 
-import threading
-
 import numpy as np
 import pytest
 
@@ -19,7 +17,7 @@ from rotorwatch.settings.loading import load_config
 from rotorwatch.simulators.render import ScenarioRenderer
 from rotorwatch.simulators.scenario import load_scenario
 
-from .daemon_support import daemon_config, write_setup
+from .daemon_support import daemon_config, run_daemon_in_thread, write_setup
 
 
 class RecordingPipeline:
@@ -59,14 +57,7 @@ def test_tach_pulses_reach_the_analysis_aligned_and_the_ramp_is_tracked(tmp_path
 
     d = Daemon(path, RunOptions(state_dir=str(tmp_path / "state"), max_updates=4), pipeline_factory=factory)
     daemon.append(d)
-    result = {}
-    t = threading.Thread(target=lambda: result.setdefault("rc", d.run()))
-    t.start()
-    t.join(60)
-    if t.is_alive():
-        d.request_stop("test timeout")
-        t.join(10)
-    assert result.get("rc") == 0
+    assert run_daemon_in_thread(d) == 0
     steps = pipelines[0].steps
     assert len(steps) == 4
 
