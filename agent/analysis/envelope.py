@@ -66,6 +66,9 @@ SEARCH_STEP = 1.0  # candidate band starts, in band widths (1: adjacent bands; 0
 CYCLIC_OVERSAMPLING = 4.0  # the search's squared envelopes are averaged down to 4 x the envelope span
 SHAFT_ORDER_GUARD_LINES = 2  # lines this close to an integer shaft order are left out of the cyclic measure
 CRITERIA = ("cyclic", "kurtosis")
+# The envelope spectrum's segments may be this much shorter than the plan's resolution asks (a coarser
+# line spacing by at most 1 %) so that the segments the plan counted on all fit (see _segment_length).
+SEGMENT_SLACK = 0.01
 # A later search's band is "clearly better" than the kept one when it lies elsewhere (overlaps less than
 # half of the narrower band) and scores at least max(50 % of |kept score|, 0.5) more (our choice: on
 # healthy signals the best of the grid beats a kept noise band by about 0.05 in either criterion).
@@ -369,6 +372,35 @@ class EnvelopeKernel:
         cut = int(math.ceil(bs.n_trim * m / bs.n_fft))
         return z[cut: n_valid - cut], m * df, (float(k_lo * df), float((k_hi - 1) * df))  # first and last line
 
+    def _segment_length(self, fs_c: float, n_z: int) -> int:
+        """Welch segment length for the envelope spectrum of ``n_z`` samples at ``fs_c``: the plan's
+        resolution (``fs_c / df_hz`` samples), a little finer when that is an FFT-friendly length, or a
+        little coarser (at most ``SEGMENT_SLACK``), but never so long that fewer segments fit than the plan's
+        resolution gives. The plan caps its lines so that two half-overlapping segments fit the untapered
+        block; a band's reduced rate rounds its samples, and a segment a few samples too long, or lengthened
+        to an FFT-friendly size, then left one segment where there were two: half the averaging, and band
+        values spread about 1.4 x wider from update to update (a fixed 2-7 kHz band happened to fit
+        exactly; most searched bands did not)."""
+        overlap = self.plan.overlap_frac
+
+        def fits(n: int) -> int:
+            hop = n - min(int(round(n * overlap)), n - 1)
+            return 0 if n > n_z else 1 + (n_z - n) // hop
+
+        n0 = int(math.ceil(fs_c / self.plan.df_hz - 1e-9))
+        n_min = int(n0 * (1.0 - SEGMENT_SLACK))
+        if fits(n_min) == 0:
+            return n0  # too short for one segment: demodulate says so
+        target = fits(n_min)
+        finer = scipy.fft.next_fast_len(n0, real=True)
+        if fits(finer) >= target:
+            return finer  # a little finer, much faster
+        n = n0
+        while fits(n) < target:  # at most SEGMENT_SLACK x n0 steps
+            n -= 1
+        coarser = scipy.fft.prev_fast_len(n, real=True)
+        return coarser if coarser >= n_min else n
+
     def demodulate(self, bs: BlockSpectrum, band_hz: tuple[float, float], kurtosis: float = float("nan"),
                    angle: ShaftAngle | None = None, shaft_hz: float = 0.0) -> EnvelopeOutput:
         """Envelope and squared-envelope spectra of the block in ``band_hz``; with ``angle`` the envelopes
@@ -385,9 +417,7 @@ class EnvelopeKernel:
             m = int(round(fs_c / bs.df_hz))
             t0_s = math.ceil(bs.n_trim * m / bs.n_fft) / fs_c  # z[0]'s time in the block (band_signal's cut)
             both = np.stack([resample(row, fs_c, angle, t0_s, shaft_hz) for row in both])
-        n_per_seg = int(math.ceil(fs_c / plan.df_hz - 1e-9))
-        if scipy.fft.next_fast_len(n_per_seg, real=True) <= z.size:
-            n_per_seg = scipy.fft.next_fast_len(n_per_seg, real=True)  # a little finer, much faster
+        n_per_seg = self._segment_length(fs_c, z.size)
         if n_per_seg > z.size:
             raise InputError(
                 f"block of {n / self.fs_hz:.3g} s is too short for the envelope spectrum: {plan.lines} lines over "
