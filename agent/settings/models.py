@@ -214,7 +214,7 @@ class Envelope(Model):
     """Envelope (demodulation) analysis for rolling bearings.
 
     ``band_hz = [low, high]`` fixes the demodulation band around a structural resonance; when absent,
-    the band is searched between ``auto_min_hz`` and the Nyquist limit on a kurtogram-like grid of
+    the band is searched between ``auto_min_hz`` and ``auto_max_hz`` on a kurtogram-like grid of
     candidate bands, picked by ``auto_criterion``: once, on the first update of a point's baseline
     learning, and kept from then on (with the baselines, so band values stay comparable and can be
     trended); ``rotorwatch analyze`` searches its recording.
@@ -222,6 +222,10 @@ class Envelope(Model):
 
     band_hz: tuple[PositiveFloat, PositiveFloat] | None = None
     auto_min_hz: PositiveFloat = 500.0
+    # Top of the search. Default: 0.45 x the sample rate, where a converter's anti-alias filter starts to
+    # roll the signal off (common practice, from memory); a band in the roll-off reads the converter more
+    # than the machine. Set it when the sensor chain's usable range ends lower (or higher).
+    auto_max_hz: PositiveFloat | None = None
     # How a searched band is picked on the kurtogram-like grid: "kurtosis" takes the band of highest
     # spectral kurtosis (Antoni 2006); "cyclic" the band whose squared envelope holds the strongest
     # periodic lines (infogram-like; SK is still computed and reported). See rotorwatch.analysis.envelope.
@@ -237,6 +241,8 @@ class Envelope(Model):
     def _band(self) -> Envelope:
         if self.band_hz is not None and self.band_hz[0] >= self.band_hz[1]:
             raise ValueError(f"band_hz = {list(self.band_hz)}: the low edge must be below the high edge")
+        if self.auto_max_hz is not None and self.auto_max_hz <= self.auto_min_hz:
+            raise ValueError(f"auto_max_hz = {self.auto_max_hz:g}: must be above auto_min_hz ({self.auto_min_hz:g})")
         return self
 
 
