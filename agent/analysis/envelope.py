@@ -19,9 +19,14 @@ memory; Randall, "Modern envelope analysis for bearing diagnostics", COMADEM 201
 The envelope spectrum (m/s^2 RMS per line of |z|) is what bands and evidence read; the squared-envelope
 spectrum (SES) is what the bearing findings read.
 
+Welch segments: the plan caps the envelope lines so that two half-overlapping segments fit the block's
+untapered part; every band gets both (a segment may be up to 1 % shorter than the plan's resolution asks,
+see ``EnvelopeKernel._segment_length``), so that the band values of any band average alike.
+
 Band search (a kurtogram-like grid, after Antoni's fast kurtogram, MSSP 21 (2007) 108-124): candidate
 bands lie side by side, of widths (2/3)^j times half the Nyquist frequency down to the narrowest width
-that still holds the envelope span, all above ``auto_min_hz`` (successive widths put the band edges in
+that still holds the envelope span, all between ``auto_min_hz`` and ``auto_max_hz`` (0.45 x the sample
+rate unless configured: below the converter's anti-alias roll-off; successive widths put the band edges in
 different places, so a resonance cut by an edge at one width is whole at another); each width is one
 batched inverse FFT of critically-sampled band signals c(t). Two measures are computed for every candidate:
 
