@@ -23,6 +23,8 @@ Scaling facts used (Heinzel, Ruediger & Schilling 2002; Harris 1978):
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
@@ -41,7 +43,7 @@ class WelchKernel:
     """Welch PSD for a fixed segment length, hop and window (set up once, applied to many blocks)."""
 
     def __init__(self, window: np.ndarray, n_overlap: int, fs_hz: float, dtype: type = np.float64):
-        self.dtype = np.dtype(dtype)
+        self.dtype: np.dtype[Any] = np.dtype(dtype)
         window = np.asarray(window, dtype=float)
         self.n_per_seg = n = window.size
         if not 0 <= n_overlap < n:

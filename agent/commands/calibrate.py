@@ -23,6 +23,7 @@ import tempfile
 import time
 import tomllib
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -127,7 +128,7 @@ def edit_sensitivity(text: str, machine_index: int, point_index: int, mv_per_m_s
     import tomlkit  # noqa: PLC0415 (only the writing path needs it)
 
     try:
-        doc = tomlkit.parse(text)
+        doc: Any = tomlkit.parse(text)  # tomlkit 0.8 (the floor) types items as Item | Container
         sensor = doc["machines"][machine_index]["points"][point_index]["sensor"]
         doc_keys = [k for k in SENSITIVITY_KEYS if k in sensor]
     except (KeyError, IndexError, TypeError, tomlkit.exceptions.TOMLKitError):

@@ -23,7 +23,7 @@ Adding a band kind: DEVELOPERS.md, "Adding a band kind".
 
 from __future__ import annotations
 
-from typing import Annotated, Any, ClassVar, Literal, Protocol
+from typing import Annotated, Any, ClassVar, Literal, Protocol, cast
 
 from pydantic import (
     Discriminator,
@@ -239,7 +239,8 @@ Band = Annotated[
     Discriminator(band_kind, custom_error_type=PLACEMENT_ERROR, custom_error_message=PLACEMENT_MESSAGE),
 ]
 
-_BAND_ADAPTER: TypeAdapter[AnyBand] = TypeAdapter(Band)
+# cast: pydantic 2.6 (the floor) types TypeAdapter() for classes only, not for an Annotated union
+_BAND_ADAPTER: TypeAdapter[AnyBand] = TypeAdapter(cast(Any, Band))
 
 
 def band_from(data: dict[str, Any]) -> AnyBand:

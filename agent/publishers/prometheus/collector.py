@@ -27,6 +27,7 @@ from prometheus_client.core import (
     InfoMetricFamily,
     Metric,
 )
+from prometheus_client.registry import Collector
 
 from ... import __version__
 from ...alarms.records import STATES, MachineUpdate, PointUpdate
@@ -184,7 +185,7 @@ class _Families:
                 self.machine_state, self.speed, self.speed_source)
 
 
-class UpdateCollector:
+class UpdateCollector(Collector):
     """Exposes the latest update of each machine plus the agent's own counts."""
 
     def __init__(self, config: Config, stats: SelfStats, clock: Callable[[], float] = time.monotonic):
