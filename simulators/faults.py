@@ -16,6 +16,17 @@ move with the speed). The simulator computes its own kinematics here and does no
   eccentric driven gear modulating the mesh;
 - ``pole_pass`` -- the motor's 1x -/+ the pole-pass frequency (weights 1, 0.8), pole pass = poles x slip
   frequency at the nominal speed (slip = 2 LF / poles - f_motor).
+
+Two more shapes of the shaft's own tones:
+
+- ``truncation`` -- looseness as a bounded motion: the 1x tone is cut symmetrically at ``1 - depth`` of its
+  peak (``depth`` 0 to 0.9), like a clipped sine, which puts odd harmonics 3x, 5x, 7x ... of the 1x into the
+  signal and takes from the 1x (a clearance that stops the motion; common practice: looseness shows as a
+  truncated or clipped waveform with many harmonics). A sine cut at ``c`` of its peak keeps
+  ``(2/pi)(asin c + c sqrt(1 - c^2))`` of its fundamental (the Fourier series of a clipped sine);
+- the 1x and 2x phases (``[healthy] unbalance_phase_deg``, ``misalignment_phase_deg``): the phase of the
+  velocity at the tach's pulse (the shaft's whole turns), ``v = sqrt(2) V cos(2 pi k turns + phase)``,
+  the same on every point; without them each point's tones keep their seeded random phases.
 """
 
 from __future__ import annotations
@@ -79,3 +90,22 @@ def fault_tones(m: Machine, seed: int, point_id: str) -> dict[str, list[tuple[fl
             f_p = m.motor_poles * slip_hz
             out["pole_pass"] = _norm([(driver * (1 - f_p / motor_hz), 1.0), (driver * (1 + f_p / motor_hz), 0.8)])
     return out
+
+
+def fixed_phases_rad(unbalance_phase_deg: float | None, misalignment_phase_deg: float | None) -> dict[str, float]:
+    """Tone phase (the renderer's convention: acceleration ``cos(2 pi k turns + p)``, so velocity
+    ``sin(...)``) of the 1x and 2x whose velocity phase at the pulse is given (module docstring):
+    ``cos(x + phase) = sin(x + phase + pi/2)``, so ``p = phase + pi/2``."""
+    out = {}
+    for component, deg in (("unbalance", unbalance_phase_deg), ("misalignment", misalignment_phase_deg)):
+        if deg is not None:
+            out[component] = math.radians(deg) + math.pi / 2.0
+    return out
+
+
+def truncate(x_m_s2: np.ndarray, depth, velocity_mm_s, order: float, shaft_hz) -> np.ndarray:
+    """The tone ``x_m_s2`` (velocity RMS ``velocity_mm_s`` at ``order`` x ``shaft_hz``) cut symmetrically at
+    ``1 - depth`` of its peak (scalars or per-sample arrays); unchanged where ``depth`` is 0."""
+    peak_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(shaft_hz)
+    bound = (1.0 - np.asarray(depth)) * peak_m_s2
+    return np.clip(x_m_s2, -bound, bound)

@@ -17,6 +17,7 @@ from typing import Any
 from ... import __version__
 from ...alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
 from ...alarms.sensor_checks import BLOCK_FAULTS
+from ...analysis.tachphase import readings as order_readings
 from ...settings.models import Machine
 from ..quantities import band_quantities, payload_unit
 
@@ -187,10 +188,21 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
         "envelope_band_source": r.envelope_band_source,
         "envelope_band_review": band_review_payload(r.envelope_band_review),
         "findings": [f.as_json(num) for f in r.findings],
+        "orders": orders_payload(r),
         "sample_rate_hz": num(r.fs_hz),
         "n_samples": int(r.n_samples),
         "data_quality": data_quality_payload(point, quality),
     }
+
+
+def orders_payload(result: Any) -> dict[str, Any] | None:
+    """With a tach: the tach-locked 1x and 2x (velocity RMS, phase at the pulse in degrees, frequency);
+    None without a tach (:mod:`rotorwatch.analysis.tachphase`)."""
+    got = order_readings(result)
+    if not got:
+        return None
+    return {o.order: {"velocity_mm_s": num(o.velocity_mm_s), "phase_deg": num(o.phase_deg, 5),
+                      "frequency_hz": num(o.frequency_hz)} for o in got}
 
 
 def band_review_payload(review: Any) -> dict[str, Any] | None:

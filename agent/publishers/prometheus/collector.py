@@ -32,6 +32,7 @@ from ... import __version__
 from ...alarms.records import STATES, MachineUpdate, PointUpdate
 from ...alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
 from ...analysis.result import PointResult
+from ...analysis.tachphase import readings as order_readings
 from ...selfstats import SelfStats
 from ...settings.models import Config
 from ...web.health import health
@@ -103,6 +104,14 @@ class _Families:
             GaugeMetricFamily(f"{P}waveform_crest_factor_ratio", "crest factor (peak / RMS) of the window", labels=mp),
             GaugeMetricFamily(f"{P}waveform_kurtosis_ratio", "kurtosis of the window (Pearson; Gaussian noise = 3)", labels=mp),
         )
+        self.orders = (
+            GaugeMetricFamily(f"{P}order_velocity_meters_per_second", "velocity RMS of a tach-locked order (1x, 2x), m/s",
+                              labels=mp + ["order"]),
+            GaugeMetricFamily(f"{P}order_phase_degrees", "phase of a tach-locked order's velocity at the tach pulse, "
+                              "degrees 0-360 (the angle its positive peak leads the pulse by)", labels=mp + ["order"]),
+            GaugeMetricFamily(f"{P}order_frequency_hertz", "frequency of a tach-locked order (order x the pulses' mean speed), Hz",
+                              labels=mp + ["order"]),
+        )
         self.sensor_ok = GaugeMetricFamily(f"{P}sensor_ok", "1 while the sensor checks pass", labels=mp)
         self.sensor_check = EnumGauge(f"{P}sensor_check", "outcome of the sensor checks: ok or the fault found (1 for the current one)",
                                       mp, "check")
@@ -153,6 +162,10 @@ class _Families:
         for fam, v in zip(self.waveform, (w.rms_m_s2, w.peak_m_s2, w.mean_m_s2, w.crest_factor, w.kurtosis), strict=True):
             if _finite(v):
                 fam.add_metric(lp, v)
+        for o in order_readings(r):
+            for fam, v in zip(self.orders, (o.velocity_mm_s * MM_S, o.phase_deg, o.frequency_hz), strict=True):
+                if _finite(v):
+                    fam.add_metric(lp + [o.order], v)
 
     def add_findings(self, lp: list[str], pu: PointUpdate) -> None:
         for fname, fst in sorted(pu.findings.items()):
@@ -180,7 +193,7 @@ class _Families:
     def all(self) -> tuple[Metric, ...]:
         return (self.overall, self.zone, *self.bands.values(), *self.levels.values(), *self.baselines.values(),
                 self.value_state, self.latched, self.raises, self.chatter, self.finding_state, self.finding_chatter,
-                *self.waveform, self.sensor_ok, self.sensor_check, *self.sensor_figures, self.point_state,
+                *self.waveform, *self.orders, self.sensor_ok, self.sensor_check, *self.sensor_figures, self.point_state,
                 self.machine_state, self.speed, self.speed_source)
 
 

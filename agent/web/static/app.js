@@ -688,7 +688,11 @@
     const stats = $("#wave-stats");
     stats.replaceChildren(...(st ? [["Peak", st.peak_m_s2, "m/s²"], ["RMS", st.rms_m_s2, "m/s²"], ["Crest", st.crest_factor, ""],
       ["Kurtosis", st.kurtosis, ""], ["Mean", st.mean_m_s2, "m/s²"]] : []).map(([k, v, u]) =>
-      el("div", {}, [el("dt", { text: k }), el("dd", { text: fmt(v) + (u ? " " + u : "") })])));
+      el("div", {}, [el("dt", { text: k }), el("dd", { text: fmt(v) + (u ? " " + u : "") })])),
+      // with a tach: 1x and 2x locked to the pulse, velocity RMS, phase at the pulse and the locked frequency
+      ...(pd.orders || []).map((o) => el("div", { class: "order", "data-order": o.order }, [
+        el("dt", { text: o.order + " (tach)" }),
+        el("dd", { text: fmt(o.velocity_mm_s) + " mm/s ∠ " + fmt(o.phase_deg, 4) + "° at " + fmt(o.frequency_hz, 5) + " Hz" })])));
     if (!wf) { plot.dataset.drawn = "0"; $("#waveform-info").textContent = ""; return; }
     const box = { x0: 58, x1: w - 12, y0: 24, y1: h - 30 };
     let amax = 0;
