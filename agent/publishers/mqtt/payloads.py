@@ -15,6 +15,7 @@ from datetime import UTC, datetime
 from typing import Any
 
 from ... import __version__
+from ...alarms.projection import as_json as projection_json
 from ...alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
 from ...alarms.sensor_checks import BLOCK_FAULTS
 from ...analysis.tachphase import readings as order_readings
@@ -67,6 +68,7 @@ def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]
         "drop_alarm_level": num(v.drop_alarm_level),
         "raises": int(v.raises),
         "chatter": int(v.chatter),
+        "projection": projection_json(v.projection, num, iso_time),
     }
     if quantity is not None:
         out["quantity"] = quantity
