@@ -20,6 +20,8 @@ from collections.abc import Iterable, Sequence
 import numpy as np
 
 from .. import kinematics
+from ..alarms.projection import as_json as projection_json
+from ..alarms.projection import describe as describe_projection
 from ..analysis import labels, severity
 from ..analysis.result import PointResult, Spectrum
 from ..analysis.tachphase import readings as order_readings
@@ -238,8 +240,16 @@ def value_rows(machine: Machine, values: dict) -> list[dict]:
             "alarm": sig(v.alarm_level),
             "baseline": sig(v.baseline),
             "latched": bool(v.latched),
+            "projection": projection_view(getattr(v, "projection", None), v.unit),
         })
     return rows
+
+
+def projection_view(p, unit: str) -> dict | None:
+    """A value's time to its levels for the page: the fields MQTT carries and one line of text."""
+    if p is None:
+        return None
+    return {**(projection_json(p, sig) or {}), "text": describe_projection(p, unit)}
 
 
 def iso_view(machine: Machine) -> dict:

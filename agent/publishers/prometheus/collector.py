@@ -29,7 +29,7 @@ from prometheus_client.core import (
 )
 
 from ... import __version__
-from ...alarms.records import STATES, MachineUpdate, PointUpdate
+from ...alarms.records import STATES, MachineUpdate, PointUpdate, ValueStatus
 from ...alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
 from ...analysis.result import PointResult
 from ...analysis.tachphase import readings as order_readings
@@ -93,6 +93,10 @@ class _Families:
                                           labels=mp + ["band"])
         self.chatter = CounterMetricFamily(f"{P}value_chatter", "raises of a value that came soon after its last lowering "
                                            "(within alarms.chatter_window_updates): chatter", labels=mp + ["band"])
+        self.time_to_level = GaugeMetricFamily(
+            f"{P}value_time_to_level_seconds", "time until a rising value's trend reaches its level (alarms.projection): "
+            "the fitted line's crossing (bound=projected) and its interval (earliest, latest); absent when not rising",
+            labels=mp + ["band", "level", "bound"])
         self.finding_state = EnumGauge(f"{P}finding_state", "state a persisting finding raises (alarms.findings), "
                                        "1 for the current state", mp + ["finding"], "state")
         self.finding_chatter = CounterMetricFamily(f"{P}finding_chatter", "raises of a finding soon after its last clearing",
@@ -181,6 +185,7 @@ class _Families:
             self.latched.add_metric(lp + [name], 1.0 if vs.latched else 0.0)
             self.raises.add_metric(lp + [name], float(vs.raises))
             self.chatter.add_metric(lp + [name], float(vs.chatter))
+            self.add_time_to_level(lp + [name], vs)
             if quantity is None:
                 continue
             unit, factor = metric_unit(quantity)
@@ -190,9 +195,22 @@ class _Families:
             if _finite(vs.baseline):
                 self.baselines[unit].add_metric(lp + [name, quantity], vs.baseline * factor)  # type: ignore[operator]
 
+    def add_time_to_level(self, lv: list[str], vs: ValueStatus) -> None:
+        p = vs.projection
+        if p is None:
+            return
+        for e in p.levels:
+            if e.status == "rising":
+                for bound, at in (("projected", e.time_s), ("earliest", e.earliest_s), ("latest", e.latest_s)):
+                    if at is not None:
+                        self.time_to_level.add_metric(lv + [e.level, bound], at - p.time_s)
+            elif e.status == "reached":
+                for bound in ("projected", "earliest", "latest"):
+                    self.time_to_level.add_metric(lv + [e.level, bound], 0.0)
+
     def all(self) -> tuple[Metric, ...]:
         return (self.overall, self.zone, *self.bands.values(), *self.levels.values(), *self.baselines.values(),
-                self.value_state, self.latched, self.raises, self.chatter, self.finding_state, self.finding_chatter,
+                self.value_state, self.latched, self.raises, self.chatter, self.time_to_level, self.finding_state, self.finding_chatter,
                 *self.waveform, *self.orders, self.sensor_ok, self.sensor_check, *self.sensor_figures, self.point_state,
                 self.machine_state, self.speed, self.speed_source)
 

@@ -728,6 +728,7 @@
     const plot = $("#trend");
     const { ctx, w, h } = canvasFor("trend");
     const s = td ? td.series.find((x) => x.name === ui.trendValue) : null;
+    renderProjection();
     if (!td || !s || !td.time_s.length) { plot.dataset.samples = "0"; return; }
     const t = td.time_s;
     const box = { x0: 58, x1: w - 12, y0: 24, y1: h - 30 };
@@ -776,6 +777,14 @@
     plot.dataset.value = s.name;
     plot.dataset.last = String(s.values[s.values.length - 1]);
     ui.trendGeom = { box, X, t, s };
+  }
+  // the selected value's time to its levels, from its recent trend (alarms.projection)
+  function renderProjection() {
+    const out = $("#trend-projection");
+    const row = ((ui.pointData && ui.pointData.values) || []).find((r) => r.name === ui.trendValue);
+    const p = row ? row.projection : null;
+    out.dataset.status = p ? p.status : "";
+    out.textContent = p ? "Time to level: " + unitText(p.text) : "";
   }
   function trendHover(ev) {
     const g = ui.trendGeom, out = $("#trend-readout");
