@@ -19,11 +19,12 @@ move with the speed). The simulator computes its own kinematics here and does no
 
 Two more shapes of the shaft's own tones:
 
-- ``truncation`` -- looseness as a bounded motion: the 1x tone is cut symmetrically at ``1 - depth`` of its
-  peak (``depth`` 0 to 0.9), like a clipped sine, which puts odd harmonics 3x, 5x, 7x ... of the 1x into the
-  signal and takes from the 1x (a clearance that stops the motion; common practice: looseness shows as a
-  truncated or clipped waveform with many harmonics). A sine cut at ``c`` of its peak keeps
-  ``(2/pi)(asin c + c sqrt(1 - c^2))`` of its fundamental (the Fourier series of a clipped sine);
+- ``truncation`` -- looseness as a bounded motion: the 1x tone is cut on one side at ``1 - depth`` of its
+  peak (``depth`` 0 to 0.9), its motion stopped in one direction by a clearance, which puts harmonics 2x, 3x,
+  4x ... of the 1x into the signal and takes from the 1x (common practice: looseness shows as a truncated
+  waveform with many harmonics). The cut's mean is taken out again (an accelerometer behind AC coupling
+  reads none): for ``cos`` cut at ``c``, the mean is ``-(sqrt(1 - c^2) - c acos c) / pi`` and the
+  fundamental keeps ``1 - (acos c - c sqrt(1 - c^2)) / pi`` (its Fourier series);
 - the 1x and 2x phases (``[healthy] unbalance_phase_deg``, ``misalignment_phase_deg``): the phase of the
   velocity at the tach's pulse (the shaft's whole turns), ``v = sqrt(2) V cos(2 pi k turns + phase)``,
   the same on every point; without them each point's tones keep their seeded random phases.
@@ -104,8 +105,10 @@ def fixed_phases_rad(unbalance_phase_deg: float | None, misalignment_phase_deg: 
 
 
 def truncate(x_m_s2: np.ndarray, depth, velocity_mm_s, order: float, shaft_hz) -> np.ndarray:
-    """The tone ``x_m_s2`` (velocity RMS ``velocity_mm_s`` at ``order`` x ``shaft_hz``) cut symmetrically at
-    ``1 - depth`` of its peak (scalars or per-sample arrays); unchanged where ``depth`` is 0."""
+    """The tone ``x_m_s2`` (velocity RMS ``velocity_mm_s`` at ``order`` x ``shaft_hz``) cut on its positive
+    side at ``1 - depth`` of its peak, its mean removed (scalars or per-sample arrays); unchanged where
+    ``depth`` is 0."""
     peak_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(shaft_hz)
-    bound = (1.0 - np.asarray(depth)) * peak_m_s2
-    return np.clip(x_m_s2, -bound, bound)
+    c = 1.0 - np.asarray(depth)
+    mean = -(np.sqrt(1.0 - c * c) - c * np.arccos(c)) / math.pi * peak_m_s2
+    return np.minimum(x_m_s2, c * peak_m_s2) - mean
