@@ -172,7 +172,7 @@ def project(window: TrendWindow, settings: ProjectionSettings, now_s: float,
 
 
 def describe(p: Projection | None, unit: str = "") -> str:
-    """One line for people: ``alarm in 6.2 d (4.1-9.0 d), warning reached; rising 0.004 m/s^2/d``."""
+    """One line for people: ``rising 0.004 m/s^2/d: warning reached, alarm in 6.2 d (4.1 d-9.0 d)``."""
     if p is None:
         return "-"
     if p.status == "too_few":
@@ -190,7 +190,11 @@ def describe(p: Projection | None, unit: str = "") -> str:
 
 
 def _days(seconds: float) -> str:
-    d = max(0.0, seconds) / DAY_S
+    """A duration for people: hours below two days, else days."""
+    s = max(0.0, seconds)
+    if s < 2 * DAY_S:
+        return f"{s / 3600.0:.1f} h"
+    d = s / DAY_S
     return f"{d:.1f} d" if d < 100 else f"{d:.0f} d"
 
 
