@@ -24,6 +24,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .alarms.projection import Projection
+from .alarms.projection import as_json as projection_json
 from .alarms.records import AlarmEvent, MachineUpdate
 from .errors import InputError
 from .expectations import Sample
@@ -216,6 +218,8 @@ class ReplayLog:
     events: list[tuple[float, AlarmEvent]] = field(default_factory=list)  # (elapsed_s, event)
     overall: dict[str, list[tuple[float, float, str | None]]] = field(default_factory=dict)  # point -> (t, mm/s, zone)
     peaks: dict[tuple[str, str], tuple[float, float]] = field(default_factory=dict)  # (point, value) -> (max, at t)
+    # (point, value) -> (t, its projection) at the value's first update in warning or alarm (replay_projection.py)
+    first_raised: dict[tuple[str, str], tuple[float, Projection]] = field(default_factory=dict)
     last: MachineUpdate | None = None
 
     def add(self, elapsed_s: float, update: MachineUpdate) -> None:
@@ -226,6 +230,8 @@ class ReplayLog:
             points[pid] = pu.state
             for name, vs in pu.values.items():
                 values[(pid, name)] = (vs.state, vs.value, vs.unit)
+                if vs.state in ("warning", "alarm") and vs.projection is not None:
+                    self.first_raised.setdefault((pid, name), (elapsed_s, vs.projection))
                 if math.isfinite(vs.value) and vs.state != "suppressed":
                     best = self.peaks.get((pid, name))
                     if best is None or vs.value > best[0]:
@@ -288,6 +294,7 @@ def update_record(update: MachineUpdate, elapsed_s: float) -> dict:
                     "alarm_level": v.alarm_level, "baseline": v.baseline, "latched": v.latched,
                     "drop_warning_level": v.drop_warning_level, "drop_alarm_level": v.drop_alarm_level,
                     "raises": v.raises, "chatter": v.chatter,
+                    "projection": projection_json(v.projection, iso=iso_date),
                 }
                 for name, v in pu.values.items()
             },
@@ -467,7 +474,13 @@ def _final_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | 
     return lines
 
 
-_TIMELINE_SECTIONS = (_baselines_lines, _firsts_lines, _zones_lines, _raises_lines, _faults_lines, _machine_states_lines,
+def _projection_lines(log: ReplayLog, zone_limits_mm_s: tuple[float, float, float] | None, max_lines: int) -> list[str]:
+    from .replay_projection import projection_lines
+
+    return projection_lines(log.machine, log.start_unix_s, log.first_raised, log.events, _when, max_lines)
+
+
+_TIMELINE_SECTIONS = (_baselines_lines, _firsts_lines, _projection_lines, _zones_lines, _raises_lines, _faults_lines, _machine_states_lines,
                       _final_lines)
 
 

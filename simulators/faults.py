@@ -16,6 +16,18 @@ move with the speed). The simulator computes its own kinematics here and does no
   eccentric driven gear modulating the mesh;
 - ``pole_pass`` -- the motor's 1x -/+ the pole-pass frequency (weights 1, 0.8), pole pass = poles x slip
   frequency at the nominal speed (slip = 2 LF / poles - f_motor).
+
+Two more shapes of the shaft's own tones:
+
+- ``truncation`` -- looseness as a bounded motion: the 1x tone is cut on one side at ``1 - depth`` of its
+  peak (``depth`` 0 to 0.9), its motion stopped in one direction by a clearance, which puts harmonics 2x, 3x,
+  4x ... of the 1x into the signal and takes from the 1x (common practice: looseness shows as a truncated
+  waveform with many harmonics). The cut's mean is taken out again (an accelerometer behind AC coupling
+  reads none): for ``cos`` cut at ``c``, the mean is ``-(sqrt(1 - c^2) - c acos c) / pi`` and the
+  fundamental keeps ``1 - (acos c - c sqrt(1 - c^2)) / pi`` (its Fourier series);
+- the 1x and 2x phases (``[healthy] unbalance_phase_deg``, ``misalignment_phase_deg``): the phase of the
+  velocity at the tach's pulse (the shaft's whole turns), ``v = sqrt(2) V cos(2 pi k turns + phase)``,
+  the same on every point; without them each point's tones keep their seeded random phases.
 """
 
 from __future__ import annotations
@@ -79,3 +91,24 @@ def fault_tones(m: Machine, seed: int, point_id: str) -> dict[str, list[tuple[fl
             f_p = m.motor_poles * slip_hz
             out["pole_pass"] = _norm([(driver * (1 - f_p / motor_hz), 1.0), (driver * (1 + f_p / motor_hz), 0.8)])
     return out
+
+
+def fixed_phases_rad(unbalance_phase_deg: float | None, misalignment_phase_deg: float | None) -> dict[str, float]:
+    """Tone phase (the renderer's convention: acceleration ``cos(2 pi k turns + p)``, so velocity
+    ``sin(...)``) of the 1x and 2x whose velocity phase at the pulse is given (module docstring):
+    ``cos(x + phase) = sin(x + phase + pi/2)``, so ``p = phase + pi/2``."""
+    out = {}
+    for component, deg in (("unbalance", unbalance_phase_deg), ("misalignment", misalignment_phase_deg)):
+        if deg is not None:
+            out[component] = math.radians(deg) + math.pi / 2.0
+    return out
+
+
+def truncate(x_m_s2: np.ndarray, depth, velocity_mm_s, order: float, shaft_hz) -> np.ndarray:
+    """The tone ``x_m_s2`` (velocity RMS ``velocity_mm_s`` at ``order`` x ``shaft_hz``) cut on its positive
+    side at ``1 - depth`` of its peak, its mean removed (scalars or per-sample arrays); unchanged where
+    ``depth`` is 0."""
+    peak_m_s2 = math.sqrt(2.0) * (np.asarray(velocity_mm_s) / 1000.0) * 2.0 * math.pi * order * np.asarray(shaft_hz)
+    c = 1.0 - np.asarray(depth)
+    mean = -(np.sqrt(1.0 - c * c) - c * np.arccos(c)) / math.pi * peak_m_s2
+    return np.minimum(x_m_s2, c * peak_m_s2) - mean

@@ -39,12 +39,12 @@ from rotorwatch.settings.models import Config, Machine
 
 from .chain import GAIN_BLOCK, ChainResponse, ChainSettings, ShapedNoise
 from .components import BlockGain, ImpactKernel, ShaftPhasor, order_tone, ring
-from .faults import FAULT_COMPONENTS, fault_tones, rotor_order
+from .faults import FAULT_COMPONENTS, fault_tones, fixed_phases_rad, rotor_order, truncate
 from .impacts import ImpactTrain
 from .profile import Profile, Ramp
 from .randomness import generator, stream_key, white_noise
 from .rates import bearing_orders
-from .scenario import BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, Scenario, affected_points
+from .scenario import BEARING_COMPONENTS, DAY_S, LEVEL_COMPONENTS, LEVEL_UNITS, Scenario, affected_points
 from .sensor import FaultSpan, SensorChain
 from .speed import SpeedModel
 
@@ -70,9 +70,10 @@ def _ramp(change, value_factor: float = 1.0) -> Ramp:
     return Ramp(start, end, change.to * value_factor, change.shape)
 
 
-def _point_tones(machine: Machine, seed: int) -> dict[str, list[_Tone]]:
+def _point_tones(machine: Machine, seed: int, fixed: dict[str, float] | None = None) -> dict[str, list[_Tone]]:
     """Each point's shaft-order tones (unbalance, misalignment, looseness, blade pass) with their fixed
-    random phases."""
+    random phases; ``fixed``: a phase for a component's tones instead (faults.fixed_phases_rad)."""
+    fixed = fixed or {}
     out = {}
     for p in machine.points:
         rng = generator(seed, stream_key("phases", p.id))
@@ -85,7 +86,8 @@ def _point_tones(machine: Machine, seed: int) -> dict[str, list[_Tone]]:
         # the shaft, drive, flow and electrical faults' tones (faults.py)
         tones += [_Tone(o, c, w, 0.0) for c, pairs in fault_tones(machine, seed, p.id).items() for o, w in pairs]
         out[p.id] = [
-            _Tone(t.order, t.component, t.weight, float(ph)) for t, ph in zip(tones, rng.uniform(0, 2 * math.pi, len(tones)))
+            _Tone(t.order, t.component, t.weight, float(fixed.get(t.component, ph)))
+            for t, ph in zip(tones, rng.uniform(0, 2 * math.pi, len(tones)))
         ]
     return out
 
@@ -109,7 +111,7 @@ class ScenarioRenderer:
                                 self.seed, horizon_s=hold)
 
         # severity profiles per point: levels by component, bearing defects by (bearing, defect)
-        initial = {c: getattr(healthy, f"{c}_{'m_s2' if c == 'noise' else 'mm_s'}") for c in LEVEL_COMPONENTS}
+        initial = {c: getattr(healthy, f"{c}_{LEVEL_UNITS.get(c, 'mm_s')}") for c in LEVEL_COMPONENTS}
         level_ramps: dict[tuple[str, str], list[Ramp]] = {}
         defect_ramps: dict[tuple[str, str, str], list[Ramp]] = {}
         faults: dict[str, list[FaultSpan]] = {p.id: [] for p in m.points}
@@ -132,8 +134,10 @@ class ScenarioRenderer:
             (p.id, c): Profile(initial[c], level_ramps.get((p.id, c), []), hold) for p in m.points for c in LEVEL_COMPONENTS
         }
         self._defects = {key: Profile(0.0, ramps, hold) for key, ramps in defect_ramps.items()}
+        self._truncated = {p.id: healthy.truncation_depth > 0 or (p.id, "truncation") in level_ramps for p in m.points}
 
-        self._tones = _point_tones(m, self.seed)
+        self._tones = _point_tones(m, self.seed, fixed_phases_rad(healthy.unbalance_phase_deg,
+                                                                  healthy.misalignment_phase_deg))
 
         # one impact train per (bearing, defect) that ever shows anywhere
         self.kernel = ImpactKernel(structure.resonance_hz, structure.damping_ratio)
@@ -299,6 +303,9 @@ class ScenarioRenderer:
                 if tone.component in FAULT_COMPONENTS or tone.order != int(tone.order):  # not whole: the full shaft angle
                     acc += order_tone(turns, shaft_hz, tone.order, tone.weight * level, tone.phase_rad,
                                       gain.per_sample() if gain is not None else None)
+                elif tone.component == "unbalance" and self._truncated[p.id]:  # looseness: the 1x cut (faults.py)
+                    acc += truncate(phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain),
+                                    self._level(p.id, "truncation", t, t_a, t_b), tone.weight * level, tone.order, shaft_hz)
                 else:
                     acc += phasor.tone(tone.order, tone.weight * level, tone.phase_rad, gain)
             line = self._level(p.id, "twice_line", t, t_a, t_b)

@@ -19,6 +19,9 @@
     blade_pass_mm_s = 0.4           # blades x speed (2nd and 3rd harmonics at 1/2 and 1/4 of it)
     noise_m_s2 = 0.3                # broadband machine noise, acceleration RMS (coloured: see [structure])
     twice_line_mm_s = 0.0           # 2xLF: the motor's magnetic pull at twice the line frequency
+    truncation_depth = 0.0          # looseness as a bounded motion: the 1x cut at (1 - depth) of its peak
+    # unbalance_phase_deg = (random)  1x velocity phase at the tach pulse, 0-360 (all points)
+    # misalignment_phase_deg = (random)  the same for the 2x
     speed_drift_pct = 0.2           # slow wander of speed within +/- this fraction of nominal
     # speed_rpm = (the configured speed)
 
@@ -62,7 +65,8 @@ Units of ``to``: ``outer_race``/``inner_race``/``ball`` peak impact acceleration
 ``unbalance``/``misalignment``/``looseness``/``blade_pass`` velocity RMS in mm/s; ``half_orders``,
 ``belt``, ``flow``, ``gear_mesh``, ``gear_sidebands``, ``pole_pass`` (:mod:`rotorwatch.simulators.faults`)
 velocity RMS in mm/s of all their lines together; ``noise`` acceleration
-RMS in m/s^2; ``twice_line`` velocity RMS in mm/s at twice the line frequency; ``speed_rpm`` in r/min.
+RMS in m/s^2; ``twice_line`` velocity RMS in mm/s at twice the line frequency; ``truncation`` the depth of
+the cut into the 1x, 0 to 0.9 of its peak (:mod:`rotorwatch.simulators.faults`); ``speed_rpm`` in r/min.
 
 The measurement chain (``[chain]``) and the noise colour are described in
 :mod:`rotorwatch.simulators.chain`: the volts a scenario produces are what a mounted, AC-coupled sensor
@@ -90,7 +94,9 @@ from rotorwatch.settings.models import Config, Machine
 BEARING_COMPONENTS = ("outer_race", "inner_race", "ball")
 # the shaft, drive, flow and electrical faults of simulators/faults.py come after the first six
 LEVEL_COMPONENTS = ("unbalance", "misalignment", "looseness", "blade_pass", "noise", "twice_line",
-                    "half_orders", "belt", "flow", "gear_mesh", "gear_sidebands", "pole_pass")
+                    "half_orders", "belt", "flow", "gear_mesh", "gear_sidebands", "pole_pass", "truncation")
+# the unit in a level component's [healthy] key when it is not mm/s
+LEVEL_UNITS = {"noise": "m_s2", "truncation": "depth"}
 COMPONENTS = (*BEARING_COMPONENTS, *LEVEL_COMPONENTS, "speed_rpm", "sensor")
 SENSOR_FAULTS = ("disconnected", "clipping", "dropouts", "bias_step")
 # default ``value`` of each sensor fault
@@ -130,6 +136,9 @@ class Healthy(_Model):
     gear_mesh_mm_s: NonNeg = 0.0
     gear_sidebands_mm_s: NonNeg = 0.0
     pole_pass_mm_s: NonNeg = 0.0
+    truncation_depth: Annotated[float, Field(ge=0, le=0.9, allow_inf_nan=False)] = 0.0
+    unbalance_phase_deg: Annotated[float, Field(ge=0, lt=360, allow_inf_nan=False)] | None = None
+    misalignment_phase_deg: Annotated[float, Field(ge=0, lt=360, allow_inf_nan=False)] | None = None
     speed_drift_pct: Annotated[float, Field(ge=0, le=5, allow_inf_nan=False)] = 0.2
     speed_rpm: Positive | None = None
 
@@ -204,6 +213,8 @@ class Change(_Model):
                 raise ValueError("fault and value are only used with component 'sensor'")
             if self.to is None:
                 raise ValueError(f"component {c!r} needs to (the severity reached at end_day)")
+            if c == "truncation" and self.to > 0.9:
+                raise ValueError(f"to = {self.to:g}: a truncation's depth is a share of the 1x peak, 0 to 0.9")
             if c == "speed_rpm" and self.to <= 0:
                 raise ValueError("to = 0: speed_rpm must stay above 0")
             if self.shape != "step" and self.end_day is None:

@@ -50,6 +50,7 @@ from ..settings.models import AlarmPolicy, FindingRule, Machine
 from ..settings.quantities import OVERALL_QUANTITY, quantity
 from .baseline import OVERALL, BaselineStore
 from .levels import LevelTracker, Transition, effective_drop_levels, effective_levels, fmt
+from .projection import TrendWindow, project
 from .records import STATES, AlarmEvent, FindingStatus, MachineUpdate, PointUpdate, SensorHealth, ValueStatus
 from .slots import Counts, FindingSlot, ValueSlot
 
@@ -113,6 +114,11 @@ class MachineMonitor:
                 name: FindingSlot(name, rule, deque(maxlen=rule.window))
                 for name, rule in machine.alarms.finding_rules.items()
             }
+        self.projection = machine.alarms.projection
+        if self.projection.enabled:
+            for slots in self.slots.values():
+                for slot in slots.values():
+                    slot.window = TrendWindow(self.projection)
         self.point_states = {p.id: "no_data" for p in machine.points}
         self.point_reasons = {p.id: "no update yet" for p in machine.points}
         self.state = "no_data"
@@ -209,6 +215,7 @@ class MachineMonitor:
             baseline, slot.latched, reason,
             drop.warning.value if drop.warning else None, drop.alarm.value if drop.alarm else None,
             slot.counts.raises, slot.counts.chatter,
+            slot.projection if state != "suppressed" else None,
         )
 
     def _suppress_findings(self, pid: str, reason: str) -> dict[str, FindingStatus]:
@@ -258,6 +265,7 @@ class MachineMonitor:
         if slot.drop is not None:
             slot.drop_eff = effective_drop_levels(slot.levels, base, zones)
             transitions.append(slot.drop.update(x, slot.drop_eff))
+        slot.projection = self._project(slot, x, time_s)
         shown = self._shown(slot, base is not None)
         reason = self._describe(pid, slot, shown, x)
         event = None
@@ -269,6 +277,28 @@ class MachineMonitor:
             self._count(slot.counts, slot.shown, shown)
             slot.shown = shown
         return self._status(slot, x, shown, base.median if base else None, reason), event
+
+    def _project(self, slot: ValueSlot, x: float, time_s: float):
+        """The value's trend window updated and projected to its levels now (None without levels)."""
+        if slot.window is None:
+            return None
+        slot.window.add(time_s, x)
+        levels = {"warning": slot.eff.warning.value if slot.eff.warning else None,
+                  "alarm": slot.eff.alarm.value if slot.eff.alarm else None}
+        if levels["warning"] is None and levels["alarm"] is None:
+            return None
+        return project(slot.window, self.projection, time_s, levels)
+
+    def seed_trend(self, point_id: str, name: str, samples: list[tuple[float, float]]) -> int:
+        """Fill a value's trend window from stored (time, value) rows, oldest first (the daemon's trend
+        store at start, so a restart does not forget the trend); returns how many were taken."""
+        slot = self.slots.get(point_id, {}).get(name)
+        if slot is None or slot.window is None:
+            return 0
+        before = len(slot.window.samples)
+        for t, v in samples:
+            slot.window.add(t, v)
+        return len(slot.window.samples) - before
 
     @staticmethod
     def _shown(slot: ValueSlot, learned: bool) -> str:

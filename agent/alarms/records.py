@@ -9,6 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from ..analysis.result import PointResult
+from .projection import Projection
 
 # Point and machine states, most severe first where a machine state is aggregated from its points.
 # A sensor fault never reads as normal and never raises a machine alarm.
@@ -45,6 +46,9 @@ class ValueStatus:
     drop_alarm_level: float | None = None
     raises: int = 0  # times the value was raised (to warning, or to alarm) since the monitor started
     chatter: int = 0  # raises that came within AlarmPolicy.chatter_window_updates of the value's last lowering
+    # the time to its warning and alarm levels from its recent trend (rotorwatch.alarms.projection); None for
+    # a value without levels, a suppressed value, or with alarms.projection.enabled = false
+    projection: Projection | None = None
 
 
 @dataclass(frozen=True)

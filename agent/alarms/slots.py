@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 from ..analysis.result import Finding
 from ..settings.models import FindingRule, Levels
 from .levels import SEVERITY, EffectiveLevels, LevelTracker
+from .projection import Projection, TrendWindow
 
 NAN = float("nan")
 
@@ -35,6 +36,8 @@ class ValueSlot:
     eff: EffectiveLevels = EffectiveLevels(None, None)
     drop_eff: EffectiveLevels = EffectiveLevels(None, None)
     counts: Counts = field(default_factory=Counts)
+    window: TrendWindow | None = None  # the recent trend, for the time to its levels (projection.py)
+    projection: Projection | None = None  # of the last update that judged the value
 
     @property
     def trackers(self) -> list[LevelTracker]:

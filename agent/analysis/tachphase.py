@@ -17,12 +17,36 @@ of the peak after the pulse, 360 minus this; from memory.) A steady 1x phase is 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .ordertrack import ShaftAngle
+if TYPE_CHECKING:
+    from .ordertrack import ShaftAngle
+    from .result import PointResult
 
 ORDERS = (1, 2)
+
+
+@dataclass(frozen=True)
+class OrderReading:
+    """One tach-locked order of one update, as it is published (MQTT, metrics, page) and trended."""
+
+    order: str  # "1x", "2x"
+    velocity_mm_s: float  # velocity RMS of the order
+    phase_deg: float  # 0 to 360, the velocity's phase at the pulse (module docstring)
+    frequency_hz: float  # the tach-locked frequency: order x the window's mean speed from the pulses
+
+
+def readings(result: PointResult) -> list[OrderReading]:
+    """The 1x and 2x of ``result`` locked to its tach (empty without a tach). The frequency is the order
+    times the speed the analysis used, which with a tach is the pulses' mean speed over the window."""
+    out = []
+    for name, (v_mm_s, phase_deg) in result.order_phase.items():
+        k = float(name.rstrip("x"))
+        out.append(OrderReading(name, float(v_mm_s), float(phase_deg), k * float(result.rpm) / 60.0))
+    return out
 
 
 def order_phasors(x_m_s2: np.ndarray, fs_hz: float, angle: ShaftAngle) -> dict[str, tuple[float, float]]:

@@ -19,6 +19,7 @@ from ..alarms.monitor import MachineMonitor
 from ..alarms.records import AlarmEvent, MachineUpdate
 from ..logs import fields
 from ..settings.models import Config, Machine
+from .trend_seed import seed_projections
 
 log = logging.getLogger(__name__)
 
@@ -73,6 +74,8 @@ def build_runtimes(config: Config, state_dir: Path, factory: PipelineFactory,
             out[m.id] = old
             continue
         pipeline = factory(config, m, state_dir)
+        if isinstance(getattr(pipeline, "monitor", None), MachineMonitor):
+            seed_projections(pipeline.monitor, state_dir)  # the values' recent trends, from the trend store
         n = max(16, int(round(m.analysis.window_s * fs)))
         out[m.id] = MachineRuntime(m, pipeline, n, {p.id: p.sensor.channel for p in m.points},
                                    m.speed.tach_channel if m.speed.mode == "tach" else None)

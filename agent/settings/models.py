@@ -28,6 +28,7 @@ from .policy import (  # noqa: F401 (alarm policy, finding rules and drives, as 
     AlarmPolicy,
     Drive,
     FindingRule,
+    ProjectionSettings,
 )
 from .service import MetricsSettings, MqttSettings, StatusPageSettings, StorageSettings
 from .source_kinds import source_kinds

@@ -67,6 +67,27 @@ DEFAULT_FINDING_RULES = {
 }
 
 
+class ProjectionSettings(Model):
+    """Time to a level (``[machines.alarms.projection]``): each value with levels has its trend over the last
+    ``window_hours`` fitted by a robust straight line (Theil-Sen, rotorwatch.alarms.projection) and projected
+    to its warning and alarm levels, with an interval at ``confidence``; a value whose rise is not
+    significant at that confidence reads "not rising". ``min_points``: updates in the window before a fit;
+    ``max_points``: the window is thinned to at most this many (a fit costs their square).
+    """
+
+    enabled: bool = True
+    window_hours: PositiveFloat = Field(24.0, le=24.0 * 365)
+    min_points: int = Field(12, ge=4, le=10000)
+    max_points: int = Field(120, ge=8, le=1000)
+    confidence: float = Field(0.95, ge=0.5, lt=1.0)
+
+    @model_validator(mode="after")
+    def _points(self) -> ProjectionSettings:
+        if self.max_points < self.min_points:
+            raise ValueError(f"max_points ({self.max_points}) must be at least min_points ({self.min_points})")
+        return self
+
+
 class AlarmPolicy(Model):
     """How baselines are learned, how chatter is counted, and which findings raise a point's state.
 
@@ -81,6 +102,7 @@ class AlarmPolicy(Model):
     min_learning_updates: int = Field(20, ge=1, le=100000)
     chatter_window_updates: int = Field(10, ge=1, le=100000)
     findings: dict[str, FindingRule] = {}
+    projection: ProjectionSettings = ProjectionSettings()
 
     @model_validator(mode="after")
     def _finding_names(self) -> AlarmPolicy:

@@ -10,6 +10,8 @@ A row is ``(time_s, machine, point, value name, value, unit, state)``. From each
   the finding's strength, NULL in an update without it) with the state it raises;
 - the waveform figures of every analyzed point: ``rms_m_s2``, ``peak_m_s2``, ``crest_factor``,
   ``kurtosis`` (state ``-``: they are trended, not alarmed here);
+- with a tach, the tach-locked 1x and 2x of every analyzed point (:mod:`rotorwatch.analysis.tachphase`):
+  ``1x_velocity_mm_s`` (unit ``mm/s``), ``1x_phase_deg`` (unit ``deg``), the same for ``2x`` (state ``-``);
 - the machine's speed as value ``speed`` (unit ``rpm``) on point ``""`` (machine level), with the
   machine state.
 
@@ -52,6 +54,7 @@ from pathlib import Path
 from typing import Any, NoReturn
 
 from ..alarms.records import MachineUpdate
+from ..analysis.tachphase import readings as order_readings
 from . import TRENDS_FILE, StorageError
 from .recovery import SQLITE_COMPANIONS, is_corruption, set_aside
 
@@ -135,6 +138,11 @@ def rows_of(update: MachineUpdate) -> list[tuple[str, str, str, float | None, st
                 (point_id, "crest_factor", "1", _finite(w.crest_factor), NO_STATE),
                 (point_id, "kurtosis", "1", _finite(w.kurtosis), NO_STATE),
             ]
+            for o in order_readings(pu.result):
+                out += [
+                    (point_id, f"{o.order}_velocity_mm_s", "mm/s", _finite(o.velocity_mm_s), NO_STATE),
+                    (point_id, f"{o.order}_phase_deg", "deg", _finite(o.phase_deg), NO_STATE),
+                ]
     return out
 
 

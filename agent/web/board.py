@@ -46,6 +46,7 @@ class _PreparedPoint:
     values: list
     stats: dict | None
     findings: list
+    orders: list = field(default_factory=list)  # with a tach: views.orders_view(...)
 
 
 @dataclass
@@ -165,6 +166,7 @@ class StatusBoard:
             values=views.value_rows(machine, pu.values),
             stats=views.waveform_stats(result),
             findings=views.findings_view(result),
+            orders=views.orders_view(result),
         )
 
     @staticmethod
@@ -175,6 +177,7 @@ class StatusBoard:
             "state": pu.state,
             "values": {n: (views.sig(v.value), views.sig(v.warning_level), views.sig(v.alarm_level), v.state)
                        for n, v in pu.values.items()},
+            "orders": views.order_trend_sample(pu.result) if pu.result is not None else {},
         }
 
     # ------------------------------------------------------------------------------ reading side
@@ -284,7 +287,7 @@ class StatusBoard:
         if prepared is None:
             return {**base, "state": "no_data", "reason": "waiting for the first update", "time_s": None,
                     "rpm": None, "spectra": {}, "markers": [], "regions": [], "waveform": None,
-                    "values": [], "stats": None, "findings": [], "sensor": None}
+                    "values": [], "stats": None, "findings": [], "orders": [], "sensor": None}
         pu = prepared.update
         res = pu.result
         return {
@@ -305,6 +308,7 @@ class StatusBoard:
             "values": prepared.values,
             "stats": prepared.stats,
             "findings": prepared.findings,
+            "orders": prepared.orders,
         }
 
     def trend(self, machine_id: str, point_id: str) -> dict:
@@ -334,6 +338,7 @@ class StatusBoard:
                 "alarm": [g[2] if g else None for g in got],
                 "state": [g[3] if g else None for g in got],
             })
+        series += views.order_trend_series(samples)
         return {
             "machine": machine_id,
             "point": point_id,

@@ -20,8 +20,11 @@ from collections.abc import Iterable, Sequence
 import numpy as np
 
 from .. import kinematics
+from ..alarms.projection import as_json as projection_json
+from ..alarms.projection import describe as describe_projection
 from ..analysis import labels, severity
 from ..analysis.result import PointResult, Spectrum
+from ..analysis.tachphase import readings as order_readings
 from ..settings.models import Machine
 
 #: Harmonics drawn per marker family (our own choice: enough to recognise a harmonic series).
@@ -237,8 +240,16 @@ def value_rows(machine: Machine, values: dict) -> list[dict]:
             "alarm": sig(v.alarm_level),
             "baseline": sig(v.baseline),
             "latched": bool(v.latched),
+            "projection": projection_view(getattr(v, "projection", None), v.unit),
         })
     return rows
+
+
+def projection_view(p, unit: str) -> dict | None:
+    """A value's time to its levels for the page: the fields MQTT carries and one line of text."""
+    if p is None:
+        return None
+    return {**(projection_json(p, sig) or {}), "text": describe_projection(p, unit)}
 
 
 def iso_view(machine: Machine) -> dict:
@@ -284,3 +295,36 @@ def event_view(event) -> dict:
 
 def columns(samples: Sequence[dict], key: str) -> list:
     return [s.get(key) for s in samples]
+
+
+def orders_view(result: PointResult) -> list[dict]:
+    """With a tach: the tach-locked 1x and 2x (velocity RMS, phase at the pulse, frequency) for the page."""
+    return [{"order": o.order, "velocity_mm_s": sig(o.velocity_mm_s), "phase_deg": sig(o.phase_deg, 4),
+             "frequency_hz": sig(o.frequency_hz, 5)} for o in order_readings(result)]
+
+
+#: The tach-locked order figures the page trends, with their units (the trend store's names).
+ORDER_TREND_UNITS = {"velocity_mm_s": "mm/s", "phase_deg": "deg"}
+
+
+def order_trend_sample(result: PointResult) -> dict:
+    """``{"1x_velocity_mm_s": ..., "1x_phase_deg": ..., ...}`` of one update (empty without a tach)."""
+    out = {}
+    for row in orders_view(result):
+        for key in ORDER_TREND_UNITS:
+            out[f"{row['order']}_{key}"] = row[key]
+    return out
+
+
+def order_trend_series(samples: list[dict]) -> list[dict]:
+    """Trend series of the tach-locked orders over the board's samples (none when no sample had a tach)."""
+    names: list[str] = []
+    for s in samples:
+        names += [n for n in s.get("orders", {}) if n not in names]
+    out = []
+    for n in sorted(names):
+        unit = next(u for k, u in ORDER_TREND_UNITS.items() if n.endswith(k))
+        values = [s.get("orders", {}).get(n) for s in samples]
+        out.append({"name": n, "quantity": "order", "unit": unit, "values": values,
+                    "warning": [None] * len(values), "alarm": [None] * len(values), "state": [None] * len(values)})
+    return out

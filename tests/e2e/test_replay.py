@@ -74,6 +74,24 @@ def test_shipped_scenario_meets_its_expectations(capsys, scenario):
     summary = lines[-1]
     assert summary["type"] == "summary" and summary["updates"] == len(updates) > 0
     print(f"{scenario.stem}: {len(updates)} updates in {summary['wall_s']:.1f} s")  # benchmark figure
+    if scenario.stem == "demo-outer-race":
+        projection_brackets_the_alarm(updates, "de-h", "de-outer-race")
+
+
+def projection_brackets_the_alarm(updates: list[dict], point: str, value: str) -> None:
+    """The time to alarm projected at the value's first warning (rotorwatch.alarms.projection) brackets the
+    alarm as it came in the same replay (the issue's check on the demo's growing outer-race fault)."""
+    day = lambda u, dt=0.0: (u["time_s"] + dt - updates[0]["time_s"]) / 86400.0  # noqa: E731
+    states = [u["points"][point]["values"][value]["state"] for u in updates]
+    warned = updates[states.index("warning")]
+    alarmed = updates[states.index("alarm")]
+    p = warned["points"][point]["values"][value]["projection"]
+    assert p["status"] == "rising" and p["alarm"]["status"] == "rising", p
+    a = p["alarm"]
+    lo, mid, hi = day(warned, a["in_low_s"]), day(warned, a["in_s"]), day(warned, a["in_high_s"])
+    print(f"{value} on {point}: first warning day {day(warned):.2f}; alarm projected then for day {mid:.2f} "
+          f"({lo:.2f}-{hi:.2f}, {p['points']} updates fitted); alarm came day {day(alarmed):.2f}")
+    assert lo <= day(alarmed) <= hi
 
 
 # -------------------------------------------------------------------------------------- short runs

@@ -15,8 +15,10 @@ from datetime import UTC, datetime
 from typing import Any
 
 from ... import __version__
+from ...alarms.projection import as_json as projection_json
 from ...alarms.records import AlarmEvent, MachineUpdate, PointUpdate, ValueStatus
 from ...alarms.sensor_checks import BLOCK_FAULTS
+from ...analysis.tachphase import readings as order_readings
 from ...settings.models import Machine
 from ..quantities import band_quantities, payload_unit
 
@@ -66,6 +68,7 @@ def value_payload(v: ValueStatus, quantity: str | None = None) -> dict[str, Any]
         "drop_alarm_level": num(v.drop_alarm_level),
         "raises": int(v.raises),
         "chatter": int(v.chatter),
+        "projection": projection_json(v.projection, num, iso_time),
     }
     if quantity is not None:
         out["quantity"] = quantity
@@ -187,10 +190,21 @@ def point_metrics_payload(update: MachineUpdate, point: PointUpdate, agent_id: s
         "envelope_band_source": r.envelope_band_source,
         "envelope_band_review": band_review_payload(r.envelope_band_review),
         "findings": [f.as_json(num) for f in r.findings],
+        "orders": orders_payload(r),
         "sample_rate_hz": num(r.fs_hz),
         "n_samples": int(r.n_samples),
         "data_quality": data_quality_payload(point, quality),
     }
+
+
+def orders_payload(result: Any) -> dict[str, Any] | None:
+    """With a tach: the tach-locked 1x and 2x (velocity RMS, phase at the pulse in degrees, frequency);
+    None without a tach (:mod:`rotorwatch.analysis.tachphase`)."""
+    got = order_readings(result)
+    if not got:
+        return None
+    return {o.order: {"velocity_mm_s": num(o.velocity_mm_s), "phase_deg": num(o.phase_deg, 5),
+                      "frequency_hz": num(o.frequency_hz)} for o in got}
 
 
 def band_review_payload(review: Any) -> dict[str, Any] | None:

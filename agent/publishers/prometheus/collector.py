@@ -30,9 +30,10 @@ from prometheus_client.core import (
 from prometheus_client.registry import Collector
 
 from ... import __version__
-from ...alarms.records import STATES, MachineUpdate, PointUpdate
+from ...alarms.records import STATES, MachineUpdate, PointUpdate, ValueStatus
 from ...alarms.sensor_checks import BLOCK_FAULTS, INPUT_FAULTS
 from ...analysis.result import PointResult
+from ...analysis.tachphase import readings as order_readings
 from ...selfstats import SelfStats
 from ...settings.models import Config
 from ...web.health import health
@@ -93,6 +94,10 @@ class _Families:
                                           labels=mp + ["band"])
         self.chatter = CounterMetricFamily(f"{P}value_chatter", "raises of a value that came soon after its last lowering "
                                            "(within alarms.chatter_window_updates): chatter", labels=mp + ["band"])
+        self.time_to_level = GaugeMetricFamily(
+            f"{P}value_time_to_level_seconds", "time until a rising value's trend reaches its level (alarms.projection): "
+            "the fitted line's crossing (bound=projected) and its interval (earliest, latest); absent when not rising",
+            labels=mp + ["band", "level", "bound"])
         self.finding_state = EnumGauge(f"{P}finding_state", "state a persisting finding raises (alarms.findings), "
                                        "1 for the current state", mp + ["finding"], "state")
         self.finding_chatter = CounterMetricFamily(f"{P}finding_chatter", "raises of a finding soon after its last clearing",
@@ -103,6 +108,14 @@ class _Families:
             GaugeMetricFamily(f"{P}waveform_mean_meters_per_second_squared", "mean (DC) acceleration of the window, m/s^2", labels=mp),
             GaugeMetricFamily(f"{P}waveform_crest_factor_ratio", "crest factor (peak / RMS) of the window", labels=mp),
             GaugeMetricFamily(f"{P}waveform_kurtosis_ratio", "kurtosis of the window (Pearson; Gaussian noise = 3)", labels=mp),
+        )
+        self.orders = (
+            GaugeMetricFamily(f"{P}order_velocity_meters_per_second", "velocity RMS of a tach-locked order (1x, 2x), m/s",
+                              labels=mp + ["order"]),
+            GaugeMetricFamily(f"{P}order_phase_degrees", "phase of a tach-locked order's velocity at the tach pulse, "
+                              "degrees 0-360 (the angle its positive peak leads the pulse by)", labels=mp + ["order"]),
+            GaugeMetricFamily(f"{P}order_frequency_hertz", "frequency of a tach-locked order (order x the pulses' mean speed), Hz",
+                              labels=mp + ["order"]),
         )
         self.sensor_ok = GaugeMetricFamily(f"{P}sensor_ok", "1 while the sensor checks pass", labels=mp)
         self.sensor_check = EnumGauge(f"{P}sensor_check", "outcome of the sensor checks: ok or the fault found (1 for the current one)",
@@ -154,6 +167,10 @@ class _Families:
         for fam, v in zip(self.waveform, (w.rms_m_s2, w.peak_m_s2, w.mean_m_s2, w.crest_factor, w.kurtosis), strict=True):
             if _finite(v):
                 fam.add_metric(lp, v)
+        for o in order_readings(r):
+            for fam, v in zip(self.orders, (o.velocity_mm_s * MM_S, o.phase_deg, o.frequency_hz), strict=True):
+                if _finite(v):
+                    fam.add_metric(lp + [o.order], v)
 
     def add_findings(self, lp: list[str], pu: PointUpdate) -> None:
         for fname, fst in sorted(pu.findings.items()):
@@ -169,6 +186,7 @@ class _Families:
             self.latched.add_metric(lp + [name], 1.0 if vs.latched else 0.0)
             self.raises.add_metric(lp + [name], float(vs.raises))
             self.chatter.add_metric(lp + [name], float(vs.chatter))
+            self.add_time_to_level(lp + [name], vs)
             if quantity is None:
                 continue
             unit, factor = metric_unit(quantity)
@@ -178,10 +196,23 @@ class _Families:
             if _finite(vs.baseline):
                 self.baselines[unit].add_metric(lp + [name, quantity], vs.baseline * factor)  # type: ignore[operator]
 
+    def add_time_to_level(self, lv: list[str], vs: ValueStatus) -> None:
+        p = vs.projection
+        if p is None:
+            return
+        for e in p.levels:
+            if e.status == "rising":
+                for bound, at in (("projected", e.time_s), ("earliest", e.earliest_s), ("latest", e.latest_s)):
+                    if at is not None:
+                        self.time_to_level.add_metric(lv + [e.level, bound], at - p.time_s)
+            elif e.status == "reached":
+                for bound in ("projected", "earliest", "latest"):
+                    self.time_to_level.add_metric(lv + [e.level, bound], 0.0)
+
     def all(self) -> tuple[Metric, ...]:
         return (self.overall, self.zone, *self.bands.values(), *self.levels.values(), *self.baselines.values(),
-                self.value_state, self.latched, self.raises, self.chatter, self.finding_state, self.finding_chatter,
-                *self.waveform, self.sensor_ok, self.sensor_check, *self.sensor_figures, self.point_state,
+                self.value_state, self.latched, self.raises, self.chatter, self.time_to_level, self.finding_state, self.finding_chatter,
+                *self.waveform, *self.orders, self.sensor_ok, self.sensor_check, *self.sensor_figures, self.point_state,
                 self.machine_state, self.speed, self.speed_source)
 
 

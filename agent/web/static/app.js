@@ -688,7 +688,11 @@
     const stats = $("#wave-stats");
     stats.replaceChildren(...(st ? [["Peak", st.peak_m_s2, "m/s²"], ["RMS", st.rms_m_s2, "m/s²"], ["Crest", st.crest_factor, ""],
       ["Kurtosis", st.kurtosis, ""], ["Mean", st.mean_m_s2, "m/s²"]] : []).map(([k, v, u]) =>
-      el("div", {}, [el("dt", { text: k }), el("dd", { text: fmt(v) + (u ? " " + u : "") })])));
+      el("div", {}, [el("dt", { text: k }), el("dd", { text: fmt(v) + (u ? " " + u : "") })])),
+      // with a tach: 1x and 2x locked to the pulse, velocity RMS, phase at the pulse and the locked frequency
+      ...(pd.orders || []).map((o) => el("div", { class: "order", "data-order": o.order }, [
+        el("dt", { text: o.order + " (tach)" }),
+        el("dd", { text: fmt(o.velocity_mm_s) + " mm/s ∠ " + fmt(o.phase_deg, 4) + "° at " + fmt(o.frequency_hz, 5) + " Hz" })])));
     if (!wf) { plot.dataset.drawn = "0"; $("#waveform-info").textContent = ""; return; }
     const box = { x0: 58, x1: w - 12, y0: 24, y1: h - 30 };
     let amax = 0;
@@ -724,6 +728,7 @@
     const plot = $("#trend");
     const { ctx, w, h } = canvasFor("trend");
     const s = td ? td.series.find((x) => x.name === ui.trendValue) : null;
+    renderProjection();
     if (!td || !s || !td.time_s.length) { plot.dataset.samples = "0"; return; }
     const t = td.time_s;
     const box = { x0: 58, x1: w - 12, y0: 24, y1: h - 30 };
@@ -772,6 +777,14 @@
     plot.dataset.value = s.name;
     plot.dataset.last = String(s.values[s.values.length - 1]);
     ui.trendGeom = { box, X, t, s };
+  }
+  // the selected value's time to its levels, from its recent trend (alarms.projection)
+  function renderProjection() {
+    const out = $("#trend-projection");
+    const row = ((ui.pointData && ui.pointData.values) || []).find((r) => r.name === ui.trendValue);
+    const p = row ? row.projection : null;
+    out.dataset.status = p ? p.status : "";
+    out.textContent = p ? "Time to level: " + unitText(p.text) : "";
   }
   function trendHover(ev) {
     const g = ui.trendGeom, out = $("#trend-readout");

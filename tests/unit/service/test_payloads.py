@@ -50,7 +50,8 @@ def test_point_state_payload_has_levels_baseline_and_units():
     shaft = body["values"]["shaft-1x"]
     assert shaft == {"value": 0.9, "unit": "mm/s", "state": "warning", "warning_level": 0.8,
                      "alarm_level": 3.5, "baseline": 0.4, "latched": True, "reason": "", "quantity": "velocity",
-                     "drop_warning_level": None, "drop_alarm_level": None, "raises": 0, "chatter": 0}
+                     "drop_warning_level": None, "drop_alarm_level": None, "raises": 0, "chatter": 0,
+                     "projection": None}
     assert body["findings"] == {}
     assert body["values"]["de-outer-race"]["quantity"] == "envelope"
     assert body["values"]["de-outer-race"]["warning_level"] is None
@@ -105,3 +106,35 @@ def test_topic_tree():
     assert t.command_result == "plant/vib/halden-ef3/command/result"
     assert payloads.availability_payload(True) == b"online"
     assert payloads.availability_payload(False) == b"offline"
+
+
+def test_point_state_payload_carries_the_time_to_each_level():
+    import dataclasses
+
+    from rotorwatch.alarms.projection import LevelEta, Projection
+
+    upd = machine_update()
+    t = upd.time_s
+    proj = Projection("rising", t, 24, 82800.0, 0.3, 0.2, 0.4, (
+        LevelEta("warning", 2.8, "reached"),
+        LevelEta("alarm", 4.5, "rising", t + 5 * 86400.0, t + 3 * 86400.0, t + 9 * 86400.0)))
+    pu = upd.points["de-h"]
+    values = {**pu.values, "overall": dataclasses.replace(pu.values["overall"], projection=proj)}
+    body = roundtrip(payloads.point_state_payload(upd, dataclasses.replace(pu, values=values), "halden-ef3", EF3))
+    got = body["values"]["overall"]["projection"]
+    assert got["status"] == "rising" and got["slope_per_day"] == 0.3 and got["slope_interval_per_day"] == [0.2, 0.4]
+    assert got["warning"] == {"status": "reached", "level": 2.8}
+    assert got["alarm"] == {"status": "rising", "level": 4.5, "in_s": 432000.0, "in_low_s": 259200.0,
+                            "in_high_s": 777600.0, "at": "2023-11-19T22:13:20.000Z"}
+
+
+def test_point_metrics_payload_carries_the_tach_locked_orders():
+    import dataclasses
+
+    upd = machine_update()
+    pu = upd.points["de-h"]
+    r = dataclasses.replace(pu.result, rpm=1500.0, rpm_source="tach", order_phase={"1x": (3.2, 41.5), "2x": (0.8, 250.0)})
+    body = roundtrip(payloads.point_metrics_payload(upd, dataclasses.replace(pu, result=r), "halden-ef3", EF3))
+    assert body["orders"] == {"1x": {"velocity_mm_s": 3.2, "phase_deg": 41.5, "frequency_hz": 25.0},
+                              "2x": {"velocity_mm_s": 0.8, "phase_deg": 250.0, "frequency_hz": 50.0}}
+    assert roundtrip(payloads.point_metrics_payload(upd, pu, "halden-ef3", EF3))["orders"] is None
