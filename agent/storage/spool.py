@@ -23,22 +23,13 @@ Durability (``durability`` -> sqlite ``PRAGMA synchronous`` in WAL mode):
 Threading: one sqlite connection behind a lock; every method may be called from any thread. No
 method blocks on the network. Only one process may open a spool (an ``flock`` on ``<path>.lock``).
 
-Full policy (when appending would pass ``max_bytes`` or ``max_records``), applied in this order until
-the spool is back under 95 % of both bounds, each step counted in :meth:`stats` ``dropped``:
+Full policy (when appending would pass ``max_bytes`` or ``max_records``): see
+:mod:`rotorwatch.storage.spool_full`; every drop is counted by reason in :meth:`stats` ``dropped``.
+Records the broker refuses or paho cannot send are deleted through :meth:`reject` (``broker_rejected``,
+``unsendable``).
 
-1. ``state_superseded``: states with a newer state on the same topic in the spool (a retained state
-   is only the latest value; transitions are kept as events);
-2. ``metrics_thinned``: every other metrics record of the oldest half of the metrics, repeated, so
-   old metrics history gets coarser (halving its time resolution per pass) before any is lost whole;
-3. ``metrics_oldest``: the oldest metrics records;
-4. ``event_oldest``: the oldest events (a warning at most once a minute with the running total:
-   alarm history is being lost);
-5. ``state_oldest``: the oldest remaining states (only when the spool holds nothing else).
-
-Records in flight are never dropped (so the bounds may be passed by the records in flight, at most
-the outbox's window). A record larger than ``max_bytes`` on its own is not stored
-(``oversize``); its seq is still consumed. Records the broker refuses or paho cannot send are
-deleted through :meth:`reject` (``broker_rejected``, ``unsendable``).
+Records may also wait in memory first (the outbox's default, ``storage.spool.write = "unsent"``):
+:meth:`new_record` gives them seq and ts, :meth:`store` writes a batch of them when they must wait.
 """
 
 from __future__ import annotations
@@ -51,25 +42,29 @@ import threading
 import time
 from collections.abc import Callable, Iterable, Iterator, Mapping
 from contextlib import contextmanager
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
 from . import SPOOL_FILE, StorageError
-from .spool_payloads import check_topic, encode_payload
+from .recovery import SQLITE_COMPANIONS, is_corruption, set_aside
+from .spool_full import make_room
+from .spool_payloads import KINDS, Record, SpoolStats, check_record, encode_payload
+
+__all__ = ["KINDS", "Record", "Spool", "SpoolStats"]
 
 log = logging.getLogger(__name__)
 
-KINDS = ("state", "metrics", "event")
 DROP_REASONS = (
     "state_superseded", "metrics_thinned", "metrics_oldest", "event_oldest", "state_oldest",
     "oversize", "broker_rejected", "unsendable",
 )
 #: Bytes counted per record on top of topic and payload (seq, ts, kind, flags, row header).
 RECORD_OVERHEAD_BYTES = 32
-#: After the full policy runs, the spool is under this fraction of both bounds (hysteresis).
-LOW_WATER = 0.95
 SCHEMA_VERSION = 1
+#: Seqs for records kept in memory are reserved on disk this many at a time (one commit per block).
+SEQ_BLOCK = 4096
+WAL_CHECKPOINT_PAGES = 256
+WAL_LIMIT_BYTES = 1024 * 1024
 _SYNCHRONOUS = {"power_loss": "FULL", "process_crash": "NORMAL"}
 
 _SCHEMA = """
@@ -88,38 +83,6 @@ CREATE INDEX IF NOT EXISTS records_kind_seq ON records (kind, seq, size_bytes);
 CREATE INDEX IF NOT EXISTS records_state_topic ON records (topic, seq) WHERE kind = 'state';
 CREATE TABLE IF NOT EXISTS retained (topic TEXT PRIMARY KEY, seq INTEGER NOT NULL);
 """
-
-
-@dataclass(frozen=True)
-class Record:
-    """One spooled record, as it will be published."""
-
-    seq: int
-    ts_s: float
-    kind: str  # state | metrics | event
-    topic: str
-    payload: bytes
-    qos: int
-    retain: bool
-
-
-@dataclass(frozen=True)
-class SpoolStats:
-    """A snapshot of the spool's health (for metrics and the status page)."""
-
-    depth: int  # records stored (pending + in flight)
-    stored_bytes: int  # topics + payloads + RECORD_OVERHEAD_BYTES per record
-    in_flight: int
-    last_seq: int  # the highest seq ever given out (0: none yet)
-    oldest_seq: int | None
-    oldest_ts_s: float | None
-    max_bytes: int
-    max_records: int
-    dropped: dict[str, int] = field(default_factory=dict)  # by reason (DROP_REASONS), since creation
-
-    @property
-    def dropped_total(self) -> int:
-        return sum(self.dropped.values())
 
 
 class Spool:
@@ -148,15 +111,27 @@ class Spool:
         self._event_warned_s = float("-inf")
         self._lock_fd: int | None = self._take_file_lock()
         try:
-            self._db = self._open()
-            self._load()
+            try:
+                self._db, self.set_aside_as = self._open(), None
+                self._load()
+            except sqlite3.Error as e:
+                if not is_corruption(e):
+                    raise
+                self._close_quietly()  # a damaged file: aside with one warning, start an empty spool
+                self.set_aside_as = set_aside(self.path, e, SQLITE_COMPANIONS)
+                self._db = self._open()
+                self._load()
         except sqlite3.Error as e:
             self._release_file_lock()
-            raise StorageError(f"{self.path}: cannot open the spool: {e} "
-                               "(move the file aside to start an empty spool)") from e
+            raise StorageError(f"{self.path}: cannot open the spool: {e}") from e
         except BaseException:
             self._release_file_lock()
             raise
+
+    def _close_quietly(self) -> None:
+        db, self._db = getattr(self, "_db", None), None  # type: ignore[assignment]
+        if db is not None:
+            db.close()
 
     @classmethod
     def in_state_dir(cls, state_dir: str | Path, settings: Any = None, **kwargs: Any) -> Spool:
@@ -189,6 +164,13 @@ class Spool:
 
     def _open(self) -> sqlite3.Connection:
         db = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False, timeout=10.0)
+        try:
+            return self._prepare(db)
+        except BaseException:
+            db.close()
+            raise
+
+    def _prepare(self, db: sqlite3.Connection) -> sqlite3.Connection:
         version = db.execute("PRAGMA user_version").fetchone()[0]
         if version > SCHEMA_VERSION:
             db.close()
@@ -198,7 +180,9 @@ class Spool:
         if str(mode).lower() != "wal":
             log.warning("spool journal mode is %s, not wal path=%s", mode, self.path)
         db.execute(f"PRAGMA synchronous={_SYNCHRONOUS[self.durability]}")
-        db.execute("PRAGMA journal_size_limit=8388608")  # keep the WAL file at most 8 MiB after checkpoints
+        # the WAL is checkpointed every 256 pages (1 MiB) and cut back to 1 MiB after each checkpoint
+        db.execute(f"PRAGMA wal_autocheckpoint={WAL_CHECKPOINT_PAGES}")
+        db.execute(f"PRAGMA journal_size_limit={WAL_LIMIT_BYTES}")
         db.executescript(_SCHEMA)
         db.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
         return db
@@ -208,6 +192,9 @@ class Spool:
         meta = dict(db.execute("SELECT key, value FROM meta").fetchall())
         max_row = db.execute("SELECT MAX(seq) FROM records").fetchone()[0] or 0
         self._last_seq = max(int(meta.get("last_seq", 0)), int(max_row))
+        self._reserved = self._last_seq  # seqs up to here may have been given out: never again
+        self._dirty_retained: dict[str, int] = {}
+        self._dirty_dropped = False
         self._dropped = {r: int(meta.get(f"dropped.{r}", 0)) for r in DROP_REASONS}
         count, total = db.execute("SELECT COUNT(*), COALESCE(SUM(size_bytes), 0) FROM records").fetchone()
         self._count, self._bytes = int(count), int(total)
@@ -215,8 +202,15 @@ class Spool:
 
     # -- life cycle ---------------------------------------------------------------------------
     def close(self) -> None:
+        """Close the file; on a clean close the unused rest of a seq block is given back (no gap)."""
         with self._lock:
             if self._db is not None:
+                try:
+                    with self._write("close") as db:
+                        self._set_meta(db, "last_seq", self._last_seq)
+                        self._reserved = self._last_seq
+                except StorageError as e:
+                    log.error("%s", e)
                 self._db.close()
                 self._db = None  # type: ignore[assignment]
             self._release_file_lock()
@@ -239,6 +233,7 @@ class Spool:
             raise StorageError(f"{self.path}: spool {what} failed: {e}") from e
         try:
             yield db
+            self._flush_dirty(db)
             db.execute("COMMIT")
         except BaseException as e:
             try:
@@ -268,11 +263,7 @@ class Spool:
         ``seq`` and ``ts`` added (non-finite numbers become null). Raises ValueError for a bad kind,
         topic, qos or payload, StorageError when the disk write fails.
         """
-        if kind not in KINDS:
-            raise ValueError(f"record kind {kind!r}: must be one of {', '.join(KINDS)}")
-        check_topic(topic)
-        if qos not in (0, 1, 2):
-            raise ValueError(f"qos = {qos!r}: must be 0, 1 or 2")
+        check_record(kind, topic, qos)
         with self._lock:
             seq = self._last_seq + 1
             ts_s = float(self._clock())
@@ -289,8 +280,7 @@ class Spool:
                     db.execute("INSERT INTO records (seq, ts_s, kind, topic, payload, qos, retain, size_bytes)"
                                " VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                                (seq, ts_s, kind, topic, data, qos, int(bool(retain)), size))
-                db.execute("INSERT INTO meta (key, value) VALUES ('last_seq', ?) "
-                           "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (seq,))
+                self._set_meta(db, "last_seq", max(seq, self._reserved))
             self._last_seq = seq
             if size <= self.max_bytes:
                 self._count += 1
@@ -299,13 +289,95 @@ class Spool:
             callback(seq)
         return seq
 
+    def new_record(self, kind: str, topic: str, payload: Mapping[str, Any] | bytes, retain: bool = False,
+                   qos: int = 1) -> Record:
+        """Give the next seq and ts to a record that waits in memory (not stored; see :meth:`store`).
+
+        Seqs are reserved on disk ``SEQ_BLOCK`` at a time (one small commit per block), so a seq is
+        never reused, not even after a ``kill -9`` or a power cut; an unclean stop leaves the rest of
+        the block unused (a gap in ``seq`` that is no lost record). Raises like :meth:`append`.
+        """
+        check_record(kind, topic, qos)
+        with self._lock:
+            seq = self._last_seq + 1
+            ts_s = float(self._clock())
+            data = encode_payload(payload, seq, ts_s)
+            if seq > self._reserved:
+                with self._write("seq reservation") as db:
+                    self._set_meta(db, "last_seq", seq + SEQ_BLOCK - 1)
+                self._reserved = seq + SEQ_BLOCK - 1
+            self._last_seq = seq
+        return Record(seq, ts_s, kind, topic, data, qos, bool(retain))
+
+    def store(self, records: Iterable[Record], in_flight: Mapping[int, int] | None = None) -> int:
+        """Store records made by :meth:`new_record` in one transaction (the full policy applies);
+        ``in_flight``: seq -> message id of those the client holds. Returns how many were stored."""
+        records = list(records)
+        if not records:
+            return 0
+        with self._lock:
+            self._in_flight.update(in_flight or {})
+            try:
+                self._store(records)
+            except BaseException:
+                for seq in in_flight or {}:
+                    self._in_flight.pop(seq, None)
+                raise
+        for callback in list(self._listeners):
+            callback(records[-1].seq)
+        return len(records)
+
+    def _store(self, records: list[Record]) -> None:
+        with self._write("store") as db:
+            for rec in records:
+                size = len(rec.topic.encode("utf-8")) + len(rec.payload) + RECORD_OVERHEAD_BYTES
+                if size > self.max_bytes:
+                    self._in_flight.pop(rec.seq, None)
+                    self._count_drop(db, "oversize", 1)
+                    continue
+                if self._bytes + size > self.max_bytes or self._count + 1 > self.max_records:
+                    self._make_room(db, size)
+                cur = db.execute("INSERT OR IGNORE INTO records (seq, ts_s, kind, topic, payload, qos, retain, "
+                                 "size_bytes) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                                 (rec.seq, rec.ts_s, rec.kind, rec.topic, rec.payload, rec.qos, int(rec.retain), size))
+                if cur.rowcount == 1:
+                    self._count += 1
+                    self._bytes += size
+
+    def note_delivered(self, rec: Record) -> None:
+        """A record that waited in memory was acknowledged: its retained seq counts (written with the
+        next transaction or at close)."""
+        if rec.retain:
+            with self._lock:
+                if rec.seq > self._retained.get(rec.topic, 0):
+                    self._retained[rec.topic] = self._dirty_retained[rec.topic] = rec.seq
+
+    def note_dropped(self, reason: str) -> None:
+        """A record that waited in memory was refused or unsendable: counted (written later)."""
+        with self._lock:
+            self._dropped[reason] += 1
+            self._dirty_dropped = True
+
+    def _flush_dirty(self, db: sqlite3.Connection) -> None:
+        for topic, seq in self._dirty_retained.items():
+            db.execute("INSERT INTO retained (topic, seq) VALUES (?, ?) "
+                       "ON CONFLICT(topic) DO UPDATE SET seq = MAX(seq, excluded.seq)", (topic, seq))
+        self._dirty_retained = {}
+        if self._dirty_dropped:
+            for reason, n in self._dropped.items():
+                self._set_meta(db, f"dropped.{reason}", n)
+            self._dirty_dropped = False
+
+    @staticmethod
+    def _set_meta(db: sqlite3.Connection, key: str, value: int) -> None:
+        db.execute("INSERT INTO meta (key, value) VALUES (?, ?) "
+                   "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, value))
+
     def _count_drop(self, db: sqlite3.Connection, reason: str, n: int) -> None:
         if n <= 0:
             return
         self._dropped[reason] += n
-        db.execute("INSERT INTO meta (key, value) VALUES (?, ?) "
-                   "ON CONFLICT(key) DO UPDATE SET value = excluded.value",
-                   (f"dropped.{reason}", self._dropped[reason]))
+        self._set_meta(db, f"dropped.{reason}", self._dropped[reason])
 
     def _delete(self, db: sqlite3.Connection, victims: list[tuple[int, int]]) -> None:
         for i in range(0, len(victims), 500):
@@ -316,58 +388,7 @@ class Spool:
         self._bytes -= sum(b for _, b in victims)
 
     def _make_room(self, db: sqlite3.Connection, incoming_bytes: int) -> None:
-        """Apply the full policy until the spool (with the incoming record) is under the low water mark."""
-        target_bytes = min(int(self.max_bytes * LOW_WATER), self.max_bytes - incoming_bytes)
-        target_rows = min(int(self.max_records * LOW_WATER), self.max_records - 1)
-
-        def enough() -> bool:
-            return self._bytes <= target_bytes and self._count <= target_rows
-
-        def take(candidates: Iterable[tuple[int, int]], reason: str) -> int:
-            victims = []
-            freed_bytes = freed_rows = 0
-            for seq, size in candidates:
-                if self._bytes - freed_bytes <= target_bytes and self._count - freed_rows <= target_rows:
-                    break
-                if seq in self._in_flight:
-                    continue
-                victims.append((seq, size))
-                freed_bytes += size
-                freed_rows += 1
-            self._delete(db, victims)
-            self._count_drop(db, reason, len(victims))
-            return len(victims)
-
-        take(db.execute(
-            "SELECT r.seq, r.size_bytes FROM records r WHERE r.kind = 'state' AND r.seq < "
-            "(SELECT MAX(n.seq) FROM records n WHERE n.kind = 'state' AND n.topic = r.topic) ORDER BY r.seq"
-        ).fetchall(), "state_superseded")
-        for _ in range(32):  # each pass removes about a quarter of the metrics; bounded
-            if enough():
-                break
-            metrics = [(s, b) for s, b in db.execute(
-                "SELECT seq, size_bytes FROM records WHERE kind = 'metrics' ORDER BY seq") if s not in self._in_flight]
-            if len(metrics) < 4:
-                break
-            if take(metrics[: len(metrics) // 2][1::2], "metrics_thinned") == 0:
-                break
-        if not enough():
-            take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'metrics' ORDER BY seq").fetchall(),
-                 "metrics_oldest")
-        if not enough():
-            n = take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'event' ORDER BY seq").fetchall(),
-                     "event_oldest")
-            now = time.monotonic()
-            if n and now - self._event_warned_s >= 60.0:  # loud, but once a minute, with the running total
-                self._event_warned_s = now
-                log.warning("spool full of events: dropping the oldest n=%d dropped_events_total=%d "
-                            "(raise storage.spool bounds or restore the broker link)",
-                            n, self._dropped["event_oldest"])
-        if not enough():
-            n = take(db.execute("SELECT seq, size_bytes FROM records WHERE kind = 'state' ORDER BY seq").fetchall(),
-                     "state_oldest")
-            if n:
-                log.warning("spool full of states: dropped the oldest n=%d", n)
+        make_room(self, db, incoming_bytes)
 
     # -- reading and acknowledging ---------------------------------------------------------------
     def next_batch(self, limit: int, *, after_seq: int | None = None,

@@ -1,4 +1,4 @@
-"""What the spool stores on the wire: a record's payload bytes and the topic check.
+"""What the spool stores: a record, its payload bytes on the wire, the checks, the spool's figures.
 
 JSON objects get ``seq`` and ``ts`` first (``{"seq": 17, "ts": 1767225600.123, ...}``); a non-finite
 number becomes null (JSON has no NaN); bytes payloads stay as given. Used by
@@ -10,7 +10,10 @@ from __future__ import annotations
 import json
 import math
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import Any
+
+KINDS = ("state", "metrics", "event")
 
 
 def _json_default(obj: Any) -> Any:
@@ -59,3 +62,43 @@ def check_topic(topic: str) -> None:
         raise ValueError(f"topic {topic!r}: wildcards and NUL are not allowed in a published topic")
     if len(topic.encode("utf-8")) > 65535:
         raise ValueError(f"topic of {len(topic)} characters: MQTT allows at most 65535 bytes")
+
+
+def check_record(kind: str, topic: str, qos: int) -> None:
+    if kind not in KINDS:
+        raise ValueError(f"record kind {kind!r}: must be one of {', '.join(KINDS)}")
+    check_topic(topic)
+    if qos not in (0, 1, 2):
+        raise ValueError(f"qos = {qos!r}: must be 0, 1 or 2")
+
+
+@dataclass(frozen=True)
+class Record:
+    """One spooled record, as it will be published."""
+
+    seq: int
+    ts_s: float
+    kind: str  # state | metrics | event
+    topic: str
+    payload: bytes
+    qos: int
+    retain: bool
+
+
+@dataclass(frozen=True)
+class SpoolStats:
+    """A snapshot of the spool's health (for metrics and the status page)."""
+
+    depth: int  # records stored (pending + in flight)
+    stored_bytes: int  # topics + payloads + RECORD_OVERHEAD_BYTES per record
+    in_flight: int
+    last_seq: int  # the highest seq ever given out (0: none yet)
+    oldest_seq: int | None
+    oldest_ts_s: float | None
+    max_bytes: int
+    max_records: int
+    dropped: dict[str, int] = field(default_factory=dict)  # by reason (DROP_REASONS), since creation
+
+    @property
+    def dropped_total(self) -> int:
+        return sum(self.dropped.values())

@@ -8,12 +8,13 @@ spool's own bookkeeping.
 from __future__ import annotations
 
 import json
+import logging
 import sqlite3
 
 import pytest
 
 from rotorwatch.storage import StorageError
-from rotorwatch.storage.spool import RECORD_OVERHEAD_BYTES, Spool, encode_payload
+from rotorwatch.storage.spool import RECORD_OVERHEAD_BYTES, SEQ_BLOCK, Spool, encode_payload
 
 #: for tests that append hundreds of records: durability is not what they check, fsyncs only slow them
 FAST = {"durability": "process_crash"}
@@ -137,9 +138,23 @@ def test_one_process_per_spool(tmp_path):
     Spool(path).close()  # released on close
 
 
-def test_not_a_database_is_one_line_error(tmp_path):
+def test_a_damaged_file_is_set_aside_with_one_warning_and_the_spool_starts_empty(tmp_path, caplog):
     path = tmp_path / "s.sqlite"
     path.write_bytes(b"this is not sqlite" * 100)
+    with caplog.at_level(logging.WARNING), Spool(path) as spool:
+        assert spool.stats().depth == 0 and spool.append("event", "t/e", {"i": 1}) == 1
+        aside = spool.set_aside_as
+    warnings = [r.getMessage() for r in caplog.records if r.levelno >= logging.WARNING]
+    assert len(warnings) == 1 and str(path) in warnings[0] and aside is not None and aside.name in warnings[0]
+    assert aside.read_bytes() == b"this is not sqlite" * 100  # kept for a person to look at
+
+
+def test_a_spool_that_cannot_be_opened_is_a_one_line_error(tmp_path):
+    path = tmp_path / "s.sqlite"
+    with Spool(path) as spool:
+        spool.append("event", "t/e", {"i": 1})
+    with sqlite3.connect(path) as db:
+        db.execute("PRAGMA user_version=99")
     with pytest.raises(StorageError) as info:
         Spool(path)
     assert "\n" not in str(info.value) and str(path) in str(info.value)
@@ -249,3 +264,47 @@ def test_durability_maps_to_sqlite_synchronous(tmp_path, durability, expected):
     with Spool(tmp_path / "s.sqlite", durability=durability) as spool:
         assert spool._db.execute("PRAGMA synchronous").fetchone()[0] == expected
         assert spool._db.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+
+
+def _unclean_stop(spool: Spool) -> None:
+    """What a kill -9 leaves: the connection and the lock gone, nothing written at close."""
+    spool._db.close()
+    spool._release_file_lock()
+
+
+def test_seqs_of_records_kept_in_memory_are_never_reused(tmp_path):
+    path = tmp_path / "s.sqlite"
+    spool = Spool(path)
+    recs = [spool.new_record("metrics", "t/m", {"i": i}) for i in range(3)]
+    assert [r.seq for r in recs] == [1, 2, 3] and json.loads(recs[0].payload)["seq"] == 1
+    assert spool.stats().depth == 0  # given a seq, not stored
+    _unclean_stop(spool)
+    with Spool(path) as spool:  # after a kill the rest of the reserved block stays unused: a gap
+        assert spool.new_record("event", "t/e", {}).seq == SEQ_BLOCK + 1
+        assert spool.append("event", "t/e", {}) == SEQ_BLOCK + 2
+    with Spool(path) as spool:  # after a clean close: no gap
+        assert spool.new_record("event", "t/e", {}).seq == SEQ_BLOCK + 3
+
+
+def test_store_writes_a_batch_keeps_in_flight_marks_and_applies_the_bounds(tmp_path):
+    with Spool(tmp_path / "s.sqlite", max_bytes=4096, max_records=100) as spool:
+        recs = [spool.new_record("metrics", "t/m", {"i": i, "pad": "x" * 100}) for i in range(60)]
+        big = spool.new_record("event", "t/e", {"pad": "y" * 5000})
+        spool.store([*recs, big], in_flight={recs[0].seq: 7})
+        st = spool.stats()
+        assert st.in_flight == 1 and spool.in_flight() == {1: 7}
+        assert st.stored_bytes <= 4096 and st.dropped["oversize"] == 1 and st.dropped["metrics_thinned"] > 0
+        kept = [r.seq for r in spool.next_batch(100)]
+        assert 1 not in kept and kept == sorted(kept)  # in flight: not offered again
+        assert spool.ack(1)  # the in-flight one was kept by the full policy and is deleted on its PUBACK
+
+
+def test_memory_deliveries_and_drops_are_written_with_the_next_transaction(tmp_path):
+    path = tmp_path / "s.sqlite"
+    with Spool(path) as spool:
+        rec = spool.new_record("state", "t/s", {"v": 1}, retain=True)
+        spool.note_delivered(rec)
+        spool.note_dropped("broker_rejected")
+        assert spool.retained_seq("t/s") == rec.seq
+    with Spool(path) as spool:
+        assert spool.retained_seq("t/s") == rec.seq and spool.stats().dropped["broker_rejected"] == 1
