@@ -8,6 +8,8 @@ These models are meant to sit under ``[storage]`` in the configuration file, nex
     # max_bytes = 67108864
     # max_records = 200000
     # durability = "power_loss"
+    # write = "unsent"
+    # memory_hold_s = 2.0
     [storage.forwarding]     # how the spool drains into MQTT
     # in_flight_window = 20
     # backlog_rate_per_s = 200.0
@@ -50,11 +52,20 @@ class SpoolSettings(_Model):
     ``durability``: ``power_loss`` (sqlite ``synchronous=FULL``: every committed record survives a power
     cut) or ``process_crash`` (``synchronous=NORMAL``: records survive a crash or kill of the agent,
     but the last records before a power cut may be lost; fewer flash writes).
+
+    ``write``: ``unsent`` (default) keeps records in memory while the broker is connected and
+    acknowledging, and writes to the spool only what is unacknowledged when the link drops, after
+    ``memory_hold_s``, or at a stop (a batch per transaction): a power cut or ``kill -9`` may lose up to
+    ``memory_hold_s`` of records plus the in-flight window. ``every_record`` writes each record before
+    it is sent (nothing appended is lost, about 5 GB a day of writes for four points; see
+    deploy/data-guarantees.md, "Disk wear").
     """
 
     max_bytes: int = Field(64 * MIB, ge=64 * 1024)
     max_records: int = Field(200_000, ge=100)
     durability: Literal["power_loss", "process_crash"] = "power_loss"
+    write: Literal["unsent", "every_record"] = "unsent"
+    memory_hold_s: float = Field(2.0, ge=0.1, le=60.0, allow_inf_nan=False)
 
 
 class ForwardingSettings(_Model):

@@ -14,8 +14,10 @@ What is read: ``write_bytes`` of ``/proc/<daemon PID>/io`` (bytes the daemon cau
 block layer, fsync'd pages and page-cache writeback alike) over ``--seconds`` after a warm-up. The
 components are told apart by turning them off one at a time, each in its own run:
 
-- ``full``: defaults (publish spool on, trend store on, snapshots on; a daily snapshot scheduled a
-  minute after the start so its size is seen);
+- ``full``: defaults (publish spool on, records kept in memory while the broker acknowledges them,
+  trend store on, snapshots on; a daily snapshot scheduled a minute after the start so its size is seen);
+- ``strict``: as full, with ``storage.spool.write = "every_record"`` (each record written before it
+  is sent): spool in that mode = strict - memory;
 - ``memory``: ``mqtt.delivery = "memory"`` (no spool): spool = full - memory;
 - ``bare``: memory and no trend rows (``storage.trends.min_interval_s`` of a century): trends =
   memory - bare; what is left is the daemon's log (its stderr goes to a file here; under systemd it
@@ -50,6 +52,7 @@ MB = 1e6
 POINTS = 4
 VARIANTS = {
     "full": [],
+    "strict": ["storage.spool.write=every_record"],
     "memory": ["mqtt.delivery=memory"],
     "bare": ["mqtt.delivery=memory", "storage.trends.min_interval_s=3153600000"],
 }
@@ -119,7 +122,7 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--seconds", type=float, default=300.0, help="measured span per variant (default 300)")
     ap.add_argument("--warmup-s", type=float, default=20.0)
-    ap.add_argument("--variants", default="full,memory,bare")
+    ap.add_argument("--variants", default="full,strict,memory,bare")
     ap.add_argument("--checkpoint-s", type=float, default=3600.0,
                     help="baseline save interval while learning, for the computed share (default 3600)")
     ap.add_argument("--set", action="append", default=[], metavar="KEY=VALUE")
@@ -146,6 +149,7 @@ def main(argv: list[str] | None = None) -> int:
     rows = []
     if "full" in rate and "memory" in rate:
         rows.append(("publish spool", rate["full"] - rate["memory"]))
+    strict_spool = rate["strict"] - rate["memory"] if "strict" in rate and "memory" in rate else None
     if "memory" in rate and "bare" in rate:
         rows.append(("trend store", rate["memory"] - rate["bare"]))
     if "bare" in rate:
@@ -160,6 +164,11 @@ def main(argv: list[str] | None = None) -> int:
     for label, v in rows:
         print(f"  {label:38s} {v / MB:9.1f} | {v / MB / POINTS:7.2f}")
     print(f"  {'total':38s} {total / MB:9.1f} | {total / MB / POINTS:7.2f}   (budget: 250 MB/day for 4 points)")
+    if strict_spool is not None:
+        spool_now = rows[0][1] if rows and rows[0][0] == "publish spool" else 0.0
+        strict_total = total - spool_now + strict_spool
+        print(f"  {'publish spool, write = every_record':38s} {strict_spool / MB:9.1f} | {strict_spool / MB / POINTS:7.2f}")
+        print(f"  {'total with write = every_record':38s} {strict_total / MB:9.1f} | {strict_total / MB / POINTS:7.2f}")
     print(f"  measured whole 'full' run: {rate.get('full', float('nan')) / MB:.1f} MB/day "
           f"(baseline file {baseline_bytes / 1e3:.0f} kB, one snapshot {snapshot_bytes / 1e3:.0f} kB)")
     return 0

@@ -496,3 +496,63 @@ def test_backlog_drain_figures(tmp_path, window):
           f"loss {len(missing)}, duplicates {_duplicates(arrivals)}")
     assert not missing
     assert arrivals == sorted(arrivals)  # one lane, one connection: exactly seq order
+
+
+def test_records_kept_in_memory_are_written_only_when_unsent_and_none_is_lost(make_mosquitto_broker, tmp_path):
+    """The default (``storage.spool.write = "unsent"``): records published through the outbox wait in
+    memory while the broker acknowledges, so the spool file is not written; a broker outage puts the
+    unacknowledged ones into the spool (one transaction when the link drops, then one per hold) and they
+    arrive after the reconnect, none lost, in order per lane; then the spool is empty again."""
+    broker = make_mosquitto_broker()
+    prefix = f"rwtest/{uuid.uuid4().hex}"
+    collector = Collector(broker.host, broker.port, prefix)
+    spool = Spool(tmp_path / "spool.sqlite", max_bytes=1 << 30, max_records=1_000_000)
+    client = _publisher_client(broker.host, broker.port, f"edge-{prefix[-8:]}")
+    outbox = Outbox(client, spool=spool, in_flight_window=20, backlog_rate_per_s=200.0,
+                    spool_write="unsent", memory_hold_s=1.0)
+    outbox.install()
+    client.connect_async(broker.host, broker.port, keepalive=3)
+    client.loop_start()
+    outbox.start()
+    n_records, rate_per_s, fig = 700, 50.0, {}
+    try:
+        deadline = time.monotonic() + 10
+        while not outbox.stats().connected and time.monotonic() < deadline:
+            time.sleep(0.02)
+        t0 = time.monotonic()
+        for i in range(n_records):
+            kind = KIND_CYCLE[i % len(KIND_CYCLE)]
+            assert outbox.publish_record(kind, _topic(prefix, kind), {"i": i}, retain=(kind == "state"))
+            if i == 200:
+                fig["connected"] = outbox.stats()
+                broker.stop()
+            if i == 450:
+                fig["outage"] = outbox.stats()
+                fig["spool_at_return"] = spool.stats().depth
+                broker.start()
+            delay = t0 + (i + 1) / rate_per_s - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+        assert outbox.wait_drained(30.0), f"not drained: {spool.stats()} {outbox.stats()}"
+        expected = set(range(1, spool.last_seq + 1))
+        missing = collector.wait_for_all(expected, 20.0)
+    finally:
+        if not broker.running:
+            broker.start()
+        outbox.stop()
+        client.disconnect()
+        client.loop_stop()
+        collector.close()
+    st, fs = spool.stats(), outbox.stats()
+    spool.close()
+    arrivals = collector.received()
+    print(f"\n[unsent] {spool.last_seq} records; before the outage: {fig['connected'].spilled} written to the "
+          f"spool; during it: {fig['outage'].spilled} in {fig['outage'].spills} transactions "
+          f"({fig['spool_at_return']} waiting at the return); in all {fs.spilled} in {fs.spills}; "
+          f"received {len(arrivals)} messages, loss {len(missing)}, duplicates {_duplicates(arrivals)}")
+    assert spool.last_seq == n_records
+    assert not missing, f"lost {len(missing)} records, e.g. {sorted(missing)[:10]}"
+    assert fig["connected"].spilled == 0  # connected and acknowledging: nothing written
+    assert fig["spool_at_return"] > 0 and fig["outage"].spills < fig["outage"].spilled  # batched
+    assert st.depth == 0 and st.dropped_total == 0 and fs.unsent == 0
+    _check_order_per_lane(arrivals, [sp.backlog_through_seq for sp in outbox.lane_splits])

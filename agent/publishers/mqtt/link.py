@@ -32,7 +32,7 @@ from ...errors import RotorwatchError
 from ...logs import RepeatLimiter, fields
 from ...selfstats import SelfStats
 from ...settings.service import MqttSettings
-from ...settings.storage import ForwardingSettings
+from ...settings.storage import ForwardingSettings, SpoolSettings
 from ...storage.spool import Spool
 from .outbox import Outbox
 from .payloads import availability_payload
@@ -85,7 +85,7 @@ class MqttLink:
                  on_command: Callable[[bytes], None] | None = None,
                  on_message: Callable[[str, bytes], object] | None = None,
                  extra_topics: list[str] | None = None, spool: Spool | None = None,
-                 forwarding: ForwardingSettings | None = None):
+                 forwarding: ForwardingSettings | None = None, spool_settings: SpoolSettings | None = None):
         self.settings = settings
         self.agent_id = agent_id
         self.base_dir = base_dir
@@ -104,7 +104,7 @@ class MqttLink:
         self.spool = spool  # a rotorwatch.storage.spool.Spool, owned by the caller, or None
         self._forwarding = forwarding or ForwardingSettings.model_validate({})
         # the one owner of publishing: messages wait in it (memory or the spool) until the client exists
-        self.outbox = Outbox.from_settings(None, settings, self._forwarding, spool, stats=stats)
+        self.outbox = Outbox.from_settings(None, settings, self._forwarding, spool, spool_settings, stats=stats)
 
     # -- life cycle ------------------------------------------------------------------------------
     def _path(self, name: str | None) -> str | None:

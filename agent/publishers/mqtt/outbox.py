@@ -24,9 +24,8 @@ new id. A new client (a restart, a reload of ``[mqtt]``) holds nothing, so at :m
 spool's records marked in flight become pending again. After a reconnect the newest payload of every
 retained topic goes again (a broker restarted without persistence gets the current states back).
 
-Where a record waits is decided in one place, :meth:`Outbox.record_goes_to_spool` (today: whenever
-there is a spool). It is the seam for keeping records in memory while the broker is connected and
-writing the spool only while it is not.
+Where a record waits is decided in one place, :meth:`Outbox.record_goes_to_spool` (in
+:mod:`~rotorwatch.publishers.mqtt.unsent`, with the records kept in memory).
 
 Wiring: a bare client can use :meth:`install`; :class:`~rotorwatch.publishers.mqtt.link.MqttLink`
 sets ``on_publish`` to :meth:`on_publish` and calls :meth:`on_connect` / :meth:`on_disconnect` from
@@ -40,18 +39,17 @@ import queue
 import threading
 import time
 from collections import deque
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
 import paho.mqtt.client as mqtt
 
-from ...errors import RotorwatchError
 from ...selfstats import SelfStats
 from ...storage import StorageError
 from ...storage.spool import Record, Spool
-from .payloads import encode
 from .spool_lanes import LaneSplit, SpoolLanes
+from .unsent import UnsentLane, UnsentRecords
 
 log = logging.getLogger(__name__)
 
@@ -82,24 +80,32 @@ class OutboxStats:
     connects: int
     backlog_active: bool
     backlog_through_seq: int | None
+    unsent: int = 0  # records waiting in memory (queued or in flight), not in the spool
+    spilled: int = 0  # records written to the spool from memory
+    spills: int = 0  # spool transactions that wrote them
 
 
-class Outbox:
+class Outbox(UnsentLane):
     """Publish through ``client`` (a paho-mqtt 2.x ``Client`` with VERSION2 callbacks); see the module
     docstring. ``in_flight_window``, ``backlog_rate_per_s`` and ``live_reserve`` bound the spool's lanes;
     ``stats`` counts ``mqtt_messages_published`` and ``mqtt_publish_failures``; ``clock``: monotonic
-    seconds (for tests)."""
+    seconds (for tests); ``spool_write`` and ``memory_hold_s``: see :meth:`record_goes_to_spool`."""
 
     def __init__(self, client: mqtt.Client | None, *, spool: Spool | None = None, qos: int = 1,
                  in_flight_window: int = 20, backlog_rate_per_s: float = 200.0, live_reserve: int = 4,
                  max_queued_messages: int = 0, stats: SelfStats | None = None,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+                 clock: Callable[[], float] = time.monotonic, spool_write: str = "every_record",
+                 memory_hold_s: float = 2.0) -> None:
+        if spool_write not in ("every_record", "unsent"):
+            raise ValueError(f"spool_write = {spool_write!r}: must be every_record or unsent")
         self.client: mqtt.Client | None = None
         self.spool = spool
         self.qos = int(qos)
         self.lanes = SpoolLanes(spool, in_flight_window=in_flight_window, backlog_rate_per_s=backlog_rate_per_s,
                                 live_reserve=live_reserve, clock=clock) if spool is not None else None
         self.window = int(in_flight_window)
+        self._clock = clock
+        self.unsent = UnsentRecords(memory_hold_s) if spool is not None and spool_write == "unsent" else None
         self.max_queued = int(max_queued_messages)
         self._stats = stats
         self._events: queue.SimpleQueue = queue.SimpleQueue()
@@ -119,7 +125,7 @@ class Outbox:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._idle = threading.Condition()
-        self._n = dict(published=0, acked=0, rejected=0, held_over=0, connects=0)
+        self._n = dict(published=0, acked=0, rejected=0, held_over=0, connects=0, spilled=0, spills=0)
         self._last_error_log = 0.0
         self._last_refusal_log = 0.0
         if client is not None:
@@ -142,9 +148,12 @@ class Outbox:
 
     @classmethod
     def from_settings(cls, client: mqtt.Client | None, settings: Any, forwarding: Any, spool: Spool | None,
-                      **kwargs: Any) -> Outbox:
-        """Build from :class:`~rotorwatch.settings.service.MqttSettings` and
-        :class:`~rotorwatch.settings.storage.ForwardingSettings`."""
+                      spool_settings: Any = None, **kwargs: Any) -> Outbox:
+        """Build from :class:`~rotorwatch.settings.service.MqttSettings`,
+        :class:`~rotorwatch.settings.storage.ForwardingSettings` and ``SpoolSettings``."""
+        if spool_settings is not None:
+            kwargs.setdefault("spool_write", spool_settings.write)
+            kwargs.setdefault("memory_hold_s", spool_settings.memory_hold_s)
         return cls(client, spool=spool, qos=settings.qos, max_queued_messages=settings.max_queued_messages,
                    in_flight_window=forwarding.in_flight_window, backlog_rate_per_s=forwarding.backlog_rate_per_s,
                    live_reserve=forwarding.live_reserve, **kwargs)
@@ -179,26 +188,6 @@ class Outbox:
         else:
             self._refused(topic, "the in-memory queue is full (mqtt.max_queued_messages)")
         return room
-
-    def record_goes_to_spool(self) -> bool:
-        """Whether the next state, metrics record or event is written to the spool (else: memory)."""
-        return self.spool is not None
-
-    def publish_record(self, kind: str, topic: str, body: Mapping[str, Any], retain: bool = False) -> bool:
-        """A state, metrics record or event: into the spool (:meth:`record_goes_to_spool`), else into
-        memory."""
-        if self.spool is not None and self.record_goes_to_spool():
-            try:
-                self.spool.append(kind, topic, body, retain=retain, qos=self.qos)
-                self._published()
-                return True
-            except (RotorwatchError, OSError, ValueError) as e:
-                self._failed()
-                now = time.monotonic()
-                if now - self._last_error_log > 300.0:
-                    self._last_error_log = now
-                    log.error(f"publish spool write failed, sending directly: {e}")
-        return self.publish(topic, encode(dict(body)), retain=retain)
 
     def _room(self) -> bool:
         return not self.max_queued or len(self._queue) + len(self._memory_flight) < self.max_queued
@@ -245,13 +234,15 @@ class Outbox:
             if self._thread.is_alive():
                 log.warning("outbox thread did not stop within %.1f s", timeout_s)
             self._thread = None
+        if self.unsent is not None:  # a clean stop: what is unacknowledged waits in the spool
+            self._spill("stop")
 
     def wait_drained(self, timeout_s: float) -> bool:
         """Wait until the spool holds nothing (all acknowledged); False when ``timeout_s`` passed first."""
         if self.spool is None:
             return True
         spool = self.spool
-        return self._wait(lambda: spool.stats().depth == 0, timeout_s)
+        return self._wait(lambda: spool.stats().depth == 0 and not self.unsent, timeout_s)
 
     def wait_sent(self, timeout_s: float) -> bool:
         """Wait until every memory message was acknowledged (QoS 1) or handed over (QoS 0)."""
@@ -310,6 +301,8 @@ class Outbox:
                 self._handle_events(timeout_s)
                 if self._stop.is_set():
                     break
+                if self.unsent is not None and self.unsent.held_too_long(self._clock()):
+                    self._spill(f"records unacknowledged for {self.unsent.hold_s:g} s written to the spool")
                 if self._connected and self._gen == self._seen_gen:
                     self._send()
                 with self._idle:
@@ -355,6 +348,10 @@ class Outbox:
         with self._lock:
             msg = self._memory_flight.pop(mid, None)
             entry = self._record_flight.pop(mid, None) if msg is None else None
+            held = self.unsent.flight.pop(mid, None) if self.unsent is not None and entry is None else None
+        if held is not None:
+            self._unsent_done(held[0], refused, reason_code)
+            return
         if msg is not None:
             if refused:
                 self._n["rejected"] += 1
@@ -390,6 +387,8 @@ class Outbox:
             if connected and self._ever_connected:  # the broker may have lost the retained states
                 queued = {m.topic for m in self._queue if m.retain}
                 self._dirty.update((t, None) for t in self._retained if t not in queued)
+        if self.unsent is not None:  # unacknowledged records wait in the spool before the lanes split
+            self._spill("link down" if not connected else "link up")
         if self.lanes is not None:
             self.lanes.link_changed(connected)
         if not connected:
@@ -413,6 +412,8 @@ class Outbox:
                 return
         if self.lanes is not None:
             self.lanes.send(self._lane_counts(), self._hand_record)
+        if self.unsent is not None:
+            self._send_unsent()
 
     def _queue_dirty(self) -> None:
         with self._lock:
@@ -424,10 +425,15 @@ class Outbox:
 
     def _lane_counts(self) -> dict[str, int]:
         with self._lock:
-            counts: dict[str, int] = {}
-            for _, lane in self._record_flight.values():
-                counts[lane] = counts.get(lane, 0) + 1
-            return counts
+            return self._lane_counts_locked()
+
+    def _lane_counts_locked(self) -> dict[str, int]:
+        counts: dict[str, int] = {}
+        for _, lane in self._record_flight.values():
+            counts[lane] = counts.get(lane, 0) + 1
+        if self.unsent is not None and self.unsent.flight:
+            counts["live"] = counts.get("live", 0) + len(self.unsent.flight)
+        return counts
 
     def _hand_message(self, msg: _Message) -> bool:
         """Hand one memory message to paho; False when the round should stop (link change)."""
@@ -479,8 +485,10 @@ class Outbox:
         with self._lock:
             in_flight = len(self._record_flight) + len(self._memory_flight)
             queued = len(self._queue)
+            unsent = len(self.unsent) if self.unsent is not None else 0
         lanes = self.lanes
         return OutboxStats(connected=self._connected, in_flight=in_flight, queued=queued,
                            retain_downgraded=lanes.retain_downgraded if lanes is not None else 0,
                            backlog_active=lanes.backlog_active if lanes is not None else False,
-                           backlog_through_seq=lanes.backlog_through if lanes is not None else None, **self._n)
+                           backlog_through_seq=lanes.backlog_through if lanes is not None else None,
+                           unsent=unsent, **self._n)

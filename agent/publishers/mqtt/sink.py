@@ -162,7 +162,8 @@ class MqttSink(Publisher):
                              on_command=self._command_arrived,
                              on_message=speeds.offer if speeds is not None else None,
                              extra_topics=speeds.topics if speeds is not None else [],
-                             spool=spool, forwarding=config.storage.forwarding)
+                             spool=spool, forwarding=config.storage.forwarding,
+                             spool_settings=config.storage.spool)
         self.publisher = UpdatePublisher(self.link, config, stats=context.stats)
         self._last: dict[str, MachineUpdate] = {}
         self._restarting = False

@@ -76,8 +76,12 @@ class SpoolLanes:
     def link_changed(self, connected: bool) -> None:
         """On a connect the lanes split anew (records in flight stay so: paho sends them again)."""
         self._retained_sent.clear()
-        if not connected:
-            return
+        if connected:
+            self.split("link up")
+
+    def split(self, why: str) -> None:
+        """Split at ``spool.last_seq``: everything stored up to it is the backlog (at a connect, and when
+        records kept in memory were written to the spool while connected)."""
         last_seq = self.spool.last_seq
         try:
             depth = self.spool.stats().depth
@@ -87,8 +91,8 @@ class SpoolLanes:
         self.backlog_active = depth != 0
         self._tokens, self._tokens_at = self._burst, self._clock()
         self.lane_splits.append(LaneSplit(self._clock(), last_seq, depth))
-        log.info("outbox: link up, backlog of %d records through seq=%d at <= %.0f/s, live from seq=%d",
-                 depth, last_seq, self.backlog_rate_per_s, last_seq + 1)
+        log.info("outbox: %s, backlog of %d records through seq=%d at <= %.0f/s, live from seq=%d",
+                 why, depth, last_seq, self.backlog_rate_per_s, last_seq + 1)
 
     def send(self, in_flight: dict[str, int], hand: HandRecord) -> None:
         """Hand what the window and the backlog rate allow; ``in_flight``: records in flight per lane."""
@@ -116,6 +120,10 @@ class SpoolLanes:
             if not hand(rec, self._retain(rec), "backlog"):
                 return
             self._tokens -= 1.0
+
+    def note_retained_sent(self, topic: str, seq: int) -> None:
+        """A retained record sent from memory: older backlog records on its topic go unretained."""
+        self._retained_sent[topic] = max(seq, self._retained_sent.get(topic, 0))
 
     def _retain(self, rec: Record) -> bool:
         """A retained record older than one already sent or acknowledged on its topic goes unretained."""
