@@ -92,10 +92,19 @@ class Evidence(Publisher):
 
     def save(self, update: MachineUpdate, blocks_v: Blocks, machine: Machine, reason: str,
              detail: str) -> SnapshotInfo | None:
-        """Save one snapshot; returns its SnapshotInfo, or None after a (logged) failure."""
+        """Save one snapshot; returns its SnapshotInfo, or None after a (logged) failure. An on-request
+        snapshot the store refuses (its limit, or no room) raises the refusal: the command's reply
+        carries its message (the store logs the refusals once, with their count)."""
+        from ..storage.snapshots import SnapshotRefused
+
         try:
             return self.snapshots.save(update, calibrated(blocks_v, machine), reason=reason, machine=machine,
                                        config_hash=self._fingerprint, detail=detail)
+        except SnapshotRefused as e:
+            if reason == "command":
+                raise
+            self._failed(f"{reason} snapshot", e)
+            return None
         except (RotorwatchError, OSError, ValueError) as e:
             self._failed("snapshot save", e)
             return None

@@ -1,7 +1,10 @@
 """The command desk: commands from MQTT and the status page, carried out in the analysis loop.
 
 Commands arrive on other threads (paho's network thread, the status page's request threads) and are
-queued here (at most 64 waiting; a full queue refuses with a counted, rate-limited warning). The
+queued here (at most 64 waiting). A command that finds the queue full (a flood) is counted, not
+answered one by one: the analysis loop publishes one ``commands_dropped`` agent event per
+``DROP_SUMMARY_INTERVAL_S`` with the count dropped since the last one (and one at stop), so every
+command is either answered or counted in such an event. The
 analysis loop calls :meth:`CommandDesk.serve` every turn, which carries out at most 16 of them:
 parsing (:func:`~rotorwatch.service.commands.parse_command`), then ``reload``, ``acknowledge``,
 ``relearn`` or ``snapshot`` against the running machines (:class:`CommandTarget`). Each command gets
@@ -12,6 +15,7 @@ waits for it (bounded).
 
 from __future__ import annotations
 
+import json
 import logging
 import queue
 import threading
@@ -32,6 +36,8 @@ from .runtimes import MachineRuntime
 
 log = logging.getLogger(__name__)
 
+#: At most one ``commands_dropped`` event per this many seconds (monotonic) while commands are dropped.
+DROP_SUMMARY_INTERVAL_S = 10.0
 
 
 class CommandTarget(Protocol):
@@ -49,6 +55,8 @@ class CommandTarget(Protocol):
 
     def deliver_events(self, rt: MachineRuntime, events: list[AlarmEvent]) -> None: ...
 
+    def agent_event(self, kind: str, message: str, **detail: Any) -> None: ...
+
 
 @dataclass
 class _Request:
@@ -62,6 +70,17 @@ class _Request:
     reply: dict | None = None
 
 
+def _name_and_id(req: _Request) -> tuple[str | None, Any]:
+    """The command's name and request id for a reply without carrying it out (best effort on raw JSON)."""
+    if req.command is not None:
+        return req.command.name, req.command.request_id
+    try:
+        doc = json.loads(req.raw or b"")
+    except ValueError:
+        return None, None
+    return (doc.get("command"), doc.get("id")) if isinstance(doc, dict) else (None, None)
+
+
 class CommandDesk:
     def __init__(self, target: CommandTarget, stats: SelfStats, wake: threading.Event | None = None,
                  max_waiting: int = 64):
@@ -70,6 +89,11 @@ class CommandDesk:
         self._wake = wake or threading.Event()
         self._requests: queue.Queue[_Request] = queue.Queue(maxsize=max_waiting)
         self._limiter = RepeatLimiter(300.0)
+        self._max_waiting = max_waiting
+        self._drop_lock = threading.Lock()
+        self._dropped = 0  # since the last summary event
+        self._dropped_total = 0
+        self._summary_at = float("-inf")  # monotonic time of the last summary event
 
     # -- other threads ---------------------------------------------------------------------------
     def submit(self, payload: bytes, reply: Reply | None = None, origin: str = "mqtt") -> None:
@@ -77,11 +101,16 @@ class CommandDesk:
         try:
             self._requests.put_nowait(_Request(None, raw=payload, origin=origin, answer=reply))
             self._wake.set()
-        except queue.Full:
+        except queue.Full:  # counted; answered by the next commands_dropped event
             self.stats.commands.labels(result="rejected").inc()
+            with self._drop_lock:
+                self._dropped += 1
+                self._dropped_total += 1
             ok, held = self._limiter.allow("commands-full")
             if ok:
-                log.warning("command queue full; command dropped", extra=fields(repeats=held or None))
+                log.warning("command queue full; command dropped (counted in a commands_dropped event)",
+                            extra=fields(repeats=held or None))
+            self._wake.set()
 
     def call(self, cmd: Command, timeout_s: float = 10.0, origin: str = "status_page") -> str:
         """Queue ``cmd`` and wait for its reply (the status page's threads); its message, or a
@@ -112,14 +141,32 @@ class CommandDesk:
     # -- the analysis loop -------------------------------------------------------------------------
     def serve(self, limit: int = 16) -> int:
         """Carry out up to ``limit`` waiting commands; returns how many."""
-        for n in range(limit):
+        n = 0
+        while n < limit:
             try:
                 req = self._requests.get_nowait()
             except queue.Empty:
-                return n
+                break
             req.reply = self._execute(req)
             req.done.set()
-        return limit
+            n += 1
+        self.report_dropped()
+        return n
+
+    def report_dropped(self, force: bool = False) -> int:
+        """Publish one ``commands_dropped`` agent event with the count dropped since the last one, at most
+        once per ``DROP_SUMMARY_INTERVAL_S`` (``force``: now, at stop); returns the count reported."""
+        now = time.monotonic()
+        with self._drop_lock:
+            if not self._dropped or (not force and now - self._summary_at < DROP_SUMMARY_INTERVAL_S):
+                return 0
+            n, self._dropped, self._summary_at = self._dropped, 0, now
+            total = self._dropped_total
+        message = (f"{n} command(s) dropped unanswered: more than {self._max_waiting} were waiting "
+                   f"(at most one such event per {DROP_SUMMARY_INTERVAL_S:g} s)")
+        log.warning(message, extra=fields(dropped=n, dropped_total=total))
+        self.target.agent_event("commands_dropped", message, dropped=n, dropped_total=total)
+        return n
 
     def answer_pending(self, message: str) -> None:
         """Refuse whatever still waits (the daemon is stopping)."""
@@ -129,6 +176,10 @@ class CommandDesk:
             except queue.Empty:
                 return
             req.reply = {"ok": False, "message": message}
+            if req.answer is not None and self.target.config is not None:
+                name, rid = _name_and_id(req)
+                req.answer(command_result_payload(self.target.config.site.agent_id, time.time(), name, False,
+                                                  message, rid), None)
             req.done.set()
 
     def _execute(self, req: _Request) -> dict:
@@ -148,7 +199,9 @@ class CommandDesk:
         except RotorwatchError as e:  # the command was fine but could not be carried out
             assert cmd is not None
             self.stats.commands.labels(result="failed").inc()
-            log.warning(f"command {cmd.name} failed: {e}", extra=fields(origin=req.origin))
+            ok, held = self._limiter.allow(f"failed:{cmd.name}")  # a flood of refused snapshots: one line
+            if ok:
+                log.warning(f"command {cmd.name} failed: {e}", extra=fields(origin=req.origin, repeats=held or None))
             body = command_result_payload(agent, now, cmd.name, False, str(e), cmd.request_id)
         except CommandRejected as e:
             self.stats.commands.labels(result="rejected").inc()

@@ -248,6 +248,7 @@ class Daemon:
         self.notifier.stopping()
         self._stop_capture()  # the source first; the current update already finished (same thread)
         self.commands.answer_pending("the daemon is stopping")
+        self.commands.report_dropped(force=True)
         for rt in self.runtimes.values():
             close_pipeline(rt)
         if self.sinks is not None:
@@ -361,3 +362,8 @@ class Daemon:
     def deliver_events(self, rt: MachineRuntime, events: list[AlarmEvent]) -> None:
         if self.sinks is not None:
             self.sinks.on_events(events)
+
+    def agent_event(self, kind: str, message: str, **detail: Any) -> None:
+        """An event about the agent itself (``commands_dropped``), to every publisher."""
+        if self.sinks is not None:
+            self.sinks.on_agent_event(kind, message, time.time(), **detail)
