@@ -1,35 +1,27 @@
-"""The publish spool: a durable, bounded store-and-forward queue of everything the agent publishes.
+"""The publish spool: a durable, bounded store-and-forward queue of what the agent publishes.
 
-Every record (``state``, ``metrics`` or ``event``) is written to sqlite before anything is sent, and
-deleted only when the broker has acknowledged it (:meth:`Spool.ack`, called on PUBACK by the
-MQTT outbox). Each record gets
+A record (``state``, ``metrics`` or ``event``) is stored in sqlite (:meth:`Spool.append`, or
+:meth:`Spool.store` for records that waited in memory first, the outbox's default) and deleted when
+the broker has acknowledged it (:meth:`Spool.ack_many`, on PUBACK). Each record gets ``seq`` (per
+agent, strictly increasing, never reused: not after a restart, a delete, a drop or a ``kill -9``) and
+``ts`` (POSIX time from the injected clock), both added to JSON payloads with ``clock`` when the
+``clock_note`` has something to say about ``ts`` (``{"seq": 17, "ts": 1767225600.123, ...}``), so a
+consumer can discard duplicates and see gaps. Bytes payloads are stored as given.
 
-- ``seq``: a per-agent sequence number, strictly increasing, persisted in the same transaction as the
-  record, never reused (not after a restart, not after the record is deleted, not after a drop);
-- ``ts``: the POSIX time it was appended (from the injected clock).
-
-Both are added to JSON payloads (``{"seq": 17, "ts": 1767225600.123, ...}``), so a consumer can
-discard duplicates (same ``seq``) and see gaps. Bytes payloads are stored as given.
-
-Durability (``durability`` -> sqlite ``PRAGMA synchronous`` in WAL mode):
-
-- ``power_loss`` (default, ``FULL``): the WAL is fsynced at every commit, so an appended record survives
-  a power cut, the usual way an edge box dies. The agent appends a few records per update interval,
-  so the fsync per append costs little; acknowledgements are committed in batches (:meth:`ack_many`)
-  so draining a backlog does not fsync per message.
-- ``process_crash`` (``NORMAL``): commits survive a crash or ``kill -9`` of the agent (the WAL is in
-  the OS page cache) but the last commits before a power cut may be lost; fewer writes to flash.
+Durability (``durability`` -> sqlite ``PRAGMA synchronous`` in WAL mode): ``power_loss`` (default,
+``FULL``: the WAL is fsynced at every commit; a stored record survives a power cut) or ``process_crash``
+(``NORMAL``: commits survive a crash or ``kill -9``; the last ones before a power cut may be lost).
+Acknowledgements and records from memory are committed in batches.
 
 Threading: one sqlite connection behind a lock; every method may be called from any thread. No
 method blocks on the network. Only one process may open a spool (an ``flock`` on ``<path>.lock``).
+A file sqlite calls damaged is set aside (``spool.sqlite.damaged-<UTC>``, one warning) and the spool
+starts empty.
 
-Full policy (when appending would pass ``max_bytes`` or ``max_records``): see
+Full policy (when a record would pass ``max_bytes`` or ``max_records``): see
 :mod:`rotorwatch.storage.spool_full`; every drop is counted by reason in :meth:`stats` ``dropped``.
 Records the broker refuses or paho cannot send are deleted through :meth:`reject` (``broker_rejected``,
 ``unsendable``).
-
-Records may also wait in memory first (the outbox's default, ``storage.spool.write = "unsent"``):
-:meth:`new_record` gives them seq and ts, :meth:`store` writes a batch of them when they must wait.
 """
 
 from __future__ import annotations
@@ -95,7 +87,8 @@ class Spool:
 
     def __init__(self, path: str | Path, max_bytes: int = 64 * 1024 * 1024, max_records: int = 200_000,
                  *, durability: Literal["power_loss", "process_crash"] = "power_loss",
-                 clock: Callable[[], float] = time.time) -> None:
+                 clock: Callable[[], float] = time.time,
+                 clock_note: Callable[[float], str | None] | None = None) -> None:
         if max_bytes < 1024 or max_records < 2:
             raise ValueError(f"spool bounds max_bytes={max_bytes}, max_records={max_records}: too small")
         if durability not in _SYNCHRONOUS:
@@ -105,6 +98,7 @@ class Spool:
         self.max_records = int(max_records)
         self.durability = durability
         self._clock = clock
+        self._clock_note = clock_note  # ts -> the payload's "clock" flag (wallclock.ClockWatch), or None
         self._lock = threading.RLock()
         self._in_flight: dict[int, int] = {}  # seq -> mid
         self._listeners: list[Callable[[int], None]] = []
@@ -267,7 +261,7 @@ class Spool:
         with self._lock:
             seq = self._last_seq + 1
             ts_s = float(self._clock())
-            data = encode_payload(payload, seq, ts_s)
+            data = encode_payload(payload, seq, ts_s, self._note(ts_s))
             size = len(topic.encode("utf-8")) + len(data) + RECORD_OVERHEAD_BYTES
             with self._write("append") as db:
                 if size > self.max_bytes:
@@ -301,7 +295,7 @@ class Spool:
         with self._lock:
             seq = self._last_seq + 1
             ts_s = float(self._clock())
-            data = encode_payload(payload, seq, ts_s)
+            data = encode_payload(payload, seq, ts_s, self._note(ts_s))
             if seq > self._reserved:
                 with self._write("seq reservation") as db:
                     self._set_meta(db, "last_seq", seq + SEQ_BLOCK - 1)
@@ -357,6 +351,9 @@ class Spool:
         with self._lock:
             self._dropped[reason] += 1
             self._dirty_dropped = True
+
+    def _note(self, ts_s: float) -> str | None:
+        return self._clock_note(ts_s) if self._clock_note is not None else None
 
     def _flush_dirty(self, db: sqlite3.Connection) -> None:
         for topic, seq in self._dirty_retained.items():

@@ -36,16 +36,17 @@ def _finite_or_none(obj: Any) -> Any:
     return obj
 
 
-def encode_payload(payload: Mapping[str, Any] | bytes, seq: int, ts_s: float) -> bytes:
-    """The bytes that go on the wire: JSON objects get ``seq`` and ``ts`` first, bytes stay as given."""
+def encode_payload(payload: Mapping[str, Any] | bytes, seq: int, ts_s: float, clock: str | None = None) -> bytes:
+    """The bytes that go on the wire: JSON objects get ``seq`` and ``ts`` first (and ``clock`` when
+    there is something to say about ``ts``: ``unsynchronized``, ``stepped``), bytes stay as given."""
     if isinstance(payload, (bytes, bytearray, memoryview)):
         return bytes(payload)
     if not isinstance(payload, Mapping):
         raise TypeError(f"payload must be a dict or bytes, not {type(payload).__name__}")
-    clash = [k for k in ("seq", "ts") if k in payload]
+    clash = [k for k in ("seq", "ts", "clock") if k in payload]
     if clash:
-        raise ValueError(f"payload keys {clash} are reserved: the spool adds seq and ts")
-    doc = {"seq": seq, "ts": round(ts_s, 3), **payload}
+        raise ValueError(f"payload keys {clash} are reserved: the spool adds seq, ts and clock")
+    doc = {"seq": seq, "ts": round(ts_s, 3), **({"clock": clock} if clock else {}), **payload}
     try:
         text = json.dumps(doc, separators=(",", ":"), allow_nan=False, default=_json_default)
     except ValueError:

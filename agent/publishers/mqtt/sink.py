@@ -25,6 +25,7 @@ from ...errors import RotorwatchError
 from ...selfstats import SelfStats
 from ...settings.models import Config, Machine
 from ...storage.spool import Spool
+from ...storage.wallclock import ClockWatch
 from ..base import Blocks, Publisher, SinkContext, changed
 from . import payloads
 from .discovery import discovery_messages
@@ -175,7 +176,7 @@ class MqttSink(Publisher):
             return None
         spool = None
         if config.mqtt.delivery == "spool":  # StorageError (one line) if it cannot be opened
-            spool = Spool.in_state_dir(context.state_dir, config.storage.spool)
+            spool = Spool.in_state_dir(context.state_dir, config.storage.spool, clock_note=ClockWatch())
         return cls(config, context, spool)
 
     def start(self) -> None:

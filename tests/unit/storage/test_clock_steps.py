@@ -67,3 +67,36 @@ def test_snapshots_record_whether_the_clock_was_synchronised(tmp_path):
     doc = store.load(save_one(store).id)
     assert doc["clock_synchronized"] in (True, False, None) and "clock_synchronized" in doc
     assert doc["seq"] == 1
+
+
+def test_published_records_say_when_the_clock_stepped_or_is_unsynchronised(tmp_path, caplog):
+    """Wall and monotonic clocks injected: a step of a year forward, then a day back; the spool's
+    records carry "clock": "stepped" for STEP_FLAG_S after each, "unsynchronized" while the kernel says
+    so, nothing when synchronised; seq keeps their order whatever ts says."""
+    import json
+
+    from rotorwatch.storage.spool import Spool
+    from rotorwatch.storage.wallclock import STEP_FLAG_S, ClockWatch
+
+    mono = [100.0]
+    wall = [T0]
+    synced = [True]
+    watch = ClockWatch(monotonic=lambda: mono[0], sync=lambda m: synced[0])
+    seen = []
+    with Spool(tmp_path / "s.sqlite", clock=lambda: wall[0], clock_note=watch) as spool:
+        def tick(dt_s: float, step_s: float = 0.0) -> None:
+            mono[0] += dt_s
+            wall[0] += dt_s + step_s
+            rec = spool.new_record("metrics", "t/m", {"v": 1})
+            seen.append((rec.seq, json.loads(rec.payload).get("clock")))
+
+        tick(1.0)
+        tick(1.0, step_s=YEAR_S)  # NTP's first sync on a box that booted a year behind
+        tick(STEP_FLAG_S - 2.0)
+        tick(3.0)  # flag over
+        tick(1.0, step_s=-86400.0)
+        synced[0] = False
+        tick(STEP_FLAG_S + 1.0)
+    assert seen == [(1, None), (2, "stepped"), (3, "stepped"), (4, None), (5, "stepped"), (6, "unsynchronized")]
+    assert watch.steps == 2
+    assert sum("wall clock stepped" in r.getMessage() for r in caplog.records) == 2
