@@ -235,9 +235,21 @@ class Spool:
                 self._load()  # the counters in memory may have moved with the rolled-back work
             except sqlite3.Error:
                 pass
+            if isinstance(e, sqlite3.Error) and is_corruption(e):  # found damaged while running
+                self._start_over(e)
             if isinstance(e, sqlite3.Error):
                 raise StorageError(f"{self.path}: spool {what} failed: {e}") from e
             raise
+
+    def _start_over(self, error: sqlite3.Error) -> None:
+        """Set the damaged file aside (one warning) and go on with an empty one; seq carries on."""
+        last = max(self._last_seq, self._reserved)
+        self._close_quietly()
+        self.set_aside_as = set_aside(self.path, error, SQLITE_COMPANIONS)
+        self._db = self._open()
+        self._db.execute("INSERT INTO meta (key, value) VALUES ('last_seq', ?)", (last,))
+        self._in_flight.clear()
+        self._load()
 
     def add_listener(self, callback: Callable[[int], None]) -> None:
         """Call ``callback(seq)`` after each append (outside the spool's lock; keep it quick)."""
@@ -251,34 +263,16 @@ class Spool:
     # -- writing ------------------------------------------------------------------------------
     def append(self, kind: str, topic: str, payload: Mapping[str, Any] | bytes, retain: bool = False,
                qos: int = 1) -> int:
-        """Store one record durably and return its seq.
-
-        ``kind`` is ``state``, ``metrics`` or ``event``; a dict ``payload`` is encoded as JSON with
-        ``seq`` and ``ts`` added (non-finite numbers become null). Raises ValueError for a bad kind,
-        topic, qos or payload, StorageError when the disk write fails.
-        """
+        """Store one record durably and return its seq. ``kind``: state, metrics or event; a dict payload
+        is encoded as JSON with seq and ts added (non-finite numbers become null). Raises ValueError for
+        a bad kind, topic, qos or payload, StorageError when the disk write fails."""
         check_record(kind, topic, qos)
         with self._lock:
             seq = self._last_seq + 1
             ts_s = float(self._clock())
-            data = encode_payload(payload, seq, ts_s, self._note(ts_s))
-            size = len(topic.encode("utf-8")) + len(data) + RECORD_OVERHEAD_BYTES
-            with self._write("append") as db:
-                if size > self.max_bytes:
-                    self._count_drop(db, "oversize", 1)
-                    log.warning("spool record too large, not stored seq=%d topic=%r size_bytes=%d max_bytes=%d",
-                                seq, topic, size, self.max_bytes)
-                else:
-                    if self._bytes + size > self.max_bytes or self._count + 1 > self.max_records:
-                        self._make_room(db, size)
-                    db.execute("INSERT INTO records (seq, ts_s, kind, topic, payload, qos, retain, size_bytes)"
-                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                               (seq, ts_s, kind, topic, data, qos, int(bool(retain)), size))
-                self._set_meta(db, "last_seq", max(seq, self._reserved))
+            rec = Record(seq, ts_s, kind, topic, encode_payload(payload, seq, ts_s, self._note(ts_s)), qos, bool(retain))
+            self._store([rec], last_seq=max(seq, self._reserved))
             self._last_seq = seq
-            if size <= self.max_bytes:
-                self._count += 1
-                self._bytes += size
         for callback in list(self._listeners):
             callback(seq)
         return seq
@@ -286,11 +280,9 @@ class Spool:
     def new_record(self, kind: str, topic: str, payload: Mapping[str, Any] | bytes, retain: bool = False,
                    qos: int = 1) -> Record:
         """Give the next seq and ts to a record that waits in memory (not stored; see :meth:`store`).
-
-        Seqs are reserved on disk ``SEQ_BLOCK`` at a time (one small commit per block), so a seq is
-        never reused, not even after a ``kill -9`` or a power cut; an unclean stop leaves the rest of
-        the block unused (a gap in ``seq`` that is no lost record). Raises like :meth:`append`.
-        """
+        Seqs are reserved on disk ``SEQ_BLOCK`` at a time (one commit per block), so a seq is never reused,
+        not even after a ``kill -9`` or a power cut, which leaves the rest of the block unused (a gap that
+        is no lost record). Raises like :meth:`append`."""
         check_record(kind, topic, qos)
         with self._lock:
             seq = self._last_seq + 1
@@ -321,13 +313,15 @@ class Spool:
             callback(records[-1].seq)
         return len(records)
 
-    def _store(self, records: list[Record]) -> None:
+    def _store(self, records: list[Record], last_seq: int | None = None) -> None:
         with self._write("store") as db:
             for rec in records:
                 size = len(rec.topic.encode("utf-8")) + len(rec.payload) + RECORD_OVERHEAD_BYTES
                 if size > self.max_bytes:
                     self._in_flight.pop(rec.seq, None)
                     self._count_drop(db, "oversize", 1)
+                    log.warning("spool record too large, not stored seq=%d topic=%r size_bytes=%d max_bytes=%d",
+                                rec.seq, rec.topic, size, self.max_bytes)
                     continue
                 if self._bytes + size > self.max_bytes or self._count + 1 > self.max_records:
                     self._make_room(db, size)
@@ -337,17 +331,18 @@ class Spool:
                 if cur.rowcount == 1:
                     self._count += 1
                     self._bytes += size
+            if last_seq is not None:
+                self._set_meta(db, "last_seq", last_seq)
 
     def note_delivered(self, rec: Record) -> None:
-        """A record that waited in memory was acknowledged: its retained seq counts (written with the
-        next transaction or at close)."""
+        """A record from memory was acknowledged: its retained seq counts (written with the next commit)."""
         if rec.retain:
             with self._lock:
                 if rec.seq > self._retained.get(rec.topic, 0):
                     self._retained[rec.topic] = self._dirty_retained[rec.topic] = rec.seq
 
     def note_dropped(self, reason: str) -> None:
-        """A record that waited in memory was refused or unsendable: counted (written later)."""
+        """A record from memory was refused or unsendable: counted (written with the next commit)."""
         with self._lock:
             self._dropped[reason] += 1
             self._dirty_dropped = True
@@ -417,11 +412,8 @@ class Spool:
             return dict(self._in_flight)
 
     def requeue_in_flight(self) -> int:
-        """Make every record in flight pending again (on disconnect); returns how many.
-
-        A restart needs no call: in-flight marks live in memory only, so every stored record is
-        pending when the spool is opened.
-        """
+        """Make every record in flight pending again (a new client); returns how many. In-flight marks
+        live in memory only: after a restart every stored record is pending."""
         with self._lock:
             n = len(self._in_flight)
             self._in_flight.clear()

@@ -5,7 +5,8 @@ test imitates that without pulling a plug: ``rotorwatch run`` writes its state f
 publish spool with no broker reachable, baselines learning, snapshots on every sensor fault); at
 random instants the folder is copied file by file (so the copy's files are from slightly different
 moments, as after a cut), and the copy's most recently written file and one other file are truncated
-at random lengths (the spool's files are copied as they are, not truncated: see the comment below).
+at random lengths; in every other copy ``spool.sqlite`` is also cut, at a random length or (every
+fourth copy) inside its first page (a damaged spool is set aside like the trend store).
 Then a daemon is started on each copy (``--max-updates``) and must:
 
 - exit 0 after its updates (it started and kept monitoring),
@@ -80,23 +81,28 @@ def test_every_torn_copy_of_the_state_folder_starts(tmp_path):
     state = tmp_path / "state"
     writer = DaemonProcess(path, "--duration", "60")
     copies: list[tuple[Path, list[str]]] = []
+    n_torn = 0
     try:
         assert writer.wait_log(r"snapshot saved", 40), writer.describe()
         for k in range(COPIES):
             time.sleep(float(rng.uniform(0.2, 1.5)))
             dst = tmp_path / f"copy-{k}"
-            # the spool is left whole: setting a damaged spool aside belongs to the outbox (its rewrite is
-            # under way); today a damaged spool.sqlite stops the start with a one-line error naming it
-            files = [f for f in copy_state(state, dst) if not f.name.startswith("spool.sqlite")]
+            files = copy_state(state, dst)
             picked = files[:TRUNCATED_PER_COPY - 1]
             picked.append(files[int(rng.integers(len(picked), len(files)))])  # and one older file
+            spool = dst / "spool.sqlite"
+            if k % 2 == 1 and spool.exists() and spool not in picked:
+                picked.append(spool)
             torn = []
             for f in picked:
                 size = f.stat().st_size
-                cut = int(rng.integers(0, size + 1))
+                # the spool cut inside its first page in every fourth copy (a header sqlite cannot read)
+                first_page = f == spool and k % 4 == 1
+                cut = int(rng.integers(1, min(size, 4096))) if first_page else int(rng.integers(0, size + 1))
                 os.truncate(f, cut)
                 torn.append(f"{f.relative_to(dst)} {size}->{cut}")
             copies.append((dst, torn))
+            n_torn += len(torn)
     finally:
         writer.stop()
     assert "Traceback" not in writer.log(), writer.log()
@@ -116,6 +122,7 @@ def test_every_torn_copy_of_the_state_folder_starts(tmp_path):
         assert len({m.group(1) for m in named if m}) == len(lines), lines  # one line per file
         needed.update(kinds or ["none"])
         print(f"{dst.name}: torn {torn}; recovery: {kinds or 'none'}")
-    print(f"crash consistency: {len(copies)} copies, {len(copies) * TRUNCATED_PER_COPY} files truncated; "
+    print(f"crash consistency: {len(copies)} copies, {n_torn} files truncated "
+          f"({sum(1 for _, t in copies if any(x.startswith('spool.sqlite ') for x in t))} copies with spool.sqlite cut); "
           f"recoveries needed: {dict(needed)}")
     assert len(copies) == COPIES
