@@ -195,7 +195,7 @@ def test_broker_kill_and_daemon_kill9_lose_no_record(make_mosquitto_broker, tmp_
         kinds[kind] = kinds.get(kind, 0) + 1
     print(f"\n[daemon outage, write={write}] produced {st.last_seq} records (spool last_seq; dropped by bounds "
           f"{st.dropped_total}, left {st.depth}); received {len(seqs)} messages = {len(set(seqs))} distinct "
-          f"({kinds}); lost {len(missing)}; duplicates {len(seqs) - len(set(seqs))} (seqs {dup_seqs[:12]}"
+          f"({kinds}); missing {len(missing)}; duplicates {len(seqs) - len(set(seqs))} (seqs {dup_seqs[:12]}"
           f"{'...' if len(dup_seqs) > 12 else ''})")
     print(f"[daemon outage] broker killed {fig['outage_s']:.1f} s with {fig['outage_backlog']:.0f} records "
           f"spooled; kill -9 #1 with the broker away: {at_kill1.depth} records waiting, last seq "

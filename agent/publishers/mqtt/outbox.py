@@ -302,7 +302,8 @@ class Outbox(UnsentLane):
                 if self._stop.is_set():
                     break
                 if self.unsent is not None and self.unsent.held_too_long(self._clock()):
-                    self._spill(f"records unacknowledged for {self.unsent.hold_s:g} s written to the spool")
+                    self._spill(f"records unacknowledged for {self.unsent.hold_s:g} s written to the spool",
+                                resplit=self._connected)
                 if self._connected and self._gen == self._seen_gen:
                     self._send()
                 with self._idle:

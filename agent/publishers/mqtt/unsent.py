@@ -159,9 +159,9 @@ class UnsentLane:
             self._n["acked"] += 1
             self.spool.note_delivered(rec)
 
-    def _spill(self, why: str) -> None:
+    def _spill(self, why: str, resplit: bool = False) -> None:
         """Write every unacknowledged record kept in memory to the spool in one transaction (those in
-        flight keep their ids: their PUBACKs delete them); while connected the lanes split after it."""
+        flight keep their ids: their PUBACKs delete them); ``resplit`` (connected): the lanes split after it."""
         assert self.unsent is not None and self.spool is not None
         with self._lock:
             records, marks = self.unsent.take_all()
@@ -180,7 +180,7 @@ class UnsentLane:
                 self._record_flight[mid] = (seq, "backlog")
             self._n["spilled"] += len(records)
             self._n["spills"] += 1
-            if why != "stop" and self._connected and self.lanes is not None:
+            if resplit and self.lanes is not None:  # connected: what was written is now the backlog
                 self.lanes.split(why)
 
     def _send_unsent(self) -> None:
