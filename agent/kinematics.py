@@ -20,8 +20,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from .settings.models import Band, Bearing, Machine
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from .settings.models import Band, Bearing, Machine
+
 
 INCH_MM = 25.4
 DEFECTS = ("bpfo", "bpfi", "bsf", "ftf")

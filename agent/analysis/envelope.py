@@ -57,9 +57,9 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
 
 from ..errors import InputError
+from .lazy import scipy
 from .ordertrack import ShaftAngle, resample
 from .plan import EDGE_TAPER_FRACTION, EnvelopePlan
 from .result import BandReview

@@ -141,14 +141,12 @@ class SesReader:
         hi = min(int(math.floor(hi_hz / self.df)), self.n - 2)
         if hi < lo:
             lo = hi = min(max(int(round(0.5 * (lo_hz + hi_hz) / self.df)), 1), self.n - 2)
-        seg = self.a[lo - 1: hi + 2]
-        mid = seg[1:-1]
-        local = (mid >= seg[:-2]) & (mid >= seg[2:])  # a bin rising out of the window is another line's skirt
-        idx = np.flatnonzero(local)
-        if not idx.size:
-            return None
-        for j in idx[np.argsort(mid[idx], kind="stable")[::-1]]:
-            i = lo + int(j)
+        # a bin rising out of the window is another line's skirt; a few lines at a time, so plain Python
+        seg = self.a[lo - 1: hi + 2].tolist()
+        local = [j for j in range(1, len(seg) - 1) if seg[j] >= seg[j - 1] and seg[j] >= seg[j + 1]]
+        # highest first; equal heights the later first (a stable ascending sort, reversed)
+        for j in reversed(sorted(local, key=seg.__getitem__)):
+            i = lo + j - 1
             hz = self._refine(i)
             if allowed is None or allowed(hz):
                 return LineCheck(found_hz=hz, peak=float(self.a[i]), floor=self.floor(hz, floor_half_width_hz))

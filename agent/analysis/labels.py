@@ -21,11 +21,14 @@ frequency, at least two lines of the spectrum); otherwise it is left unnamed.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .. import kinematics
-from ..settings.models import Machine
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ..settings.models import Machine
 
 DEFECT_HARMONICS = {"BPFO": 4, "BPFI": 4, "BSF": 8, "FTF": 4}
 

@@ -16,11 +16,14 @@ Two kinds, both per bearing and point (tolerance and harmonic count are the poin
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from ..settings.models import Machine
 from .findings import ELECTRICAL_TOLERANCE, EXPLAINED_LINES
 from .labels import harmonic, twice_line_frequency
 from .plan import DefectPlan, defect_plans
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ..settings.models import Machine
 
 
 @dataclass(frozen=True)

@@ -23,15 +23,18 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, cast
 
 import numpy as np
 
 from .. import kinematics
 from ..errors import InputError
-from ..settings.models import Analysis, Band, FeatureBand, Machine, Point  # noqa: F401 (Band: BandPlan field type)
 from ..settings.quantities import quantity
 from .diagnosis import top_hz as diagnosis_top_hz
 from .spectrum import hann
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ..settings.models import Analysis, Band, FeatureBand, Machine, Point
 
 # Rolling-element defects the findings look for; BSF is searched both at BSF and at 2 x BSF.
 DEFECT_NAMES = ("bpfo", "bpfi", "bsf", "ftf")
@@ -168,9 +171,11 @@ def defect_plans(machine: Machine, point: Point) -> tuple[DefectPlan, ...]:
         mult = kinematics.bearing_multiples(b).as_dict()
         for name in DEFECT_NAMES:
             tol_pct, harmonics = DEFAULT_DEFECT_TOLERANCE_PCT, DEFAULT_DEFECT_HARMONICS
-            for band in machine.bands_for(point.id):
-                if (isinstance(band, FeatureBand) and band.feature == name and band.bearing == b.id
-                        and quantity(band.quantity).demodulated):
+            for any_band in machine.bands_for(point.id):
+                if any_band.kind != "feature":  # (by its tag: the analysis does not import the band models)
+                    continue
+                band = cast("FeatureBand", any_band)
+                if band.feature == name and band.bearing == b.id and quantity(band.quantity).demodulated:
                     tol_pct, harmonics = band.tolerance_pct, max(band.harmonics, 2)
                     break
             out.append(DefectPlan(b.id, name, mult[name], tol_pct / 100.0, harmonics))

@@ -21,14 +21,15 @@ the point's baselines). It is not safe to share one analyzer between threads.
 from __future__ import annotations
 
 import logging
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..errors import InputError
-from ..settings.models import Machine, Point
 from ..settings.quantities import SPECTRA, SPECTRUM_UNITS
 from . import bands as band_mod
 from . import diagnosis, ordertrack, running_speed, severity, tachphase
+from .diagnosis.lines import lines_read
 from .envelope import BlockSpectrum, EnvelopeKernel, EnvelopeOutput
 from .findings import assess
 from .indicators import waveform
@@ -39,6 +40,9 @@ from .running_speed import SpeedReading
 from .spectrum import WelchKernel
 from .speed import N_HARMONICS, estimate_speed
 from .velocity import velocity_line_rms
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ..settings.models import Machine, Point
 
 log = logging.getLogger(__name__)
 
@@ -131,10 +135,19 @@ class PointAnalyzer:
         def lines(n: NarrowSpectrum) -> diagnosis.VelocityLines:
             return diagnosis.VelocityLines(n.accel_ms, n.df_hz, n.electrical)
 
-        def halves():
-            half = x0.size // 2
-            return tuple(lines(self._narrow.spectrum(self._envelope.block_spectrum(part - part.mean())))
-                         for part in (x0[:half], x0[half: 2 * half]))
+        memo: dict[str, tuple] = {}
+
+        def halves(top_hz: float):
+            """The halves' lines up to those a line at ``top_hz`` reads (the same values as all of them); their
+            transforms once per window (a rule per shaft may ask)."""
+            if "spectra" not in memo:
+                half = x0.size // 2
+                memo["spectra"] = tuple(self._envelope.block_spectrum(part - part.mean())
+                                        for part in (x0[:half], x0[half: 2 * half]))
+            need = lines_read(top_hz, memo["spectra"][0].df_hz)
+            if "lines" not in memo or memo["lines"][0].n < need:
+                memo["lines"] = tuple(self._narrow.lines_upto(bs, need) for bs in memo["spectra"])
+            return memo["lines"]
 
         ctx = diagnosis.Context(self.plan.machine, self.plan.point, lines(narrow), shaft_hz, source, overall_mm_s,
                                 halves)

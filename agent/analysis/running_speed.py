@@ -22,15 +22,18 @@ import math
 import statistics
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..errors import InputError
-from ..settings.models import Speed
 from . import ordertrack
 from .ordertrack import ShaftAngle
 from .plan import SpeedPlan
 from .speed import SpeedEstimate
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ..settings.models import Speed
 
 log = logging.getLogger(__name__)
 

@@ -26,10 +26,10 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
 
 from ..errors import InputError
+from .lazy import scipy
 
 
 def hann(n: int) -> np.ndarray:

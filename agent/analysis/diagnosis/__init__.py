@@ -16,8 +16,8 @@ after every point was analysed (misalignment against the axial points' content).
 from __future__ import annotations
 
 import dataclasses
+from typing import TYPE_CHECKING
 
-from ...settings.models import Machine
 from ..result import EvidenceLine, Finding, PointResult
 from . import drive
 from .base import Context
@@ -26,6 +26,9 @@ from .electrical import electrical_findings
 from .flow import BLADE_HARMONICS, flow_findings
 from .lines import VelocityLines
 from .shaft import SERIES_ORDERS, orders, shaft_findings
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ...settings.models import Machine
 
 __all__ = ["Context", "VelocityLines", "across_points", "diagnose", "top_hz"]
 

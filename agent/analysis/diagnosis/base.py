@@ -13,11 +13,14 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from ...settings.models import Machine, Point
 from ..result import Finding
 from ..severity import boundaries
 from .lines import Line, VelocityLines, rss
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ...settings.models import Machine, Point
 
 
 @dataclass(frozen=True)
@@ -43,8 +46,8 @@ class Context:
     rpm_source: str
     overall_mm_s: float
     # the two halves of the window, read the same way (for the rules that ask whether a line is steady);
-    # computed on demand
-    halves: Callable[[], tuple[VelocityLines, VelocityLines] | None] | None = None
+    # computed on demand, holding the lines ``line(label, hz)`` reads for hz up to the argument (Hz)
+    halves: Callable[[float], tuple[VelocityLines, VelocityLines] | None] | None = None
 
     @property
     def significant_mm_s(self) -> float:

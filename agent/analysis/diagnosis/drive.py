@@ -10,11 +10,14 @@ Girdhar 2004, ch. 7 on belts and gears; common practice).
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
-from ...settings.models import Drive, Machine
 from ..result import Finding
 from .base import Context, Shaft, confidence, finding, mm_s
 from .lines import Line, rss
+
+if TYPE_CHECKING:  # the settings models (pydantic) are not imported by the analysis itself
+    from ...settings.models import Drive, Machine
 
 BELT_HARMONICS = (1, 2, 3, 4)
 BELT_MIN_LINES = 2  # two of belt pass x1..x4 stand out (common practice: 2x belt pass is often the highest)

@@ -50,21 +50,45 @@ class Line:
                             self.rms_mm_s, "mm/s", self.ratio)
 
 
+_WEIGHTS: dict[tuple[int, float], np.ndarray] = {}  # velocity weights per (lines, df): built once per window shape
+
+
+def _velocity_weight(n: int, df: float) -> np.ndarray:
+    """(1000 / (2 pi f))^2 on lines 0 .. n - 1, 0 below the cut-off (read only; shared between windows)."""
+    w = _WEIGHTS.get((n, df))
+    if w is None:
+        f = np.arange(n) * df
+        with np.errstate(divide="ignore"):
+            w = (1000.0 / (2.0 * np.pi * f)) ** 2
+        w[f < max(MIN_VELOCITY_HZ, 4 * df)] = 0.0
+        w.flags.writeable = False
+        if len(_WEIGHTS) > 16:
+            _WEIGHTS.clear()
+        _WEIGHTS[(n, df)] = w
+    return w
+
+
+def _median(seg: np.ndarray) -> float:
+    """``np.median`` of a short 1-D array without NaN (the same value: the middle element, or the mean of the
+    two middle ones), by one partition: np.median's own checks cost several times the work here."""
+    n = seg.size
+    k = n // 2
+    if n % 2:
+        return float(np.partition(seg, k)[k])
+    part = np.partition(seg, (k - 1, k))
+    return float((part[k - 1] + part[k]) / 2)
+
+
 class VelocityLines:
     """Velocity lines of one window: ``accel_ms`` is the acceleration mean square per line ((m/s^2)^2)."""
 
     def __init__(self, accel_ms: np.ndarray, df_hz: float, electrical: np.ndarray | None = None):
         self.df = float(df_hz)
         n = accel_ms.size
-        f = np.arange(n) * self.df
-        cutoff = max(MIN_VELOCITY_HZ, 4 * self.df)
-        with np.errstate(divide="ignore"):
-            w = (1000.0 / (2.0 * np.pi * f)) ** 2
-        w[f < cutoff] = 0.0
-        self.ms = np.asarray(accel_ms, dtype=float) * w  # (mm/s)^2 per line
+        self.ms = np.asarray(accel_ms, dtype=float) * _velocity_weight(n, self.df)  # (mm/s)^2 per line
         self.n = n
         self.electrical = electrical
-        self.cutoff_hz = cutoff
+        self.cutoff_hz = max(MIN_VELOCITY_HZ, 4 * self.df)
 
     def covers(self, hz: float) -> bool:
         return self.cutoff_hz <= hz and hz / self.df < self.n - LOBE_LINES - 1
@@ -73,7 +97,7 @@ class VelocityLines:
         half = max(FLOOR_MIN_LINES, int(FLOOR_FRACTION * i))
         lo, hi = max(i - half, 1), min(i + half + 1, self.n)
         seg = self.ms[lo:hi]
-        return float(np.median(seg)) * (2 * LOBE_LINES + 1) if seg.size else 0.0
+        return _median(seg) * (2 * LOBE_LINES + 1) if seg.size else 0.0
 
     def power_at(self, i: int) -> float:
         lo, hi = max(i - LOBE_LINES, 0), min(i + LOBE_LINES + 1, self.n)
@@ -95,12 +119,10 @@ class VelocityLines:
         hi = min(int(math.floor((hz + tol) / self.df)), self.n - 2)
         if hi < lo:
             lo = hi = int(round(hz / self.df))
-        seg = self.ms[lo - 1:hi + 2]
-        mid = seg[1:-1]
-        local = np.flatnonzero((mid >= seg[:-2]) & (mid >= seg[2:]))  # a bin rising out of the window is a skirt
-        if not local.size:
+        i = _highest_local_max(self.ms[lo - 1:hi + 2].tolist())  # a bin rising out of the window is a skirt
+        if i < 0:
             return Line(label, hz, hz, 0.0, 0.0)
-        i = lo + int(local[np.argmax(mid[local])])
+        i += lo
         power, floor = self.power_at(i), self._floor(i)
         ratio = math.sqrt(power / floor) if floor > 0 else (math.inf if power > 0 else 0.0)
         return Line(label, hz, i * self.df, math.sqrt(power), ratio)
@@ -121,6 +143,25 @@ class VelocityLines:
             return 0.0, 0.0
         lobes = np.convolve(seg, np.ones(2 * LOBE_LINES + 1), mode="same")
         return total, float(lobes.max()) / total
+
+
+def lines_read(hz: float, df_hz: float) -> int:
+    """How many lines (from 0) :meth:`VelocityLines.line` reads for a line at ``hz`` with the default search
+    window: a :class:`VelocityLines` holding at least these (or all of a window's) answers as a longer one."""
+    tol = max(SEARCH_MIN_LINES * df_hz, SEARCH_FRACTION * hz)
+    hi = max(int(math.floor((hz + tol) / df_hz)), int(round(hz / df_hz)), 1)
+    return hi + max(FLOOR_MIN_LINES, int(FLOOR_FRACTION * hi)) + LOBE_LINES + 4
+
+
+def _highest_local_max(seg: list[float]) -> int:
+    """Index (into ``seg[1:-1]``) of the first of the highest of its local maxima (>= both neighbours), or -1.
+    A few lines at a time: plain Python over a list beats numpy's per-call overhead."""
+    best, best_v = -1, 0.0
+    for j in range(1, len(seg) - 1):
+        v = seg[j]
+        if v >= seg[j - 1] and v >= seg[j + 1] and (best < 0 or v > best_v):
+            best, best_v = j - 1, v
+    return best
 
 
 def rss(lines: list[Line] | tuple[Line, ...]) -> float:

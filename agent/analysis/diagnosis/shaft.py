@@ -32,7 +32,7 @@ def orders(v: VelocityLines, shaft: Shaft, ks) -> list[Line]:
 
 def _steady(ctx: Context, shaft: Shaft) -> float | None:
     """Relative change of 1x between the window's halves, or None when not known."""
-    halves = ctx.halves() if ctx.halves is not None else None
+    halves = ctx.halves(shaft.hz) if ctx.halves is not None else None
     if halves is None:
         return None
     a, b = (h.line("1x", shaft.hz).rms_mm_s for h in halves)
