@@ -21,6 +21,7 @@ the point's baselines). It is not safe to share one analyzer between threads.
 from __future__ import annotations
 
 import logging
+import math
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -77,8 +78,10 @@ class PointAnalyzer:
                 f"{p.fmax_hz:g} Hz and {p.envelope.lines} envelope lines up to {p.envelope.fmax_hz:g} Hz need at "
                 f"least {p.min_samples} samples ({p.min_samples / p.fs_hz:.3g} s at {p.fs_hz:g} Hz)"
             )
-        if not np.isfinite(x).all():
-            raise InputError(f"block holds {int(np.count_nonzero(~np.isfinite(x)))} non-finite samples (NaN or inf)")
+        if not math.isfinite(float(np.add.reduce(x))):  # a NaN or inf anywhere makes the sum non-finite
+            bad = int(np.count_nonzero(~np.isfinite(x)))
+            if bad:  # (a sum of finite samples can overflow too: such a block is analysed as before)
+                raise InputError(f"block holds {bad} non-finite samples (NaN or inf)")
         return x
 
     @property

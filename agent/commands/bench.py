@@ -35,7 +35,9 @@ import os
 import platform
 import resource
 import statistics
+import subprocess
 import sys
+import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -330,6 +332,71 @@ def _scaling(out, repeat: int) -> None:
                   f"({min(ns):.1f}-{max(ns):.1f})\n")
 
 
+IMPORT_PROBE = (
+    "import time\n"
+    "t0 = time.process_time()\n"
+    "import rotorwatch.analysis.point\n"
+    "t1 = time.process_time()\n"
+    "import scipy.fft\n"
+    "print(t1 - t0, time.process_time() - t1)\n"
+)
+
+
+def import_cpu_s(repeat: int = 3) -> tuple[float, float]:
+    """CPU seconds of ``import rotorwatch.analysis.point`` in a fresh interpreter, and of the ``scipy.fft``
+    import the first transform adds (medians of ``repeat`` runs)."""
+    runs = []
+    for _ in range(repeat):
+        done = subprocess.run([sys.executable, "-c", IMPORT_PROBE], capture_output=True, text=True, timeout=120,
+                              check=True)
+        runs.append(tuple(float(v) for v in done.stdout.split()))
+    return statistics.median(r[0] for r in runs), statistics.median(r[1] for r in runs)
+
+
+ANALYZE_PROBE = (
+    "import sys\n"
+    "from rotorwatch.cli import main\n"
+    "rc = main(sys.argv[1:])\n"
+    "with open('/proc/self/status') as f:\n"
+    "    sys.stderr.write(next(ln for ln in f if ln.startswith('VmHWM')))\n"
+    "sys.exit(rc)\n"
+)
+
+
+def analyze_peak_rss_mb(seconds: float = 5.0, fs_hz: float = 48000.0) -> float:
+    """Peak resident memory (MB, the process's VmHWM) of ``rotorwatch analyze`` in a fresh interpreter on a
+    recording the size of the shared bearing recordings (``seconds`` of this module's synthetic signal at
+    ``fs_hz``). Read inside the child: a forked child's rusage would count this process's pages too."""
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "bench.npz")
+        np.savez(path, signal=synthetic_signal(fs_hz, seconds, seed=5), fs=fs_hz, unit="m/s2")
+        done = subprocess.run([sys.executable, "-c", ANALYZE_PROBE, "analyze", path, "--rpm", "1480", "--format",
+                               "json"], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, timeout=300)
+    hwm = [ln for ln in done.stderr.splitlines() if ln.startswith("VmHWM")]
+    if done.returncode != 0 or not hwm:
+        raise InputError(f"rotorwatch analyze of the bench recording failed: {done.stderr.strip()[-200:]}")
+    return float(hwm[0].split()[1]) / 1024.0  # kB
+
+
+def _targets(out, rows: list[Row], import_s: tuple[float, float], analyze_mb: float) -> None:
+    """The issue's targets against this run's figures, one line each."""
+    def worst(ratios: list[float]) -> str:
+        return f"{min(ratios):.2f}-{max(ratios):.2f}x"
+
+    floor = [r.median_s("fixed") / r.median_s("fft floor") for r in rows]
+    plain = [r.median_s("scipy plain") / r.median_s("fixed") for r in rows]
+    kept = [r.median_s("fixed") / r.median_s("searched") for r in rows]
+    marks = {True: "met", False: "NOT met"}
+    out.write("\ntargets (this run):\n"
+              f"  fixed path within 1.5x of its FFT floor: {worst(floor)} ({marks[max(floor) <= 1.5]})\n"
+              f"  fixed path >= 5x the plain scipy pipeline: {worst(plain)} ({marks[min(plain) >= 5.0]})\n"
+              f"  searched band (kept) >= 0.9x the fixed band: {worst(kept)} ({marks[min(kept) >= 0.9]})\n"
+              f"  import of the analysis under 150 ms CPU: {1000 * import_s[0]:.0f} ms "
+              f"({marks[import_s[0] < 0.15]}; scipy.fft adds {1000 * import_s[1]:.0f} ms at the first transform)\n"
+              f"  peak RSS of rotorwatch analyze (5 s at 48 kHz, a fresh process) <= 80 MB: {analyze_mb:.0f} MB "
+              f"({marks[analyze_mb <= 80]}; the daemon on four channels: tests/bench/bench_daemon.py)\n")
+
+
 def run(args: argparse.Namespace) -> int:
     rates, channels = _check(args)
     out = sys.stdout
@@ -349,6 +416,7 @@ def run(args: argparse.Namespace) -> int:
                 row.times.setdefault(m, []).append(_time(methods[m]))
         if rss_ours is None:
             rss_ours = _peak_rss_mb()  # before anything imports scipy.signal
+            import scipy.signal  # noqa: F401, PLC0415 - loaded before the plain pipeline is timed
         for row, methods in setups:
             row.times.setdefault("scipy plain", []).append(_time(methods["scipy plain"]))
     out.write(f"rotorwatch bench: {args.duration:g} s of signal per channel, {args.window:g} s windows advanced "
@@ -359,6 +427,7 @@ def run(args: argparse.Namespace) -> int:
     out.write(f"peak RSS of this process: {rss_start:.0f} MB at start, {rss_ours:.0f} MB after rotorwatch's methods "
               f"(holding {signals_mb:.0f} MB of bench signal), {_peak_rss_mb():.0f} MB after the scipy pipeline "
               "(scipy.signal loaded)\n")
+    _targets(out, rows, import_cpu_s(), analyze_peak_rss_mb())
     if args.scaling:
         _scaling(out, args.repeat)
     return 0
