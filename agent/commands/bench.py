@@ -393,7 +393,7 @@ def _targets(out, rows: list[Row], import_s: tuple[float, float], analyze_mb: fl
               f"  searched band (kept) >= 0.9x the fixed band: {worst(kept)} ({marks[min(kept) >= 0.9]})\n"
               f"  import of the analysis under 150 ms CPU: {1000 * import_s[0]:.0f} ms "
               f"({marks[import_s[0] < 0.15]}; scipy.fft adds {1000 * import_s[1]:.0f} ms at the first transform)\n"
-              f"  peak RSS of rotorwatch analyze (5 s at 48 kHz, a fresh process) <= 80 MB: {analyze_mb:.0f} MB "
+              f"  peak RSS of rotorwatch analyze (5 s at 48 kHz, a fresh process) <= 80 MB: {analyze_mb:.1f} MB "
               f"({marks[analyze_mb <= 80]}; the daemon on four channels: tests/bench/bench_daemon.py)\n")
 
 
