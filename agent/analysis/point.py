@@ -78,7 +78,9 @@ class PointAnalyzer:
                 f"{p.fmax_hz:g} Hz and {p.envelope.lines} envelope lines up to {p.envelope.fmax_hz:g} Hz need at "
                 f"least {p.min_samples} samples ({p.min_samples / p.fs_hz:.3g} s at {p.fs_hz:g} Hz)"
             )
-        if not math.isfinite(float(np.add.reduce(x))):  # a NaN or inf anywhere makes the sum non-finite
+        with np.errstate(invalid="ignore", over="ignore"):  # (inf - inf: NaN, said below in words)
+            total = float(np.add.reduce(x))
+        if not math.isfinite(total):  # a NaN or inf anywhere makes the sum non-finite
             bad = int(np.count_nonzero(~np.isfinite(x)))
             if bad:  # (a sum of finite samples can overflow too: such a block is analysed as before)
                 raise InputError(f"block holds {bad} non-finite samples (NaN or inf)")

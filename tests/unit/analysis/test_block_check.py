@@ -4,6 +4,8 @@ and however they mix (the check reads the block's sum first: one non-finite samp
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 
@@ -24,6 +26,8 @@ def test_non_finite_samples_are_counted(analyzer, bad):
     x = np.random.default_rng(0).standard_normal(analyzer.min_samples)
     x[[7, 1000, 4000][: len(bad)]] = bad
     n_bad = int(np.count_nonzero(~np.isfinite(x)))
-    with pytest.raises(InputError, match=rf"^block holds {n_bad} non-finite samples \(NaN or inf\)$"):
+    with pytest.raises(InputError, match=rf"^block holds {n_bad} non-finite samples \(NaN or inf\)$"), \
+            warnings.catch_warnings():
+        warnings.simplefilter("error")  # said in words, without a RuntimeWarning on the side
         analyzer.analyze(x)
 
