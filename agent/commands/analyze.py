@@ -43,6 +43,9 @@ from ..settings.quantities import quantity
 
 MIN_RATE_HZ = 1000.0
 MAX_SECONDS = 120.0  # one block: longer recordings are cut, to bound memory (about 40 bytes per sample)
+# Shock accelerometers reach about 1e5 g (1e6 m/s^2, common practice): larger samples are a wrong unit or a
+# corrupt file, and their squares would overflow the spectra (velocity inf/NaN, no ISO zone).
+MAX_PLAUSIBLE_M_S2 = 1e7
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -127,7 +130,12 @@ def read_recording(path: str, unit: str | None = None, channel: int | None = Non
     bad = int(np.count_nonzero(~np.isfinite(data)))
     if bad:
         raise InputError(f"{path}: {bad} samples are not finite numbers (NaN or inf)")
-    return Samples(to_m_s2(data, name, sens), rec.fs_hz, rec.n_frames, channel, name, how)
+    accel = to_m_s2(data, name, sens)
+    peak = float(np.max(np.abs(accel))) if accel.size else 0.0
+    if not peak <= MAX_PLAUSIBLE_M_S2:
+        raise InputError(f"{path}: samples reach {peak:.3g} m/s^2 ({name}, {how}): beyond any accelerometer's range "
+                         f"(at most {MAX_PLAUSIBLE_M_S2:.0e} m/s^2 read here); check the unit and the file")
+    return Samples(accel, rec.fs_hz, rec.n_frames, channel, name, how)
 
 
 # ------------------------------------------------------------------------------------- quick machine

@@ -111,6 +111,10 @@ def test_unreadable_empty_short_and_slow_files(tmp_path, capsys):
     nan = tmp_path / "nan.npz"
     np.savez(nan, signal=np.full(200000, np.nan), fs=25600.0)
     assert "not finite" in _error(capsys, nan, "--rpm", 1500)
+    huge = tmp_path / "huge.npz"  # finite, but its squares overflow float64: once a traceback from the ISO zone
+    np.savez(huge, signal=np.tile([1e300, -1e300], 100000), fs=25600.0, unit="m/s2")
+    line = _error(capsys, huge, "--rpm", 1500)
+    assert str(huge) in line and "beyond any accelerometer's range" in line
     assert "no such file" in _error(capsys, tmp_path / "missing.wav", "--rpm", 1500)
 
 
