@@ -3,7 +3,7 @@
 A replay is a sequence of :class:`Frame` (one update: a volts block per point) fed to
 :class:`~rotorwatch.pipeline.MachinePipeline` as fast as the CPU allows. Frames come from
 
-- a scenario (:func:`scenario_frames`): at each snapshot time (``cadence_s``) the renderer draws
+- a scenario (:class:`ScenarioFrames`): at each snapshot time (``cadence_s``) the renderer draws
   ``analysis.window_s`` seconds at ``acquisition.sample_rate_hz``. Speed: the analysis finds it the way
   the daemon would (the configured speed, or estimated from the spectrum); only machines whose speed
   comes from outside the vibration channels (``tach``, ``mqtt``) get the scenario's true speed, the
@@ -44,24 +44,6 @@ class Frame:
 
 
 # ------------------------------------------------------------------------------------------ scenarios
-_worker_renderer = None  # a ScenarioRenderer in each render worker process
-
-
-def _init_worker(scenario) -> None:
-    global _worker_renderer
-    from rotorwatch.simulators.render import ScenarioRenderer
-
-    from .heap import hold_freed_memory
-
-    hold_freed_memory()  # inherited through fork, not through spawn
-
-    _worker_renderer = ScenarioRenderer(scenario)
-
-
-def _render(t_s: float, window_s: float, fs_hz: float) -> dict[str, np.ndarray]:
-    return _worker_renderer.snapshot(t_s, window_s, fs_hz)  # type: ignore[union-attr]
-
-
 def _tach_pulses(renderer, t_s: float, window_s: float) -> np.ndarray:
     """When the scenario's tach pulses fall in the window from ``t_s``: at each 1/N turn of the simulated
     shaft (N = pulses_per_rev), in seconds from the window's start (what the tach channel would give)."""
@@ -71,43 +53,47 @@ def _tach_pulses(renderer, t_s: float, window_s: float) -> np.ndarray:
     return np.asarray(renderer.speed.time_at_turns(k / n), dtype=float) - t_s
 
 
-def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None,
-                    workers: int = 1) -> Generator[Frame, None, None]:
-    """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence.
+class ScenarioFrames:
+    """Snapshots of a :class:`~rotorwatch.simulators.render.ScenarioRenderer` at its cadence, by index (a
+    :class:`~rotorwatch.replaypool.FrameSource`). A snapshot is a pure function of the scenario and its
+    time, so it is the same drawn in any process; a worker process builds its own renderer."""
 
-    With ``workers`` > 1 the snapshots are drawn in that many worker processes, ahead of the analysis
-    (at most two per worker in flight). A snapshot is a pure function of the scenario and its time, so
-    the frames are the same as drawn in this process.
-    """
-    machine: Machine = renderer.machine
-    outside_speed = machine.speed.mode in ("tach", "mqtt")
-    times = [float(t) for t in (renderer.times() if times_s is None else times_s)]
+    def __init__(self, renderer, fs_hz: float, window_s: float, times_s=None):
+        self.scenario = renderer.scenario
+        self._renderer = renderer
+        self.fs_hz, self.window_s = float(fs_hz), float(window_s)
+        self.elapsed_s = [float(t) for t in (renderer.times() if times_s is None else times_s)]
 
-    def frame(t: float, blocks: dict[str, np.ndarray]) -> Frame:
-        pulses = _tach_pulses(renderer, t, window_s) if machine.speed.mode == "tach" else None
-        return Frame(t, blocks, float(renderer.true_rpm(t)) if outside_speed else None, pulses)
+    def __getstate__(self) -> dict:
+        return {**self.__dict__, "_renderer": None}  # rebuilt from the scenario where unpickled
 
-    if workers <= 1 or len(times) < 2:
-        for t in times:
-            yield frame(t, renderer.snapshot(t, window_s, fs_hz))
-        return
-    import multiprocessing
-    from collections import deque
+    @property
+    def renderer(self):
+        if self._renderer is None:
+            from rotorwatch.simulators.render import ScenarioRenderer
 
-    ctx = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
-    with ctx.Pool(workers, initializer=_init_worker, initargs=(renderer.scenario,)) as pool:
-        pending: deque = deque()
-        it = iter(times)
-        for t in it:
-            pending.append((t, pool.apply_async(_render, (t, window_s, fs_hz))))
-            if len(pending) >= 2 * workers:
-                break
-        while pending:
-            t, job = pending.popleft()
-            nxt = next(it, None)
-            if nxt is not None:
-                pending.append((nxt, pool.apply_async(_render, (nxt, window_s, fs_hz))))
-            yield frame(t, job.get())
+            self._renderer = ScenarioRenderer(self.scenario)
+        return self._renderer
+
+    def frame(self, i: int) -> tuple[Frame, None]:
+        r, t = self.renderer, self.elapsed_s[i]
+        speed = r.machine.speed.mode
+        pulses = _tach_pulses(r, t, self.window_s) if speed == "tach" else None
+        rpm = float(r.true_rpm(t)) if speed in ("tach", "mqtt") else None
+        return Frame(t, r.snapshot(t, self.window_s, self.fs_hz), rpm, pulses), None
+
+    def usable(self, meta: None) -> bool:
+        return True
+
+    def check(self, i: int, meta: None) -> None:
+        return None
+
+
+def scenario_frames(renderer, fs_hz: float, window_s: float, times_s=None) -> Generator[Frame, None, None]:
+    """The frames of :class:`ScenarioFrames`, drawn here one after the other."""
+    source = ScenarioFrames(renderer, fs_hz, window_s, times_s)
+    for i in range(len(source.elapsed_s)):
+        yield source.frame(i)[0]
 
 
 # ----------------------------------------------------------------------------------------- recordings

@@ -30,17 +30,25 @@ from ..history.timestamps import parse_date
 from ..replay import (
     UNITS,
     ReplayLog,
+    ScenarioFrames,
     event_record,
     iso_date,
     open_recording,
     recording_frames,
-    scenario_frames,
     timeline,
     update_record,
 )
 from ..settings.models import AlarmPolicy
 
 DEFAULT_START = "2025-01-01T00:00:00Z"
+
+
+def default_workers() -> int:
+    """The CPUs this process may run on (the default number of replay workers)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
@@ -62,8 +70,9 @@ def add_parser(p: argparse.ArgumentParser) -> None:
     p.add_argument("--state-dir", metavar="DIR", help="where baselines go (default: a fresh temporary directory)")
     p.add_argument("--start", default=DEFAULT_START, metavar="DATE",
                    help=f"date and time (UTC) the replay starts at, ISO 8601 (default {DEFAULT_START})")
-    p.add_argument("--workers", type=int, default=min(4, os.cpu_count() or 1), metavar="N",
-                   help="scenario: processes drawing the snapshots ahead of the analysis (default: CPUs, at most 4; 1: none)")
+    p.add_argument("--workers", type=int, default=default_workers(), metavar="N",
+                   help="scenario, history: processes that draw or decode the updates and analyze them, judged in "
+                        "order here; the results are the same for any N (default: the CPUs, %(default)s here; 1: none)")
     p.add_argument("--learning-updates", type=int, metavar="N",
                    help="learn baselines from the first N updates instead of the configured learning period")
     history_cmd.add_arguments(p, src)
@@ -121,7 +130,7 @@ class _Input:
     machine: Any
     fs_hz: float
     window_s: float
-    frames: Any  # a generator of replay frames (closed to stop render workers early)
+    frames: Any  # a replaypool.FrameSource (scenario, history), or a generator of replay frames (recording)
     total: int
     source: str
     cadence: str
@@ -151,13 +160,14 @@ def _open_input(args: argparse.Namespace) -> _Input:
     if args.history:
         return _open_history(args)
     scenario = renderer = None
+    frames: Any
     if args.scenario:
         scenario, renderer = _open_scenario(args)
         config, machine = scenario.config, scenario.machine
         fs_hz = config.acquisition.sample_rate_hz
         window_s = machine.analysis.window_s
-        frames = scenario_frames(renderer, fs_hz, window_s, workers=args.workers)
-        total = len(renderer.times())
+        frames = ScenarioFrames(renderer, fs_hz, window_s)
+        total = len(frames.elapsed_s)
         source = f"scenario {scenario.name!r} ({args.scenario}), config {scenario.config_path}"
         cadence = f"every {scenario.spec.scenario.cadence_s / 3600:g} h"
     else:
@@ -209,6 +219,7 @@ def _write_text(out: Any, args: argparse.Namespace, inp: _Input, log: ReplayLog,
 
 def run(args: argparse.Namespace) -> int:
     from ..pipeline import MachinePipeline
+    from ..replaypool import replay_updates
 
     out = sys.stdout
     start = parse_date(args.start, "--start")
@@ -230,14 +241,14 @@ def run(args: argparse.Namespace) -> int:
     else:
         tmp = tempfile.TemporaryDirectory(prefix="rotorwatch-replay-")
         state_dir = Path(tmp.name)
+    updates = None
     try:
         pipeline = MachinePipeline(config, machine, state_dir=state_dir, policy=policy)
         log = history_cmd.new_log(machine, start) if inp.history else ReplayLog(machine, start)
         progress = sys.stderr.isatty() and args.format == "text"
         t_wall = time.perf_counter()
-        for i, frame in enumerate(frames):
-            update = pipeline.step(start + frame.elapsed_s, frame.blocks_v, rpm=frame.rpm, fs_hz=fs_hz,
-                                   tach_pulses_s=frame.tach_pulses_s)
+        updates = replay_updates(pipeline, frames, fs_hz, start, args.workers)
+        for i, (frame, update) in enumerate(updates):
             log.add(frame.elapsed_s, update)
             if args.format == "jsonl":
                 _emit(update_record(update, frame.elapsed_s), out)
@@ -250,7 +261,10 @@ def run(args: argparse.Namespace) -> int:
             print("\r" + " " * 40 + "\r", end="", file=sys.stderr, flush=True)
         pipeline.close()
     finally:
-        frames.close()  # stops render (or decoding) workers early on an error
+        if updates is not None:
+            updates.close()  # stops the analysis workers early on an error
+        if hasattr(frames, "close"):
+            frames.close()  # a recording's reader
         if inp.history is not None:
             inp.history.history.close()
         if tmp is not None:

@@ -12,13 +12,12 @@ the replay come the threshold margins (:mod:`.margins`) and, with ``--plot``, a 
 from __future__ import annotations
 
 import argparse
-from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import IO, Any
 
 from ..errors import InputError
-from ..replay import Frame, ReplayLog
-from .feed import RateCheck, history_frames
+from ..replay import ReplayLog
+from .feed import HistoryFrames
 from .margins import LevelLog, margin_record, margins, margins_table
 from .readers import History, open_history
 from .spec import spec_from_args
@@ -52,17 +51,12 @@ def add_arguments(p: argparse.ArgumentParser, sources: Any) -> None:
 @dataclass
 class HistoryInput:
     history: History
-    frames: Iterator[Frame]
+    frames: HistoryFrames  # a replaypool.FrameSource
     fs_hz: float
     start_unix_s: float
     total: int
     source: str
     cadence: str
-
-
-def _chain(first: Frame, rest: Iterator[Frame]) -> Iterator[Frame]:
-    yield first
-    yield from rest
 
 
 def open_input(args: argparse.Namespace, config: Any, machine: Any, start_given: bool) -> HistoryInput:
@@ -72,9 +66,7 @@ def open_input(args: argparse.Namespace, config: Any, machine: Any, start_given:
     history = open_history(spec, machine, machine.analysis.window_s)
     try:
         rate_hz = config.acquisition.sample_rate_hz
-        check = RateCheck(history, rate_hz)
-        frames = history_frames(history, rate_hz, args.workers, check)
-        first = next(frames)
+        frames = HistoryFrames(history, rate_hz)
     except BaseException:
         history.close()
         raise
@@ -82,9 +74,9 @@ def open_input(args: argparse.Namespace, config: Any, machine: Any, start_given:
     gaps = [b - a for a, b in zip(times, times[1:])]
     cadence = (f"at their own times (median step {sorted(gaps)[len(gaps) // 2] / 3600:.3g} h, longest gap "
                f"{max(gaps) / 3600:.3g} h)") if gaps else "(one element)"
-    fs = check.fs_hz or rate_hz
+    fs = frames.fs_hz
     rate_note = "" if abs(fs - rate_hz) < 1e-6 * rate_hz else f" at the data's rate {fs:g} Hz (configured {rate_hz:g} Hz)"
-    return HistoryInput(history, _chain(first, frames), fs, history.start_unix_s, len(history.elements),
+    return HistoryInput(history, frames, fs, history.start_unix_s, len(history.elements),
                         f"history {history.source}{rate_note}", cadence)
 
 

@@ -1,9 +1,10 @@
-"""A history's elements as replay frames, decoded once each, ahead of the analysis in worker processes.
+"""A history's elements as replay frames, decoded once each, in the worker processes that analyze them.
 
 Decoding (reading a file, parsing text, converting units) does not depend on the order of the
-elements, so ``workers`` processes decode ahead of the analysis (at most two elements per worker in
-flight). The analysis and the alarm logic run in this process, in time order, exactly as the daemon
-runs them: baselines, the kept envelope band and the delays depend on the updates before.
+elements: :class:`HistoryFrames` reads element ``i`` the same in any process, so with ``--workers`` > 1
+each worker decodes an element and analyzes it (:mod:`rotorwatch.replaypool`); the alarm logic runs in
+the replaying process, in time order, exactly as the daemon runs it. :func:`decoded` decodes alone (the
+benchmark's figure for the decoding's share).
 
 The rate of every element is checked here: all elements at one rate (mixed rates are an error), and that
 rate equal to ``acquisition.sample_rate_hz`` unless the history allows analyzing at the data's rate.
@@ -14,6 +15,7 @@ from __future__ import annotations
 import multiprocessing
 from collections import deque
 from collections.abc import Iterator
+from dataclasses import dataclass
 from typing import Any
 
 from ..errors import InputError
@@ -45,7 +47,7 @@ class RateCheck:
         self.n_columns: int | None = None
         self.columns_from: str = ""
 
-    def __call__(self, name: str, d: Decoded) -> None:
+    def __call__(self, name: str, d: Decoded | ElementMeta) -> None:
         if d.n_columns is not None:
             if self.n_columns is None:
                 self.n_columns, self.columns_from = d.n_columns, name
@@ -87,12 +89,45 @@ def decoded(history: History, workers: int = 1) -> Iterator[tuple[int, Decoded]]
             yield i, job.get()
 
 
-def history_frames(history: History, config_rate_hz: float, workers: int = 1,
-                   check: RateCheck | None = None) -> Iterator[Frame]:
-    """Replay frames of ``history``: elapsed seconds from its first element, volts per point."""
-    check = check or RateCheck(history, config_rate_hz)
-    t0 = history.start_unix_s
-    for i, d in decoded(history, workers):
-        e = history.elements[i]
-        check(e.name, d)
-        yield Frame(e.time_s - t0, d.blocks_v if d.fs_hz is not None else {}, d.rpm)
+@dataclass(frozen=True)
+class ElementMeta:
+    """What the checks across elements need of a decoded element (its samples travel in the frame)."""
+
+    name: str
+    fs_hz: float | None
+    n_columns: int | None
+
+
+class HistoryFrames:
+    """A history's elements as replay frames by index (a :class:`~rotorwatch.replaypool.FrameSource`):
+    elapsed seconds from its first element, volts per point. Decoding is the same in any process; the
+    checks across elements (one rate, one column count) run in time order in the replaying process.
+    Element 0 is decoded when opened, to learn the rate the history is analyzed at (:attr:`fs_hz`)."""
+
+    def __init__(self, history: History, config_rate_hz: float, check: RateCheck | None = None):
+        self.history = history
+        self.rate_check = check or RateCheck(history, config_rate_hz)
+        t0 = history.start_unix_s
+        self.elapsed_s = [e.time_s - t0 for e in history.elements]
+        self._first = self._decode(0)
+        self.check(0, self._first[1])
+        self.fs_hz = self.rate_check.fs_hz or float(config_rate_hz)
+
+    def _decode(self, i: int) -> tuple[Frame, ElementMeta]:
+        d = self.history.decode(i)
+        frame = Frame(self.elapsed_s[i], d.blocks_v if d.fs_hz is not None else {}, d.rpm)
+        return frame, ElementMeta(self.history.elements[i].name, d.fs_hz, d.n_columns)
+
+    def frame(self, i: int) -> tuple[Frame, ElementMeta]:
+        if i == 0 and self._first is not None:
+            return self._first
+        return self._decode(i)
+
+    def usable(self, meta: ElementMeta) -> bool:
+        return meta.fs_hz is None or abs(meta.fs_hz - self.fs_hz) <= 1e-9 * self.fs_hz
+
+    def check(self, i: int, meta: ElementMeta) -> None:
+        self.rate_check(meta.name, meta)  # element 0 again: the same answer
+
+    def __getstate__(self) -> dict:
+        return {**self.__dict__, "_first": None}  # a worker decodes element 0 again if it needs it
