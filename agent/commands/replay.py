@@ -3,11 +3,19 @@
     rotorwatch replay --scenario config/scenarios/demo-outer-race.toml
     rotorwatch replay --config config/university-rig.toml --input rec.npz --learning-updates 5
     rotorwatch replay --scenario S --expect "machine never alarm" --format jsonl
+    rotorwatch replay --config config/university-rig.toml --history exports/ --time-pattern '%Y.%m.%d.%H.%M.%S'
+    rotorwatch replay --config C --history rig.npz --learning-updates 6 --lead 2h --plot trend.png
+    rotorwatch replay --config C --history site.toml --expect "outer-race on de reaches alarm before 2004-02-19 06:00"
+    rotorwatch replay --config C --history snapshots/ --set machines.rig.bands.outer-race.levels.relative_alarm=4
 
 With only ``--scenario`` the machine configuration is the one the scenario names; ``--config`` replaces
 it (same machine id). Expectations come from the scenario's ``expect`` list and every ``--expect``; the
 command exits 1 when one fails. Baselines go to a fresh temporary directory unless ``--state-dir`` is
-given, so a replay never mixes with a live daemon's baselines.
+given, so a replay never mixes with a live daemon's baselines. ``--history`` replays a machine's recorded
+life (a folder or archive of timestamped recordings, one ``.npz`` of snapshots, the daemon's snapshot
+folder) at its own dates, then prints the threshold margins (:mod:`rotorwatch.history.command`).
+Updates are drawn or decoded and analyzed in ``--workers`` processes and judged in order: the result is
+the same for any number (:mod:`rotorwatch.replaypool`).
 """
 
 from __future__ import annotations
@@ -52,6 +60,8 @@ def default_workers() -> int:
 
 
 def add_parser(p: argparse.ArgumentParser) -> None:
+    p.formatter_class = argparse.RawDescriptionHelpFormatter  # the examples below, line by line
+    p.epilog = "examples:\n" + "\n".join(line for line in (__doc__ or "").splitlines() if line.startswith("    rotorwatch "))
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--scenario", metavar="FILE", help="scenario TOML file (config/scenarios/...)")
     src.add_argument("--input", metavar="FILE", help="recording to replay: .wav or .npz (needs --config)")

@@ -222,6 +222,25 @@ def test_history_options_without_history_are_refused(capsys):
     assert "--time-pattern: applies to --history only" in capsys.readouterr().err
 
 
+def test_replay_help_shows_the_history_examples_and_each_one_parses(capsys):
+    import argparse
+    import shlex
+
+    from rotorwatch.commands import replay as replay_cmd
+
+    with pytest.raises(SystemExit) as done:
+        main(["replay", "--help"])
+    assert done.value.code == 0
+    out = capsys.readouterr().out
+    examples = [line.strip() for line in out[out.index("examples:"):].splitlines()[1:] if line.strip()]
+    assert sum("--history" in x for x in examples) >= 3, examples
+    for line in examples:  # options that exist, values they take
+        p = argparse.ArgumentParser(exit_on_error=False)
+        replay_cmd.add_parser(p)
+        args = p.parse_args(shlex.split(line)[2:])
+        assert args.history or args.scenario or args.input
+
+
 def test_analyze_reads_one_element_with_the_same_reader(tmp_path, capsys):
     root = text_folder(tmp_path / "h", 3, columns=2)
     rc = main(["analyze", str(root), "--config", str(CONFIG), "--at", "2004-02-12T11:10",
