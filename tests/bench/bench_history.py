@@ -7,10 +7,15 @@ distinct snapshots spread over its 30 days, repeated in turn to N files 6 min ap
 bench-4ch.toml with the rate and window set from the command line (--set), as a user would:
 20 kHz, 1 s windows, fmax 8 kHz (and the 2-10 kHz band to 8 kHz), learning on the first 20 updates.
 
-    .venv/bin/python tests/bench/bench_history.py [--snapshots 1000] [--workers 1,2]
+    .venv/bin/python tests/bench/bench_history.py [--snapshots 1000] [--workers 1,2] [--profile 60]
 
-For each worker count: the whole ``rotorwatch replay --history`` command (wall clock, in-process), and
-what part of it the decoding alone takes (the elements decoded without analysis).
+For each worker count: the whole ``rotorwatch replay --history`` command (in-process): wall clock, CPU
+time of this process and its worker processes (user + system, from getrusage), updates per second;
+and what part of the wall clock the decoding alone takes (the elements decoded without analysis, in as
+many workers). ``--profile N``: where one update's time goes, over the first N elements replayed in
+this process one after the other: decoding, the analysis of the four points
+(:class:`rotorwatch.pipeline.UpdateAnalysis`, the part the workers run) and the judge (alarm logic,
+in order), then cProfile's top functions of the analysis by own time.
 """
 
 from __future__ import annotations
@@ -19,6 +24,7 @@ import argparse
 import contextlib
 import io
 import os
+import resource
 import shutil
 import tempfile
 import time
@@ -55,18 +61,24 @@ def write_history(folder: Path, n: int) -> None:
         write_wav(folder / name, distinct[k % len(distinct)], FS_HZ, "volts", sens)
 
 
-def run_replay(folder: Path, workers: int) -> tuple[float, str]:
+def _cpu_s() -> float:
+    """User + system CPU seconds of this process and of its children that have ended (the workers)."""
+    me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return me.ru_utime + me.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def run_replay(folder: Path, workers: int) -> tuple[float, float, str]:
     from rotorwatch.cli import main
 
     argv = ["replay", "--config", str(CONFIG), *[a for s in SETS for a in ("--set", s)], "--history", str(folder),
             "--time-pattern", "%Y%m%dT%H%M%S", "--learning-updates", "20", "--workers", str(workers)]
     out = io.StringIO()
-    t = time.perf_counter()
+    cpu, t = _cpu_s(), time.perf_counter()
     with contextlib.redirect_stdout(out):
         rc = main(argv)
-    wall = time.perf_counter() - t
+    wall, cpu = time.perf_counter() - t, _cpu_s() - cpu
     assert rc == 0, out.getvalue()[-2000:]
-    return wall, out.getvalue()
+    return wall, cpu, out.getvalue()
 
 
 def decode_only(folder: Path, workers: int) -> float:
@@ -83,10 +95,63 @@ def decode_only(folder: Path, workers: int) -> float:
     return time.perf_counter() - t
 
 
+def profile(folder: Path, n: int) -> None:
+    """Per update: decoding, analysis and judge, one after the other here; then the analysis's top functions."""
+    import cProfile
+    import pstats
+    import tempfile
+
+    from rotorwatch.history.feed import HistoryFrames
+    from rotorwatch.history.readers import open_history
+    from rotorwatch.history.spec import HistorySpec
+    from rotorwatch.pipeline import MachinePipeline
+    from rotorwatch.replaypool import _input
+    from rotorwatch.settings.loading import load_config
+    from rotorwatch.settings.models import AlarmPolicy
+
+    config = load_config(CONFIG, SETS)
+    machine = config.machines[0]
+    h = open_history(HistorySpec(folder, time_pattern="%Y%m%dT%H%M%S"), machine, 1.0)
+    frames = HistoryFrames(h, FS_HZ)
+    spent = {"decode": 0.0, "analysis": 0.0, "judge": 0.0}
+    prof = cProfile.Profile()
+    with tempfile.TemporaryDirectory() as state:
+        pipeline = MachinePipeline(config, machine, state, policy=AlarmPolicy(learning_hours=0.0,
+                                                                             min_learning_updates=20))
+        n = min(n, len(frames.elapsed_s))
+        for i in range(n):
+            t0 = time.perf_counter()
+            frame, meta = frames.frame(i)
+            frames.check(i, meta)
+            t1 = time.perf_counter()
+            inp = _input(frame, frames.fs_hz, h.start_unix_s)
+            prof.enable()
+            outcomes = pipeline.analysis.update(inp, pipeline.forecast([inp.time_s])[0])
+            prof.disable()
+            t2 = time.perf_counter()
+            pipeline.judge(inp, outcomes)
+            t3 = time.perf_counter()
+            spent["decode"] += t1 - t0
+            spent["analysis"] += t2 - t1
+            spent["judge"] += t3 - t2
+        pipeline.close()
+    h.close()
+    total = sum(spent.values())
+    print(f"profile over {n} updates in one process: {1000 * total / n:.1f} ms per update = "
+          + ", ".join(f"{k} {1000 * v / n:.1f} ms ({100 * v / total:.0f} %)" for k, v in spent.items()))
+    out = io.StringIO()
+    pstats.Stats(prof, stream=out).sort_stats("tottime").print_stats(12)
+    print("the analysis's top functions by own time (cProfile, its overhead included):")
+    body = out.getvalue()
+    print(body[body.index("ncalls"):].rstrip() if "ncalls" in body else body)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--snapshots", type=int, default=1000)
     ap.add_argument("--workers", default="1,2", help="worker counts to try, comma-separated")
+    ap.add_argument("--profile", type=int, default=0, metavar="N", help="also profile the first N updates")
+    ap.add_argument("--no-decode", action="store_true", help="skip the decoding-alone figure")
     args = ap.parse_args()
     folder = Path(tempfile.mkdtemp(prefix="rotorwatch-bench-history-"))
     try:
@@ -97,11 +162,14 @@ def main() -> None:
               f"written in {time.perf_counter() - t:.1f} s")
         print(f"box: {os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.1f} at the start")
         for w in (int(x) for x in args.workers.split(",")):
-            dec = decode_only(folder, w)
-            wall, text = run_replay(folder, w)
-            line = next((x for x in text.splitlines() if x.startswith("replay took")), "")
-            print(f"workers {w}: replay command {wall:.1f} s for {args.snapshots} updates "
-                  f"({1000 * wall / args.snapshots:.1f} ms per update); {line}; decoding alone {dec:.1f} s")
+            load = os.getloadavg()[0]
+            wall, cpu, text = run_replay(folder, w)
+            dec = "" if args.no_decode else f"; decoding alone {decode_only(folder, w):.1f} s"
+            print(f"workers {w}: {args.snapshots} updates in {wall:.1f} s wall, {cpu:.1f} s CPU "
+                  f"({args.snapshots / wall:.1f} updates/s, {1000 * wall / args.snapshots:.1f} ms per update; "
+                  f"load average {load:.1f} before){dec}")
+        if args.profile:
+            profile(folder, args.profile)
         print(f"load average {os.getloadavg()[0]:.1f} at the end (2 cores shared: figures vary with the load)")
     finally:
         shutil.rmtree(folder, ignore_errors=True)
