@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import multiprocessing
 from collections import deque
-from collections.abc import Generator, Iterable, Iterator, Sequence
+from collections.abc import Generator, Iterable, Iterator, Mapping, Sequence
 from typing import Any, Protocol, runtime_checkable
 
 from .alarms.records import MachineUpdate
@@ -69,11 +69,36 @@ def _init(source: FrameSource, machine: Machine, keep_spectra: bool, limits: Sen
 
 
 def _work(i: int, plans: dict[str, BandPlan]) -> tuple[Frame, Any, dict[str, PointOutcome] | None]:
+    """Update ``i`` read and analyzed; its samples stay here once analyzed (the judge reads them again
+    in the rare case it needs them: :class:`_ReadAgain`)."""
     assert _source is not None and _analysis is not None
     frame, meta = _source.frame(i)
     if not _source.usable(meta):
         return frame, meta, None
-    return frame, meta, _analysis.update(_input(frame, _fs_hz, _start_s), plans)
+    outcomes = _analysis.update(_input(frame, _fs_hz, _start_s), plans)
+    return Frame(frame.elapsed_s, {}, frame.rpm, frame.tach_pulses_s), meta, outcomes
+
+
+class _ReadAgain(Mapping[str, Any]):
+    """The blocks of update ``i``, read again from the source on first use (a wrong forecast)."""
+
+    def __init__(self, source: FrameSource, i: int):
+        self._source, self._i = source, i
+        self._blocks: Mapping[str, Any] | None = None
+
+    def _read(self) -> Mapping[str, Any]:
+        if self._blocks is None:
+            self._blocks = self._source.frame(self._i)[0].blocks_v
+        return self._blocks
+
+    def __getitem__(self, key: str) -> Any:
+        return self._read()[key]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._read())
+
+    def __len__(self) -> int:
+        return len(self._read())
 
 
 def _input(frame: Frame, fs_hz: float, start_s: float) -> UpdateInput:
@@ -98,7 +123,8 @@ def _read(source: FrameSource) -> Iterator[Frame]:
 def replay_updates(pipeline: MachinePipeline, source: FrameSource | Iterable[Frame], fs_hz: float, start_s: float,
                    workers: int = 1) -> Generator[tuple[Frame, MachineUpdate], None, None]:
     """``(frame, update)`` of every update of ``source`` in time order; ``workers`` > 1 analyzes a
-    :class:`FrameSource` in that many processes (a plain iterable of frames is read and analyzed here)."""
+    :class:`FrameSource` in that many processes (a plain iterable of frames is read and analyzed here).
+    A frame analyzed in a worker comes back without its samples (``blocks_v`` empty)."""
     if not isinstance(source, FrameSource):
         yield from _in_order(pipeline, source, fs_hz, start_s)
         return
@@ -128,8 +154,10 @@ def replay_updates(pipeline: MachinePipeline, source: FrameSource | Iterable[Fra
             frame, meta, outcomes = job.get()
             src.check(i, meta)
             inp = _input(frame, fs_hz, start_s)
-            if outcomes is None:
+            if outcomes is None:  # read, not analyzed: its check above said why, or it is analyzed here
                 outcomes = pipeline.analysis.update(inp, pipeline.forecast([inp.time_s])[0])
+            else:
+                inp.blocks_v = _ReadAgain(src, i)
             update = pipeline.judge(inp, outcomes)
             if nxt < n:
                 hand_out(nxt)
