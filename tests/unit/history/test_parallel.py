@@ -91,8 +91,9 @@ def test_parallel_replay_of_a_history_equals_the_sequential_one(history, tmp_pat
     sources = [b[0] for b in bands_one]
     assert sources[0] == "searched" and set(sources[1:]) == {"kept"}, sources
     assert sum(b[2] is not None for b in bands_one) == (N - 1) // 2  # a review every 2 h from the first update
-    # the updates in flight when the band was kept had been analyzed without it: the judge did them again
-    assert redone_one == 0 and redone_two > 0
+    # the updates in flight when the band was kept (at most two per worker, less the one judged) had been
+    # analyzed without it: the judge did them again; the reviews after it were forecast right
+    assert redone_one == 0 and 0 < redone_two < 2 * 2
 
 
 def _cli(capsys, history: Path, workers: int) -> list[dict]:
