@@ -30,6 +30,7 @@ import tempfile
 import time
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import Any
 
 HERE = Path(__file__).resolve().parent
 CONFIG = HERE / "bench-4ch.toml"
@@ -95,12 +96,9 @@ def decode_only(folder: Path, workers: int) -> float:
     return time.perf_counter() - t
 
 
-def profile(folder: Path, n: int) -> None:
-    """Per update: decoding, analysis and judge, one after the other here; then the analysis's top functions."""
-    import cProfile
-    import pstats
-    import tempfile
-
+def _replay_parts(folder: Path, n: int, prof: Any = None) -> tuple[dict[str, float], int, int]:
+    """CPU seconds of this process spent decoding, analysing and judging updates ``warm``..``n`` of the
+    history one after the other (the first ones build the analysis set-up); ``prof`` profiles the analysis."""
     from rotorwatch.history.feed import HistoryFrames
     from rotorwatch.history.readers import open_history
     from rotorwatch.history.spec import HistorySpec
@@ -114,39 +112,50 @@ def profile(folder: Path, n: int) -> None:
     h = open_history(HistorySpec(folder, time_pattern="%Y%m%dT%H%M%S"), machine, 1.0)
     frames = HistoryFrames(h, FS_HZ)
     spent = {"decode": 0.0, "analysis": 0.0, "judge": 0.0}
-    prof = cProfile.Profile()
+    n = min(n, len(frames.elapsed_s))
+    warm = min(5, n // 4)
     with tempfile.TemporaryDirectory() as state:
         pipeline = MachinePipeline(config, machine, state, policy=AlarmPolicy(learning_hours=0.0,
                                                                              min_learning_updates=20))
-        n = min(n, len(frames.elapsed_s))
-        warm = min(5, n // 4)
         for i in range(n):
-            if i == warm:  # set-up once per point and rate (plans, windows) left out of the figures
-                spent = dict.fromkeys(spent, 0.0)
-                prof = cProfile.Profile()
-            t0 = time.perf_counter()
+            on = prof is not None and i >= warm
+            t0 = time.process_time()
             frame, meta = frames.frame(i)
             frames.check(i, meta)
-            t1 = time.perf_counter()
+            t1 = time.process_time()
             inp = _input(frame, frames.fs_hz, h.start_unix_s)
-            prof.enable()
+            if on:
+                prof.enable()
             outcomes = pipeline.analysis.update(inp, pipeline.forecast([inp.time_s])[0])
-            prof.disable()
-            t2 = time.perf_counter()
+            if on:
+                prof.disable()
+            t2 = time.process_time()
             pipeline.judge(inp, outcomes)
-            t3 = time.perf_counter()
-            spent["decode"] += t1 - t0
-            spent["analysis"] += t2 - t1
-            spent["judge"] += t3 - t2
+            t3 = time.process_time()
+            if i >= warm:
+                spent["decode"] += t1 - t0
+                spent["analysis"] += t2 - t1
+                spent["judge"] += t3 - t2
         pipeline.close()
     h.close()
+    return spent, n - warm, warm
+
+
+def profile(folder: Path, n: int) -> None:
+    """CPU per update (this process's, so the load of others does not count): decoding, analysis and judge,
+    one after the other here; then, in a second pass, the analysis's top functions by their own CPU time."""
+    import cProfile
+    import pstats
+
+    spent, n, warm = _replay_parts(folder, n)
     total = sum(spent.values())
-    n -= warm
-    print(f"profile over {n} updates in one process (after {warm} to warm up): {1000 * total / n:.1f} ms per update = "
-          + ", ".join(f"{k} {1000 * v / n:.1f} ms ({100 * v / total:.0f} %)" for k, v in spent.items()))
+    print(f"profile over {n} updates in one process (after {warm} to warm up): {1000 * total / n:.1f} ms of CPU per "
+          "update = " + ", ".join(f"{k} {1000 * v / n:.1f} ms ({100 * v / total:.0f} %)" for k, v in spent.items()))
+    prof = cProfile.Profile(time.process_time)
+    _replay_parts(folder, n + warm, prof)
     out = io.StringIO()
     pstats.Stats(prof, stream=out).sort_stats("tottime").print_stats(12)
-    print("the analysis's top functions by own time (cProfile, its overhead included):")
+    print("the analysis's top functions by own CPU time (second pass under cProfile, which inflates small calls):")
     body = out.getvalue()
     print(body[body.index("ncalls"):].rstrip() if "ncalls" in body else body)
 
