@@ -24,6 +24,7 @@ early (the demo's outer-race band, README), which is why the window is short by 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections import deque
 from dataclasses import dataclass
@@ -56,27 +57,46 @@ def _tie_term(values: np.ndarray) -> float:
 def theil_sen(y, x, confidence: float = 0.95) -> TheilSen:
     """The Theil-Sen line of ``y`` over ``x`` with Sen's interval of the slope at ``confidence``
     (the arguments and results of ``scipy.stats.theilslopes(y, x, confidence)``). Raises ValueError when
-    every ``x`` is the same."""
+    every ``x`` is the same.
+
+    Only three order statistics of the pairwise slopes are needed (the median and the interval's two
+    ends), so they are found by one partition instead of a sort: the same values, a few times faster at
+    the window sizes used (the judge fits every value with levels at every update)."""
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
-    dx = x[:, None] - x
-    dy = y[:, None] - y
-    pos = dx > 0
-    if not np.any(pos):
+    n = y.size
+    i, j = _pairs(n)
+    dx = x[j] - x[i]
+    dy = y[j] - y[i]
+    keep = dx != 0  # each pair once; (-a)/(-b) == a/b exactly, so the order of a pair does not matter
+    if not np.any(keep):
         raise ValueError("all x are equal: no slope")
-    slopes = np.sort(dy[pos] / dx[pos])
-    slope = float(np.median(slopes))
-    intercept = float(np.median(y) - slope * np.median(x))
+    slopes = dy[keep] / dx[keep]
+    nt = slopes.size
     alpha = 1.0 - confidence if confidence > 0.5 else confidence
     z = NormalDist().inv_cdf(alpha / 2.0)
-    n, nt = y.size, slopes.size
     sigsq = (n * (n - 1) * (2 * n + 5) - _tie_term(x) - _tie_term(y)) / 18.0
-    if not sigsq >= 0:
+    mid = nt // 2
+    middle = [mid] if nt % 2 else [mid - 1, mid]
+    ends: list[int] = []
+    if sigsq >= 0:
+        sigma = math.sqrt(sigsq)
+        ends = [max(int(np.round((nt + z * sigma) / 2.0)) - 1, 0), min(int(np.round((nt - z * sigma) / 2.0)), nt - 1)]
+    part = np.partition(slopes, sorted(set(middle + ends)))
+    slope = float(np.mean(part[middle]))  # np.median's own rule: the mean of the middle one or two
+    intercept = float(np.median(y) - slope * np.median(x))
+    if not ends:
         return TheilSen(slope, intercept, math.nan, math.nan)
-    sigma = math.sqrt(sigsq)
-    upper = min(int(np.round((nt - z * sigma) / 2.0)), nt - 1)
-    lower = max(int(np.round((nt + z * sigma) / 2.0)) - 1, 0)
-    return TheilSen(slope, intercept, float(slopes[lower]), float(slopes[upper]))
+    return TheilSen(slope, intercept, float(part[ends[0]]), float(part[ends[1]]))
+
+
+@functools.lru_cache(maxsize=8)
+def _pairs(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Index arrays (i, j) of every pair i < j of ``n`` points (kept per window size)."""
+    i, j = np.triu_indices(n, 1)
+    i.setflags(write=False)
+    j.setflags(write=False)
+    return i, j
 
 
 @dataclass(frozen=True)
