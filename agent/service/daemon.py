@@ -118,6 +118,11 @@ class Daemon:
         self._stop = threading.Event()
         self._wake = threading.Event()
         self._reload_requested = threading.Event()
+        # What a signal asked for, taken up by the loop (at most 0.2 s later). A signal handler runs in the
+        # main thread between two bytecodes, possibly while that thread holds the lock of the Event it waits
+        # on, so a handler that called Event.set() could deadlock the daemon on SIGTERM: it only assigns.
+        self._signalled_stop: str | None = None
+        self._signalled_reload = False
         self.commands = CommandDesk(self, self.stats, wake=self._wake)
         self.config: Config | None = None
         self.runtimes: dict[str, MachineRuntime] = {}
@@ -147,9 +152,18 @@ class Daemon:
     def _install_signals(self) -> None:
         if threading.current_thread() is not threading.main_thread():
             return
-        signal.signal(signal.SIGTERM, lambda s, f: self.request_stop("SIGTERM"))
-        signal.signal(signal.SIGINT, lambda s, f: self.request_stop("SIGINT"))
-        signal.signal(signal.SIGHUP, lambda s, f: self.request_reload())
+        signal.signal(signal.SIGTERM, lambda s, f: setattr(self, "_signalled_stop", "SIGTERM"))
+        signal.signal(signal.SIGINT, lambda s, f: setattr(self, "_signalled_stop", "SIGINT"))
+        signal.signal(signal.SIGHUP, lambda s, f: setattr(self, "_signalled_reload", True))
+
+    def _take_signals(self) -> None:
+        """Turn what a signal handler recorded into the stop or reload it asks for (main thread, no handler)."""
+        if self._signalled_stop is not None:
+            reason, self._signalled_stop = self._signalled_stop, None
+            self.request_stop(reason)
+        if self._signalled_reload:
+            self._signalled_reload = False
+            self.request_reload()
 
     def run(self) -> int:
         """Run until stopped; returns the exit status. Bad configuration raises ConfigError."""
@@ -258,6 +272,7 @@ class Daemon:
 
     # ============================================================================== the loop
     def _loop_once(self) -> None:
+        self._take_signals()
         self.notifier.watchdog()
         if self._reload_requested.is_set():
             self._reload_requested.clear()
@@ -267,6 +282,7 @@ class Daemon:
         self.sinks.tick()
         self._wake.wait(0.2)
         self._wake.clear()
+        self._take_signals()
         cap = self.capture
         if self._stop.is_set() or cap is None:
             return
