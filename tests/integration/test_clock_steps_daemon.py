@@ -146,7 +146,9 @@ def test_wall_clock_steps_forward_and_back_under_faketime(make_mosquitto_broker,
           f"{steps_logged}; learning count {learning[0][0] if learning else '-'} -> {learning[-1][0] if learning else '-'}"
           f" (span {max(h for _, h in learning) if learning else '-'} h); trend rows {rows} spanning "
           f"{(last_s - first_s) if rows else 0:.1f} s of data time; run {end - phase_starts[0]:.0f} s, stop {stop_s:.1f} s")
-    assert all(n >= PHASE_S / 0.5 * 0.5 for n in per_phase), per_phase  # scheduling continued in every phase
+    # scheduling continued in every phase: after each step at least half the updates of the phase before the
+    # first one (the daemon's own pace on this box, which a loaded machine slows for every phase alike)
+    assert per_phase[0] >= 3 and all(2 * n >= per_phase[0] for n in per_phase), per_phase
     assert seqs == list(range(seqs[0], seqs[0] + len(seqs))), "seq out of order or with a gap"
     assert phases[-1] == 2 and 1 in phases  # ts really jumped forward and back
     assert len(steps_logged) == 2 and float(steps_logged[0]) > 2.5 * 86400 and float(steps_logged[1]) < -3.5 * 86400
