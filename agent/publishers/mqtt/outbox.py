@@ -17,11 +17,11 @@ availability, info, discovery configs and command results. Each waits in one of 
 Message ids have one owner. Only the drain thread calls ``client.publish()``, and only while
 connected; it notes the id paho gives each message before it looks at any acknowledgement (paho's
 ``on_publish`` runs on the network thread under paho's message lock and only queues an event), so an
-early PUBACK cannot be missed. When the link drops, what is in flight stays in flight under its id:
-paho keeps its copy and sends it again itself after the reconnect (QoS 1, DUP set), and its PUBACK
-comes under the same id. Nothing is dropped from paho's queue and nothing is published again under a
-new id. A new client (a restart, a reload of ``[mqtt]``) holds nothing, so at :meth:`start` the
-spool's records marked in flight become pending again. After a reconnect the newest payload of every
+early PUBACK cannot be missed. What is in flight when the link drops stays in flight until the
+reconnect; then :meth:`on_connect` drops paho's copies (paho would send them again only after that
+callback, when the drain thread may already be handing newer records: order lost) and the drain
+thread hands them again first, in seq order. A new client holds nothing, so at :meth:`start` the
+spool's records marked in flight become pending too. After a reconnect the newest payload of every
 retained topic goes again (a broker restarted without persistence gets the current states back).
 
 Where a record waits is decided in one place, :meth:`Outbox.record_goes_to_spool` (in
@@ -48,6 +48,7 @@ import paho.mqtt.client as mqtt
 from ...selfstats import SelfStats
 from ...storage import StorageError
 from ...storage.spool import Record, Spool
+from .outbox_stats import OutboxStats
 from .spool_lanes import LaneSplit, SpoolLanes
 from .unsent import UnsentLane, UnsentRecords
 
@@ -65,24 +66,6 @@ class _Message:
     payload: bytes
     qos: int
     retain: bool
-
-
-@dataclass(frozen=True)
-class OutboxStats:
-    connected: bool
-    in_flight: int  # spool records and memory messages handed to paho, not yet acknowledged
-    queued: int  # memory messages waiting for the link
-    published: int  # client.publish() calls (including those again after a reconnect)
-    acked: int  # acknowledged: spool records deleted and memory messages done
-    rejected: int  # PUBACKs with a failure reason code
-    held_over: int  # messages in flight when the link dropped, left to paho to send again under their ids
-    retain_downgraded: int
-    connects: int
-    backlog_active: bool
-    backlog_through_seq: int | None
-    unsent: int = 0  # records waiting in memory (queued or in flight), not in the spool
-    spilled: int = 0  # records written to the spool from memory
-    spills: int = 0  # spool transactions that wrote them
 
 
 class Outbox(UnsentLane):
@@ -273,11 +256,13 @@ class Outbox(UnsentLane):
 
     def on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason_code: Any,
                    properties: Any = None) -> None:
-        """VERSION2 ``on_connect``: paho sends again what was in flight, under the same ids."""
+        """VERSION2 ``on_connect`` (paho's thread): paho's unacknowledged messages are dropped (paho would
+        send them only after this callback, maybe after newer ones); :meth:`_take_back_flight` resends."""
         if getattr(reason_code, "is_failure", False):
             return
         self._hook_connects += 1
-        self._gen += 1
+        self._gen += 1  # first: the drain thread stops handing until it has seen the connect
+        client.drop_out_messages()
         self._events.put(("connect", self._gen))
 
     def on_disconnect(self, client: mqtt.Client, userdata: Any, disconnect_flags: Any, reason_code: Any,
@@ -382,7 +367,7 @@ class Outbox(UnsentLane):
         self._ack_buffer = []
 
     def _link_changed(self, connected: bool) -> None:
-        """Messages in flight stay in flight (paho sends them again under their ids after a reconnect)."""
+        """In flight stays in flight while the link is down; at a connect it goes again, first, in order."""
         with self._lock:
             in_flight = len(self._record_flight) + len(self._memory_flight)
             if connected and self._ever_connected:  # the broker may have lost the retained states
@@ -390,6 +375,8 @@ class Outbox(UnsentLane):
                 self._dirty.update((t, None) for t in self._retained if t not in queued)
         if self.unsent is not None:  # unacknowledged records wait in the spool before the lanes split
             self._spill("link down" if not connected else "link up")
+        if connected and self._hook_connects:
+            self._take_back_flight()
         if self.lanes is not None:
             self.lanes.link_changed(connected)
         if not connected:
@@ -401,6 +388,17 @@ class Outbox(UnsentLane):
         self._connected = True
         self._ever_connected = True
         self._n["connects"] += 1
+
+    def _take_back_flight(self) -> None:
+        """Memory messages in flight back to the queue's head, spool records pending (the backlog lane
+        sends them in seq order); one handed just before the drop may go twice (same seq: allowed)."""
+        with self._lock:
+            again = list(self._memory_flight.values())
+            self._memory_flight.clear()
+            self._queue.extendleft(reversed(again))
+            self._record_flight.clear()
+        if self.spool is not None:
+            self.spool.requeue_in_flight()
 
     def _send(self) -> None:
         self._queue_dirty()

@@ -74,7 +74,7 @@ class SpoolLanes:
         self.lane_splits: deque[LaneSplit] = deque(maxlen=100)
 
     def link_changed(self, connected: bool) -> None:
-        """On a connect the lanes split anew (records in flight stay so: paho sends them again)."""
+        """On a connect the lanes split anew (what was in flight is pending again: the backlog lane sends it)."""
         self._retained_sent.clear()
         if connected:
             self.split("link up")

@@ -9,8 +9,8 @@ broker acknowledges within ``memory_hold_s``, the spool file is not written at a
 What is still unacknowledged goes to the spool in one transaction (:meth:`UnsentRecords.take_all`,
 written by the outbox):
 
-- when the link drops (the records paho holds in flight keep their message ids: paho sends them again
-  after the reconnect and their PUBACKs delete them from the spool);
+- when the link drops (the records in flight are marked so in the spool; after the reconnect the
+  backlog lane sends them again, first and in seq order, and their PUBACKs delete them);
 - when the oldest has waited ``memory_hold_s`` (a broker that stalls, or while the link is down: one
   batch per ``memory_hold_s``);
 - at a clean stop.
