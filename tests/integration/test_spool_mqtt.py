@@ -135,6 +135,16 @@ def _check_order_per_lane(arrivals: list[int], splits: list[int]) -> None:
             f"{next(i for i in range(1, len(lane)) if lane[i] < lane[i - 1])}"
 
 
+def _shut_down(broker, outbox, client, collector) -> None:
+    """The broker back if a test left it down, then the outbox, the client and the collector stopped."""
+    if not broker.running:
+        broker.start()
+    outbox.stop()
+    client.disconnect()
+    client.loop_stop()
+    collector.close()
+
+
 def _duplicates(arrivals: list[int]) -> int:
     return len(arrivals) - len(set(arrivals))
 
@@ -176,12 +186,7 @@ def test_broker_outage_loses_nothing_and_keeps_lane_order(mosquitto_broker, tmp_
         last_state_seq = max(r for r in expected if KIND_CYCLE[(r - 1) % len(KIND_CYCLE)] == "state")
         retained = _retained_seq(broker, _topic(prefix, "state"))
     finally:
-        if not broker.running:
-            broker.start()
-        outbox.stop()
-        client.disconnect()
-        client.loop_stop()
-        collector.close()
+        _shut_down(broker, outbox, client, collector)
     st, fs = spool.stats(), outbox.stats()
     spool.close()
     arrivals = collector.received()
@@ -537,12 +542,7 @@ def test_records_kept_in_memory_are_written_only_when_unsent_and_none_is_lost(ma
         expected = set(range(1, spool.last_seq + 1))
         missing = collector.wait_for_all(expected, 20.0)
     finally:
-        if not broker.running:
-            broker.start()
-        outbox.stop()
-        client.disconnect()
-        client.loop_stop()
-        collector.close()
+        _shut_down(broker, outbox, client, collector)
     st, fs = spool.stats(), outbox.stats()
     spool.close()
     arrivals = collector.received()
